@@ -1,0 +1,306 @@
+/**
+ * One stream's sequencer: turns frames that may arrive lost, duplicated or out of order into a
+ * contiguous block stream on the stream's own sample clock.
+ *
+ * Position on the timeline comes from each frame's `firstSample`, so a gap is filled with exactly the
+ * missing number of zero samples and the clock never slips. Sequence numbers only serve the counters
+ * (how many frames were lost, which arrived out of order).
+ *
+ * Queue limit and policy: at most `reorderWindowFrames` frames wait for a missing predecessor, each
+ * for at most `reorderHoldMs`. When either limit is hit the missing range is declared lost, filled
+ * with zeros, and the waiting frames are released. A frame for a range already filled arrives too
+ * late: it is dropped and counted (`framesLate`); its samples are already zeros in the output.
+ */
+import type { Block, BlockSink } from '../../shared/types.ts';
+
+export interface SequencerOptions {
+  /** Frames held while waiting for a missing one (1–1024). */
+  reorderWindowFrames: number;
+  /** Longest a held frame waits before the gap before it is filled, milliseconds. */
+  reorderHoldMs: number;
+  /**
+   * A jump of the clock larger than this (forwards or backwards, samples) is not zero-filled: after
+   * two consecutive frames agree on the new position, the stream resynchronises to it and the next
+   * block carries `discontinuity: true`. A single far-off frame is dropped as `out_of_range`.
+   */
+  maxGapSamples: number;
+  /** Gap blocks are split into pieces of at most this many samples per channel. */
+  maxGapBlockFrames: number;
+}
+
+export const DEFAULT_SEQUENCER_OPTIONS: SequencerOptions = {
+  reorderWindowFrames: 8,
+  reorderHoldMs: 40,
+  maxGapSamples: 480_000,
+  maxGapBlockFrames: 4096,
+};
+
+export interface SequencerCounters {
+  framesAccepted: number;
+  samplesAccepted: number;
+  framesLost: number;
+  framesDuplicated: number;
+  framesReordered: number;
+  framesLate: number;
+  gaps: number;
+  gapSamples: number;
+  resyncs: number;
+  /** Frames whose range partly overlapped samples already emitted; the new tail was kept. */
+  framesTrimmed: number;
+  outOfRange: number;
+}
+
+/** A frame after decoding: planar samples (channel c, sample i at data[c·frames + i]). */
+export interface SequencedFrame {
+  sequence: number;
+  firstSample: number;
+  frames: number;
+  data: Float32Array;
+}
+
+interface Held extends SequencedFrame {
+  arrivedMs: number;
+}
+
+const GAP_HISTORY = 32;
+const U32 = 0x1_0000_0000;
+
+/** Signed distance a − b between two uint32 sequence numbers, in (−2^31, 2^31]. */
+function seqDiff(a: number, b: number): number {
+  let d = (a - b) % U32;
+  if (d > U32 / 2) d -= U32;
+  else if (d <= -U32 / 2) d += U32;
+  return d;
+}
+
+export class Sequencer {
+  readonly counters: SequencerCounters = {
+    framesAccepted: 0,
+    samplesAccepted: 0,
+    framesLost: 0,
+    framesDuplicated: 0,
+    framesReordered: 0,
+    framesLate: 0,
+    gaps: 0,
+    gapSamples: 0,
+    resyncs: 0,
+    framesTrimmed: 0,
+    outOfRange: 0,
+  };
+
+  readonly #streamId: number;
+  readonly #sampleRateHz: number;
+  readonly #channels: number;
+  readonly #opts: SequencerOptions;
+  readonly #sink: BlockSink;
+  /** Next sample index the output expects; −1 before the first frame. */
+  #next = -1;
+  /** Sequence number expected after the last emitted frame. */
+  #nextSeq = 0;
+  /** Highest sequence number seen so far (for out-of-order detection). */
+  #maxSeq = 0;
+  #held: Held[] = [];
+  #pendingDiscontinuity = false;
+  #resyncCandidate: SequencedFrame | null = null;
+  /** Recent zero-filled ranges [start, end), to tell a late frame from a duplicate. */
+  readonly #gapStart = new Float64Array(GAP_HISTORY);
+  readonly #gapEnd = new Float64Array(GAP_HISTORY);
+  #gapCount = 0;
+
+  constructor(streamId: number, sampleRateHz: number, channels: number, opts: SequencerOptions, sink: BlockSink) {
+    if (!Number.isInteger(opts.reorderWindowFrames) || opts.reorderWindowFrames < 1 || opts.reorderWindowFrames > 1024) {
+      throw new RangeError(`reorderWindowFrames ${opts.reorderWindowFrames} not in 1–1024`);
+    }
+    if (!(opts.reorderHoldMs >= 0)) throw new RangeError(`reorderHoldMs ${opts.reorderHoldMs} must be ≥ 0`);
+    if (!(opts.maxGapSamples >= 1)) throw new RangeError(`maxGapSamples ${opts.maxGapSamples} must be ≥ 1`);
+    if (!(opts.maxGapBlockFrames >= 1)) throw new RangeError(`maxGapBlockFrames ${opts.maxGapBlockFrames} must be ≥ 1`);
+    this.#streamId = streamId;
+    this.#sampleRateHz = sampleRateHz;
+    this.#channels = channels;
+    this.#opts = opts;
+    this.#sink = sink;
+  }
+
+  /** Next sample index the output will carry (−1 before the first frame). */
+  get nextSample(): number {
+    return this.#next;
+  }
+
+  /** Frames currently waiting for a missing predecessor. */
+  get heldFrames(): number {
+    return this.#held.length;
+  }
+
+  /** Take one decoded frame. `nowMs` is a monotonic clock (performance.now()). */
+  push(frame: SequencedFrame, nowMs: number): void {
+    const c = this.counters;
+    const start = frame.firstSample;
+    const end = start + frame.frames;
+    if (this.#next < 0) {
+      // Not started: the first frames wait like any others, so a reordered opening is sorted too.
+      if (this.#held.length === 0) this.#maxSeq = frame.sequence;
+    } else {
+      const heldEnd = this.#held.length > 0 ? this.#held[this.#held.length - 1].firstSample : this.#next;
+      if (start - Math.max(this.#next, heldEnd) > this.#opts.maxGapSamples || this.#next - end > this.#opts.maxGapSamples) {
+        this.#farFrame(frame, nowMs);
+        return;
+      }
+      this.#resyncCandidate = null;
+      if (end <= this.#next) {
+        if (this.#inRecentGap(start, end)) c.framesLate++;
+        else c.framesDuplicated++;
+        return;
+      }
+    }
+    // Insert sorted by firstSample; a frame at a position already held is a duplicate.
+    const held = this.#held;
+    let i = held.length;
+    while (i > 0 && held[i - 1].firstSample > start) i--;
+    if (i > 0 && held[i - 1].firstSample === start) {
+      c.framesDuplicated++;
+      return;
+    }
+    // Reordered: its sequence number is below one seen before it (the RFC 4737 sense).
+    if (seqDiff(frame.sequence, this.#maxSeq) < 0) c.framesReordered++;
+    else this.#maxSeq = frame.sequence;
+    held.splice(i, 0, { ...frame, arrivedMs: nowMs });
+    if (this.#next < 0) {
+      if (held.length > this.#opts.reorderWindowFrames) this.#start();
+      return;
+    }
+    this.#drain();
+    while (held.length > this.#opts.reorderWindowFrames) this.#fillToHead();
+  }
+
+  #start(): void {
+    const head = this.#held[0];
+    this.#next = head.firstSample;
+    this.#nextSeq = head.sequence;
+    this.#drain();
+    while (this.#held.length > this.#opts.reorderWindowFrames) this.#fillToHead();
+  }
+
+  /** Release frames that waited longer than the hold time. Call periodically. */
+  tick(nowMs: number): void {
+    const held = this.#held;
+    const hold = this.#opts.reorderHoldMs;
+    if (this.#next < 0 && held.length > 0 && nowMs - this.#oldestArrival() >= hold) this.#start();
+    while (held.length > 0 && nowMs - this.#oldestArrival() >= hold) this.#fillToHead();
+  }
+
+  /** Arrival time of the frame that has waited longest (held is sorted by position, not arrival). */
+  #oldestArrival(): number {
+    let t = Infinity;
+    for (const h of this.#held) if (h.arrivedMs < t) t = h.arrivedMs;
+    return t;
+  }
+
+  /** Release everything held, filling the gaps before it (end of stream). */
+  flush(): void {
+    if (this.#next < 0 && this.#held.length > 0) this.#start();
+    while (this.#held.length > 0) this.#fillToHead();
+  }
+
+  #farFrame(frame: SequencedFrame, nowMs: number): void {
+    const cand = this.#resyncCandidate;
+    if (cand !== null && frame.firstSample === cand.firstSample + cand.frames && seqDiff(frame.sequence, cand.sequence) === 1) {
+      // Two consecutive frames agree on a new timeline: the sender restarted or skipped far ahead.
+      this.flush();
+      this.counters.resyncs++;
+      this.counters.outOfRange--; // the candidate is accepted after all
+      this.#next = cand.firstSample;
+      this.#nextSeq = cand.sequence;
+      this.#maxSeq = frame.sequence;
+      this.#pendingDiscontinuity = true;
+      this.#resyncCandidate = null;
+      this.#held.push({ ...cand, arrivedMs: nowMs }, { ...frame, arrivedMs: nowMs });
+      this.#drain();
+      return;
+    }
+    this.counters.outOfRange++;
+    this.#resyncCandidate = frame;
+  }
+
+  #inRecentGap(start: number, end: number): boolean {
+    const n = Math.min(this.#gapCount, GAP_HISTORY);
+    for (let k = 0; k < n; k++) {
+      if (start < this.#gapEnd[k] && end > this.#gapStart[k]) return true;
+    }
+    return false;
+  }
+
+  /** Emit every held frame that continues the output. */
+  #drain(): void {
+    const held = this.#held;
+    while (held.length > 0 && held[0].firstSample <= this.#next) {
+      const f = held.shift()!;
+      const end = f.firstSample + f.frames;
+      if (end <= this.#next) {
+        this.counters.framesDuplicated++;
+        continue;
+      }
+      if (f.firstSample < this.#next) {
+        this.counters.framesTrimmed++;
+        this.#emitData(f, this.#next - f.firstSample);
+      } else {
+        this.#emitData(f, 0);
+      }
+    }
+  }
+
+  /** Declare the range before the first held frame lost, fill it with zeros, then drain. */
+  #fillToHead(): void {
+    const head = this.#held[0];
+    const missing = head.firstSample - this.#next;
+    if (missing > 0) {
+      const c = this.counters;
+      c.gaps++;
+      c.gapSamples += missing;
+      const lostBySeq = seqDiff(head.sequence, this.#nextSeq);
+      c.framesLost += lostBySeq > 0 ? lostBySeq : 1;
+      const k = this.#gapCount++ % GAP_HISTORY;
+      this.#gapStart[k] = this.#next;
+      this.#gapEnd[k] = head.firstSample;
+      let left = missing;
+      while (left > 0) {
+        const n = Math.min(left, this.#opts.maxGapBlockFrames);
+        this.#emit(this.#next, n, new Float32Array(n * this.#channels), true);
+        left -= n;
+      }
+    }
+    this.#drain();
+  }
+
+  #emitData(f: SequencedFrame, skip: number): void {
+    const c = this.counters;
+    c.framesAccepted++;
+    let data = f.data;
+    let frames = f.frames;
+    if (skip > 0) {
+      frames = f.frames - skip;
+      data = new Float32Array(frames * this.#channels);
+      for (let ch = 0; ch < this.#channels; ch++) {
+        data.set(f.data.subarray(ch * f.frames + skip, (ch + 1) * f.frames), ch * frames);
+      }
+    }
+    c.samplesAccepted += frames;
+    this.#nextSeq = (f.sequence + 1) % U32;
+    this.#emit(f.firstSample + skip, frames, data, false);
+  }
+
+  #emit(sampleIndex: number, frames: number, data: Float32Array, gap: boolean): void {
+    const block: Block = {
+      streamId: this.#streamId,
+      sampleIndex,
+      sampleRateHz: this.#sampleRateHz,
+      channels: this.#channels,
+      frames,
+      data,
+      gap,
+      discontinuity: this.#pendingDiscontinuity,
+    };
+    this.#pendingDiscontinuity = false;
+    this.#next = sampleIndex + frames;
+    this.#sink(block);
+  }
+}

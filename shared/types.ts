@@ -1,0 +1,37 @@
+/**
+ * Types that cross stage boundaries. Samples inside the server are float32 in full-scale units (±1).
+ */
+
+/** Sensor positions of one array, metres, in the array's own x–y–z frame. */
+export interface ArrayGeometry {
+  name: string;
+  description?: string;
+  /** positions[m] = [x, y, z] of sensor m, metres. */
+  positions: [number, number, number][];
+}
+
+/**
+ * One contiguous piece of a stream's timeline, M channels × `frames` samples.
+ * `data` is planar: channel c, sample i at data[c·frames + i]. A block with `gap: true` is zeros
+ * standing in for samples that never arrived, of exactly the missing length.
+ */
+export interface Block {
+  streamId: number;
+  /** Sample index of data's first sample on the stream's clock. */
+  sampleIndex: number;
+  sampleRateHz: number;
+  channels: number;
+  frames: number;
+  data: Float32Array;
+  gap: boolean;
+  /**
+   * True on the first block after the stream's clock jumped (sender restart or a gap too long to
+   * fill): sampleIndex does not continue the previous block.
+   */
+  discontinuity: boolean;
+}
+
+/** A stage that produces blocks: live ingest or the simulator. */
+export interface BlockSink {
+  (block: Block): void;
+}
