@@ -1,0 +1,29 @@
+/** The `nullsteer` command: one subcommand per job. */
+import { serveCommand, processIo } from './main.ts';
+
+const USAGE = `usage: nullsteer <command> [options]
+commands:
+  serve   run the server (what \`npm start\` runs)
+  send    stream a WAV or raw file to a server as ingest frames
+run \`nullsteer <command> --help\` for a command's options.`;
+
+export async function main(argv: string[]): Promise<number> {
+  const [cmd, ...rest] = argv;
+  switch (cmd) {
+    case 'serve':
+      return serveCommand(rest);
+    case 'send': {
+      const { sendCommand } = await import('./tools/send.ts');
+      return sendCommand(rest);
+    }
+    case undefined:
+    case '-h':
+    case '--help':
+    case 'help':
+      processIo.out(USAGE);
+      return cmd === undefined ? 2 : 0;
+    default:
+      processIo.err(`nullsteer: unknown command ${JSON.stringify(cmd)}\n${USAGE}`);
+      return 2;
+  }
+}

@@ -1,0 +1,67 @@
+/**
+ * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres; more fields allowed
+ * and ignored. Validated on load with errors naming the file and the field.
+ */
+import { readFile } from 'node:fs/promises';
+import type { ArrayGeometry } from '../../shared/types.ts';
+import { ConfigError, type ConfigIssue } from './validate.ts';
+
+export const MAX_SENSORS = 1024;
+/** Coordinates beyond this are almost certainly millimetres or a typo, not metres. */
+export const MAX_COORD_M = 100;
+/** Two sensors closer than this are the same sensor listed twice. */
+export const MIN_SPACING_M = 0.001;
+
+/** Check a parsed geometry object; `where` prefixes every message (e.g. the file name). */
+export function validateGeometry(value: unknown, where: string): ArrayGeometry {
+  const issues: ConfigIssue[] = [];
+  const add = (path: string, v: unknown, msg: string) => issues.push({ path, value: v, message: `${where}: ${path} ${msg}` });
+  if (typeof value !== 'object' || value === null || Array.isArray(value)) {
+    throw new ConfigError([{ path: '', value, message: `${where}: not a JSON object` }]);
+  }
+  const o = value as Record<string, unknown>;
+  const name = o.name === undefined ? '' : o.name;
+  if (typeof name !== 'string' || name.length > 200) add('name', name, 'must be a string of at most 200 characters');
+  if (o.description !== undefined && typeof o.description !== 'string') add('description', o.description, 'must be a string');
+  const pos = o.positions;
+  if (!Array.isArray(pos) || pos.length < 1 || pos.length > MAX_SENSORS) {
+    add('positions', Array.isArray(pos) ? `${pos.length} entries` : pos, `must be a list of 1–${MAX_SENSORS} [x, y, z] triples in metres`);
+    throw new ConfigError(issues);
+  }
+  const out: [number, number, number][] = [];
+  pos.forEach((p, m) => {
+    if (!Array.isArray(p) || p.length !== 3 || !p.every((x) => typeof x === 'number' && Number.isFinite(x))) {
+      add(`positions[${m}]`, p, 'must be [x, y, z], three finite numbers in metres');
+      return;
+    }
+    if (p.some((x) => Math.abs(x) > MAX_COORD_M)) add(`positions[${m}]`, p, `has a coordinate beyond ±${MAX_COORD_M} m (positions are metres)`);
+    out.push([p[0], p[1], p[2]]);
+  });
+  if (issues.length === 0) {
+    for (let a = 0; a < out.length; a++) {
+      for (let b = a + 1; b < out.length; b++) {
+        const d = Math.hypot(out[a][0] - out[b][0], out[a][1] - out[b][1], out[a][2] - out[b][2]);
+        if (d < MIN_SPACING_M) add(`positions[${b}]`, pos[b], `is within ${MIN_SPACING_M * 1000} mm of positions[${a}]: the same sensor twice?`);
+      }
+    }
+  }
+  if (issues.length > 0) throw new ConfigError(issues);
+  return { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
+}
+
+/** Read and validate a geometry file. */
+export async function loadGeometry(path: string): Promise<ArrayGeometry> {
+  let text: string;
+  try {
+    text = await readFile(path, 'utf8');
+  } catch (e) {
+    throw new ConfigError([{ path: 'array.file', value: path, message: `array.file = ${JSON.stringify(path)}: cannot read (${(e as NodeJS.ErrnoException).code ?? String(e)})` }]);
+  }
+  let json: unknown;
+  try {
+    json = JSON.parse(text);
+  } catch (e) {
+    throw new ConfigError([{ path: 'array.file', value: path, message: `${path}: not valid JSON (${(e as Error).message})` }]);
+  }
+  return validateGeometry(json, path);
+}

@@ -1,0 +1,144 @@
+/**
+ * Configuration loading: config/default.json < user file (--config or NULLSTEER_CONFIG) <
+ * environment variables < command-line flags. Later layers win field by field. The merged result is
+ * validated as a whole, so one start-up lists every problem.
+ */
+import { existsSync, readFileSync } from 'node:fs';
+import { dirname, isAbsolute, join, resolve } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import type { ArrayGeometry } from '../../shared/types.ts';
+import { loadGeometry } from './array-file.ts';
+import { CONFIG_SCHEMA, schemaLeaves, type Config, type FieldSpec } from './schema.ts';
+import { ConfigError, validateConfig } from './validate.ts';
+
+export const PROJECT_CONFIG_DIR = resolve(dirname(fileURLToPath(import.meta.url)), '../../config');
+
+/** Environment variables and the field each sets. */
+export const ENV_FIELDS: Record<string, string> = {
+  NULLSTEER_HOST: 'server.host',
+  NULLSTEER_HTTP_PORT: 'server.httpPort',
+  NULLSTEER_TOKEN: 'server.token',
+  NULLSTEER_SOURCE: 'source.kind',
+  NULLSTEER_ARRAY: 'array.file',
+  NULLSTEER_UDP_PORT: 'ingest.udp.port',
+};
+
+/** Command-line flags of `serve` that set one field each (besides --config and --set). */
+export const FLAG_FIELDS: Record<string, string> = {
+  host: 'server.host',
+  'http-port': 'server.httpPort',
+  'udp-port': 'ingest.udp.port',
+  source: 'source.kind',
+  array: 'array.file',
+  token: 'server.token',
+};
+
+export interface LoadOptions {
+  /** Path of a user config file (JSON), layered over the defaults. */
+  configFile?: string;
+  env?: Record<string, string | undefined>;
+  /** Field overrides as strings, dotted path → text, applied last (flags). */
+  overrides?: [string, string][];
+  /** Objects layered after the files and before env/flags (tests, embedding). */
+  layers?: unknown[];
+  cwd?: string;
+}
+
+export interface LoadedConfig {
+  config: Config;
+  geometry: ArrayGeometry;
+  /** Absolute path of the geometry file in use. */
+  arrayPath: string;
+}
+
+const LEAVES = new Map(schemaLeaves().map((l) => [l.path, l.spec]));
+
+/** Parse a command-line or environment string for the field at `path`, by its schema type. */
+export function parseFieldText(path: string, text: string): unknown {
+  const spec = LEAVES.get(path);
+  if (!spec) {
+    throw new ConfigError([{ path, value: text, message: `${path}: unknown field; known fields: ${[...LEAVES.keys()].join(', ')}` }]);
+  }
+  if (text === 'null' && 'nullable' in spec && spec.nullable) return null;
+  switch (spec.kind) {
+    case 'int':
+    case 'number': {
+      const v = text.trim() === '' ? NaN : Number(text);
+      return Number.isNaN(v) ? text : v;
+    }
+    case 'bool':
+      return text === 'true' ? true : text === 'false' ? false : text;
+    case 'enumList':
+      return text.split(',').map((s) => s.trim()).filter((s) => s.length > 0);
+    default:
+      return text;
+  }
+}
+
+function isPlainObject(v: unknown): v is Record<string, unknown> {
+  return typeof v === 'object' && v !== null && !Array.isArray(v);
+}
+
+/** Deep merge of plain objects; arrays and scalars from `over` replace those in `base`. */
+export function mergeLayers(base: unknown, over: unknown): unknown {
+  if (!isPlainObject(base) || !isPlainObject(over)) return over === undefined ? base : over;
+  const out: Record<string, unknown> = { ...base };
+  for (const [k, v] of Object.entries(over)) out[k] = mergeLayers(base[k], v);
+  return out;
+}
+
+function setPath(obj: Record<string, unknown>, path: string, value: unknown): void {
+  const keys = path.split('.');
+  let o = obj;
+  for (const k of keys.slice(0, -1)) {
+    if (!isPlainObject(o[k])) o[k] = {};
+    o = o[k] as Record<string, unknown>;
+  }
+  o[keys[keys.length - 1]] = value;
+}
+
+function readJsonFile(path: string, what: string): unknown {
+  let text: string;
+  try {
+    text = readFileSync(path, 'utf8');
+  } catch (e) {
+    throw new ConfigError([{ path: what, value: path, message: `${what} = ${JSON.stringify(path)}: cannot read (${(e as NodeJS.ErrnoException).code ?? String(e)})` }]);
+  }
+  try {
+    return JSON.parse(text);
+  } catch (e) {
+    throw new ConfigError([{ path: what, value: path, message: `${path}: not valid JSON (${(e as Error).message})` }]);
+  }
+}
+
+/** Resolve a geometry path: absolute as is; relative against cwd first, then config/. */
+export function resolveArrayPath(file: string, cwd: string): string {
+  if (isAbsolute(file)) return file;
+  const fromCwd = resolve(cwd, file);
+  if (existsSync(fromCwd)) return fromCwd;
+  return join(PROJECT_CONFIG_DIR, file);
+}
+
+/** Build and validate the configuration from all layers, then load the array geometry. */
+export async function loadConfig(opts: LoadOptions = {}): Promise<LoadedConfig> {
+  const env = opts.env ?? {};
+  const cwd = opts.cwd ?? process.cwd();
+  let merged = readJsonFile(join(PROJECT_CONFIG_DIR, 'default.json'), 'config/default.json');
+  const userFile = opts.configFile ?? env.NULLSTEER_CONFIG;
+  if (userFile) merged = mergeLayers(merged, readJsonFile(resolve(cwd, userFile), '--config'));
+  for (const layer of opts.layers ?? []) merged = mergeLayers(merged, layer);
+  const tail: Record<string, unknown> = {};
+  for (const [name, path] of Object.entries(ENV_FIELDS)) {
+    const text = env[name];
+    if (text !== undefined && text !== '') setPath(tail, path, parseFieldText(path, text));
+  }
+  for (const [path, text] of opts.overrides ?? []) setPath(tail, path, parseFieldText(path, text));
+  merged = mergeLayers(merged, tail);
+  const config = validateConfig(merged);
+  const arrayPath = resolveArrayPath(config.array.file, cwd);
+  const geometry = await loadGeometry(arrayPath);
+  return { config, geometry, arrayPath };
+}
+
+export { CONFIG_SCHEMA, ConfigError };
+export type { Config, FieldSpec };

@@ -1,0 +1,126 @@
+/**
+ * The configuration schema: every field, its type, range and meaning, defined once. The loader
+ * validates against it, README's config reference is checked against it by a test, and `--set`
+ * uses it to parse command-line strings.
+ */
+
+export type FieldSpec =
+  | { kind: 'int'; min: number; max: number; doc: string; nullable?: boolean }
+  | { kind: 'number'; min: number; max: number; doc: string; nullable?: boolean }
+  | { kind: 'string'; doc: string; pattern?: RegExp; patternDoc?: string; maxLength?: number; nullable?: boolean }
+  | { kind: 'enum'; values: readonly string[]; doc: string }
+  | { kind: 'enumList'; values: readonly string[]; doc: string; minItems: number }
+  | { kind: 'bool'; doc: string }
+  | { kind: 'object'; fields: Record<string, FieldSpec>; doc?: string };
+
+const ENCODINGS = ['int16', 'int24', 'int32', 'float32'] as const;
+
+export const CONFIG_SCHEMA: FieldSpec = {
+  kind: 'object',
+  fields: {
+    server: {
+      kind: 'object',
+      fields: {
+        host: { kind: 'string', maxLength: 255, pattern: /^[A-Za-z0-9.:\-[\]]+$/, patternDoc: 'a host name or IP address', doc: 'Address the HTTP, WebSocket and UDP listeners bind to. Loopback by default.' },
+        httpPort: { kind: 'int', min: 0, max: 65535, doc: 'HTTP/WebSocket port; 0 picks a free port (printed at start).' },
+        token: { kind: 'string', nullable: true, maxLength: 256, pattern: /^[\x21-\x7e]{16,}$/, patternDoc: 'at least 16 printable ASCII characters, no spaces', doc: 'Access token for changing anything; required when host is not loopback.' },
+      },
+    },
+    source: {
+      kind: 'object',
+      fields: {
+        kind: { kind: 'enum', values: ['simulator', 'network'], doc: '`simulator`: the built-in scenario; `network`: frames over UDP and WebSocket.' },
+      },
+    },
+    array: {
+      kind: 'object',
+      fields: {
+        file: { kind: 'string', maxLength: 4096, doc: 'Array geometry JSON (`positions` in metres). Relative paths: working directory first, then the project\'s config/ folder.' },
+      },
+    },
+    input: {
+      kind: 'object',
+      fields: {
+        sampleRateHz: { kind: 'int', min: 8000, max: 384000, doc: 'Sample rate every stream must carry; other rates are rejected and counted.' },
+        encodings: { kind: 'enumList', values: ENCODINGS, minItems: 1, doc: 'Sample encodings accepted; frames in others are rejected and counted.' },
+        streamId: { kind: 'int', min: 0, max: 0xffffffff, nullable: true, doc: 'Only this stream id is processed (others are counted and dropped); null = the first stream that arrives.' },
+      },
+    },
+    ingest: {
+      kind: 'object',
+      fields: {
+        udp: {
+          kind: 'object',
+          fields: {
+            enabled: { kind: 'bool', doc: 'Listen for frames on UDP (network source only).' },
+            port: { kind: 'int', min: 0, max: 65535, doc: 'UDP port; 0 picks a free port (printed at start).' },
+            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer (SO_RCVBUF); a short burst beyond it is lost in the kernel.' },
+          },
+        },
+        websocket: {
+          kind: 'object',
+          fields: {
+            enabled: { kind: 'bool', doc: 'Accept frames as WebSocket binary messages (network source only).' },
+            path: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'URL path of the ingest WebSocket.' },
+            maxMessageBytes: { kind: 'int', min: 1024, max: 65507, doc: 'Largest message accepted; a larger one closes the connection with code 1009.' },
+            maxConnections: { kind: 'int', min: 1, max: 1024, doc: 'Concurrent ingest connections; more are refused with HTTP 503.' },
+          },
+        },
+        reorderWindowFrames: { kind: 'int', min: 1, max: 1024, doc: 'Frames held while waiting for a missing one; when full, the gap is zero-filled.' },
+        reorderHoldMs: { kind: 'int', min: 0, max: 10000, doc: 'Longest a frame waits for a missing predecessor before the gap is zero-filled.' },
+        maxGapSeconds: { kind: 'number', min: 0.01, max: 3600, doc: 'Larger clock jumps resynchronise the stream (flagged discontinuity) instead of zero-filling.' },
+        maxStreams: { kind: 'int', min: 1, max: 256, doc: 'Streams tracked at once; frames of further stream ids are rejected and counted.' },
+      },
+    },
+    simulator: {
+      kind: 'object',
+      fields: {
+        seed: { kind: 'int', min: 0, max: 0xffffffff, doc: 'Seed of the built-in scenario (same seed, same signals).' },
+        blockFrames: { kind: 'int', min: 16, max: 16384, doc: 'Samples per channel in each simulated block.' },
+        speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound used to place the simulated sources, m/s.' },
+      },
+    },
+  },
+};
+
+/** The validated configuration. */
+export interface Config {
+  server: { host: string; httpPort: number; token: string | null };
+  source: { kind: 'simulator' | 'network' };
+  array: { file: string };
+  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null };
+  ingest: {
+    udp: { enabled: boolean; port: number; receiveBufferBytes: number };
+    websocket: { enabled: boolean; path: string; maxMessageBytes: number; maxConnections: number };
+    reorderWindowFrames: number;
+    reorderHoldMs: number;
+    maxGapSeconds: number;
+    maxStreams: number;
+  };
+  simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
+}
+
+/** Walk the schema and list every leaf with its dotted path (for docs and `--set`). */
+export function schemaLeaves(spec: FieldSpec = CONFIG_SCHEMA, prefix = ''): { path: string; spec: Exclude<FieldSpec, { kind: 'object' }> }[] {
+  if (spec.kind !== 'object') return [{ path: prefix, spec }];
+  return Object.entries(spec.fields).flatMap(([k, s]) => schemaLeaves(s, prefix ? `${prefix}.${k}` : k));
+}
+
+/** Human description of a leaf's allowed values, as used in error messages and the README. */
+export function allowedText(spec: Exclude<FieldSpec, { kind: 'object' }>): string {
+  const orNull = 'nullable' in spec && spec.nullable ? ' or null' : '';
+  switch (spec.kind) {
+    case 'int':
+      return `integer ${spec.min}–${spec.max}${orNull}`;
+    case 'number':
+      return `number ${spec.min}–${spec.max}${orNull}`;
+    case 'string':
+      return `${spec.patternDoc ?? 'string'}${spec.maxLength ? ` (≤ ${spec.maxLength} characters)` : ''}${orNull}`;
+    case 'enum':
+      return `one of ${spec.values.join(', ')}`;
+    case 'enumList':
+      return `list of ${spec.values.join(', ')} (at least ${spec.minItems})`;
+    case 'bool':
+      return 'true or false';
+  }
+}

@@ -1,0 +1,33 @@
+/**
+ * The HTTP error catalogue: every error the API returns has a code, an HTTP status and a message
+ * template, and reaches the client in one JSON shape: `{ "error": { code, message, statusCode } }`.
+ */
+
+export const HTTP_ERRORS = {
+  ERR_HTTP_NOT_FOUND: { statusCode: 404, template: 'no route for {method} {url}' },
+  ERR_HTTP_VALIDATION: { statusCode: 400, template: '{detail}' },
+  ERR_HTTP_BAD_BODY: { statusCode: 400, template: 'request body is not valid JSON: {detail}' },
+  ERR_HTTP_BODY_TOO_LARGE: { statusCode: 413, template: 'request body exceeds {limit} bytes' },
+  ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
+} as const;
+
+export type HttpErrorCode = keyof typeof HTTP_ERRORS;
+
+export interface HttpErrorBody {
+  error: { code: HttpErrorCode; message: string; statusCode: number };
+}
+
+export class HttpError extends Error {
+  readonly code: HttpErrorCode;
+  readonly statusCode: number;
+  constructor(code: HttpErrorCode, params: Record<string, string | number> = {}) {
+    const spec = HTTP_ERRORS[code];
+    super(spec.template.replace(/\{(\w+)\}/g, (_, k: string) => String(params[k] ?? `{${k}}`)));
+    this.name = 'HttpError';
+    this.code = code;
+    this.statusCode = spec.statusCode;
+  }
+  toJSON(): HttpErrorBody {
+    return { error: { code: this.code, message: this.message, statusCode: this.statusCode } };
+  }
+}

@@ -1,0 +1,226 @@
+/**
+ * Where every received datagram or WebSocket message goes: decode, check against the configured
+ * array and input, hand to the stream's sequencer, count. Transports (udp.ts, websocket.ts) only
+ * deliver bytes here.
+ *
+ * Limits and policies: at most `maxStreams` stream ids are tracked; when full, a stream that never
+ * had a frame accepted is forgotten to make room, otherwise the new id's frames are rejected
+ * (`too_many_streams`). Only the selected stream (config input.streamId, or the first stream with
+ * an accepted frame) feeds the block sink; the others are sequenced and counted so status shows them.
+ */
+import { decodeFrame, decodeSamples, FRAME_REJECT_REASONS, type SampleEncoding } from '../../shared/frame.ts';
+import type { BlockSink } from '../../shared/types.ts';
+import { Sequencer, type SequencerCounters, type SequencerOptions } from './sequencer.ts';
+
+export type Transport = 'udp' | 'websocket';
+
+/** Reasons a decodable frame is refused for its stream. */
+export const STREAM_REJECT_REASONS = ['rate_mismatch', 'channel_mismatch', 'encoding_mismatch', 'non_finite', 'out_of_range'] as const;
+export type StreamRejectReason = (typeof STREAM_REJECT_REASONS)[number];
+/** Reasons a message is refused before it reaches a stream. */
+export const INGEST_REJECT_REASONS = [...FRAME_REJECT_REASONS.filter((r) => r !== 'non_finite'), 'too_many_streams', 'not_binary', 'too_large'] as const;
+export type IngestRejectReason = (typeof INGEST_REJECT_REASONS)[number];
+
+export interface IngestHubOptions {
+  sampleRateHz: number;
+  channels: number;
+  encodings: readonly SampleEncoding[];
+  /** Only this stream feeds the sink; null = the first stream with an accepted frame. */
+  streamId: number | null;
+  maxStreams: number;
+  sequencer: SequencerOptions;
+}
+
+export interface RejectNote {
+  reason: string;
+  detail: string;
+  transport: Transport;
+  streamId: number | null;
+  /** Seconds since the hub started. */
+  atS: number;
+}
+
+export interface StreamStatus extends Omit<SequencerCounters, 'outOfRange'> {
+  streamId: number;
+  selected: boolean;
+  transport: Transport | 'simulator';
+  remote: string;
+  sampleRateHz: number;
+  channels: number;
+  encoding: SampleEncoding | null;
+  firstSample: number | null;
+  nextSample: number | null;
+  rejected: Record<StreamRejectReason, number>;
+  inputRateHz: number;
+  lastFrameAgoS: number | null;
+}
+
+function zeroCounts<K extends string>(keys: readonly K[]): Record<K, number> {
+  return Object.fromEntries(keys.map((k) => [k, 0])) as Record<K, number>;
+}
+
+/** Samples-per-second meter over windows of about one second. */
+export class RateMeter {
+  #t0 = -1;
+  #n0 = 0;
+  #rate = 0;
+  update(totalSamples: number, nowMs: number): void {
+    if (this.#t0 < 0) {
+      this.#t0 = nowMs;
+      this.#n0 = totalSamples;
+      return;
+    }
+    const dt = nowMs - this.#t0;
+    if (dt >= 1000) {
+      this.#rate = ((totalSamples - this.#n0) * 1000) / dt;
+      this.#t0 = nowMs;
+      this.#n0 = totalSamples;
+    }
+  }
+  /** Last full-window rate; decays to 0 when nothing arrives for over two windows. */
+  rate(nowMs: number): number {
+    return this.#t0 >= 0 && nowMs - this.#t0 > 2000 ? 0 : this.#rate;
+  }
+}
+
+class StreamState {
+  readonly sequencer: Sequencer;
+  readonly rejected = zeroCounts(STREAM_REJECT_REASONS);
+  readonly meter = new RateMeter();
+  encoding: SampleEncoding | null = null;
+  firstSample: number | null = null;
+  lastFrameMs: number | null = null;
+  constructor(
+    readonly streamId: number,
+    readonly transport: Transport,
+    public remote: string,
+    seq: (s: StreamState) => Sequencer,
+  ) {
+    this.sequencer = seq(this);
+  }
+}
+
+export class IngestHub {
+  readonly rejected = zeroCounts(INGEST_REJECT_REASONS);
+  lastRejected: RejectNote | null = null;
+  messages = 0;
+  readonly #opts: IngestHubOptions;
+  readonly #sink: BlockSink;
+  readonly #streams = new Map<number, StreamState>();
+  readonly #t0Ms: number;
+  #selected: number | null;
+
+  constructor(opts: IngestHubOptions, sink: BlockSink, nowMs = performance.now()) {
+    this.#opts = opts;
+    this.#sink = sink;
+    this.#selected = opts.streamId;
+    this.#t0Ms = nowMs;
+  }
+
+  /** The stream feeding the sink, or null while none is chosen. */
+  get selectedStream(): number | null {
+    return this.#selected;
+  }
+
+  /** Count a message refused by its transport before decoding (text message, oversize). */
+  refuse(reason: IngestRejectReason, detail: string, transport: Transport, nowMs = performance.now()): void {
+    this.messages++;
+    this.rejected[reason]++;
+    this.lastRejected = { reason, detail, transport, streamId: null, atS: (nowMs - this.#t0Ms) / 1000 };
+  }
+
+  /** Take one datagram or message. Never throws on bad input: it is counted instead. */
+  receive(bytes: Uint8Array, transport: Transport, remote: string, nowMs = performance.now()): void {
+    const r = decodeFrame(bytes);
+    if (!r.ok) {
+      this.refuse(r.reason as IngestRejectReason, r.detail, transport, nowMs);
+      return;
+    }
+    const f = r.frame;
+    const st = this.#stream(f.streamId, transport, remote);
+    if (st === null) {
+      this.refuse('too_many_streams', `stream ${f.streamId}: ${this.#opts.maxStreams} streams already tracked`, transport, nowMs);
+      return;
+    }
+    this.messages++;
+    st.lastFrameMs = nowMs;
+    const o = this.#opts;
+    let why: StreamRejectReason | null = null;
+    let detail = '';
+    if (f.sampleRateHz !== o.sampleRateHz) [why, detail] = ['rate_mismatch', `frame at ${f.sampleRateHz} Hz, input is ${o.sampleRateHz} Hz`];
+    else if (f.channels !== o.channels) [why, detail] = ['channel_mismatch', `frame has ${f.channels} channels, the array has ${o.channels}`];
+    else if (!o.encodings.includes(f.encoding)) [why, detail] = ['encoding_mismatch', `frame is ${f.encoding}, accepted: ${o.encodings.join(', ')}`];
+    let data: Float32Array | null = null;
+    if (why === null) {
+      data = new Float32Array(f.channels * f.samplesPerChannel);
+      if (!decodeSamples(f, data)) [why, detail] = ['non_finite', 'float32 payload holds NaN or ±Infinity'];
+    }
+    if (why !== null || data === null) {
+      st.rejected[why!]++;
+      this.lastRejected = { reason: why!, detail, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
+      return;
+    }
+    st.remote = remote;
+    st.encoding = f.encoding;
+    if (st.firstSample === null) st.firstSample = f.firstSample;
+    const before = st.sequencer.counters.outOfRange;
+    st.sequencer.push({ sequence: f.sequence, firstSample: f.firstSample, frames: f.samplesPerChannel, data }, nowMs);
+    if (st.sequencer.counters.outOfRange !== before) {
+      this.lastRejected = { reason: 'out_of_range', detail: `firstSample ${f.firstSample} is far from the stream's clock`, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
+    }
+    st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
+  }
+
+  /** Release frames held too long; call every few milliseconds. */
+  tick(nowMs = performance.now()): void {
+    for (const st of this.#streams.values()) {
+      st.sequencer.tick(nowMs);
+      st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
+    }
+  }
+
+  /** Release everything held (shutdown, end of a replay). */
+  flush(): void {
+    for (const st of this.#streams.values()) st.sequencer.flush();
+  }
+
+  status(nowMs = performance.now()): StreamStatus[] {
+    return [...this.#streams.values()].map((st) => {
+      const { outOfRange, ...counters } = st.sequencer.counters;
+      const next = st.sequencer.nextSample;
+      return {
+        streamId: st.streamId,
+        selected: st.streamId === this.#selected,
+        transport: st.transport,
+        remote: st.remote,
+        sampleRateHz: this.#opts.sampleRateHz,
+        channels: this.#opts.channels,
+        encoding: st.encoding,
+        firstSample: st.firstSample,
+        nextSample: next < 0 ? null : next,
+        ...counters,
+        rejected: { ...st.rejected, out_of_range: outOfRange },
+        inputRateHz: st.meter.rate(nowMs),
+        lastFrameAgoS: st.lastFrameMs === null ? null : (nowMs - st.lastFrameMs) / 1000,
+      };
+    });
+  }
+
+  #stream(id: number, transport: Transport, remote: string): StreamState | null {
+    const have = this.#streams.get(id);
+    if (have) return have;
+    if (this.#streams.size >= this.#opts.maxStreams) {
+      const idle = [...this.#streams.values()].find((s) => s.sequencer.counters.framesAccepted === 0 && s.sequencer.heldFrames === 0);
+      if (!idle) return null;
+      this.#streams.delete(idle.streamId);
+    }
+    const st = new StreamState(id, transport, remote, () =>
+      new Sequencer(id, this.#opts.sampleRateHz, this.#opts.channels, this.#opts.sequencer, (block) => {
+        if (this.#selected === null) this.#selected = id;
+        if (this.#selected === id) this.#sink(block);
+      }),
+    );
+    this.#streams.set(id, st);
+    return st;
+  }
+}

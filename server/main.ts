@@ -1,0 +1,114 @@
+/**
+ * `nullsteer serve`: load the configuration (defaults < file < env < flags), start the service,
+ * print where it listens, and shut down cleanly on SIGINT/SIGTERM.
+ */
+import { parseArgs } from 'node:util';
+import { FLAG_FIELDS, loadConfig } from './config/load.ts';
+import { ConfigError } from './config/validate.ts';
+import { startService, VERSION } from './service.ts';
+
+export const SERVE_USAGE = `usage: nullsteer serve [--config FILE] [--host ADDR] [--http-port N] [--udp-port N]
+                       [--source simulator|network] [--array FILE] [--token T] [--set FIELD=VALUE]...
+  Port 0 picks a free port. --set takes any config field by its dotted path, e.g.
+  --set ingest.reorderWindowFrames=16 (see README, "Configuration").`;
+
+export interface CliIo {
+  out: (line: string) => void;
+  err: (line: string) => void;
+  env: Record<string, string | undefined>;
+}
+
+export const processIo: CliIo = {
+  out: (l) => process.stdout.write(`${l}\n`),
+  err: (l) => process.stderr.write(`${l}\n`),
+  env: process.env,
+};
+
+/** Parse serve's flags into config overrides; throws TypeError with a usage-ready message. */
+export function parseServeArgs(argv: string[]): { configFile?: string; overrides: [string, string][]; help: boolean } {
+  const { values, positionals } = parseArgs({
+    args: argv,
+    allowPositionals: true,
+    strict: true,
+    options: {
+      config: { type: 'string' },
+      host: { type: 'string' },
+      'http-port': { type: 'string' },
+      'udp-port': { type: 'string' },
+      source: { type: 'string' },
+      array: { type: 'string' },
+      token: { type: 'string' },
+      set: { type: 'string', multiple: true },
+      help: { type: 'boolean', short: 'h' },
+    },
+  });
+  if (positionals.length > 0) throw new TypeError(`unexpected argument ${JSON.stringify(positionals[0])}`);
+  const overrides: [string, string][] = [];
+  for (const [flag, path] of Object.entries(FLAG_FIELDS)) {
+    const v = (values as Record<string, unknown>)[flag];
+    if (typeof v === 'string') overrides.push([path, v]);
+  }
+  for (const s of values.set ?? []) {
+    const eq = s.indexOf('=');
+    if (eq <= 0) throw new TypeError(`--set ${JSON.stringify(s)}: expected FIELD=VALUE, e.g. ingest.reorderHoldMs=60`);
+    overrides.push([s.slice(0, eq), s.slice(eq + 1)]);
+  }
+  return { configFile: values.config, overrides, help: values.help === true };
+}
+
+/** Run the server until a signal; resolves with the exit code. */
+export async function serveCommand(argv: string[], io: CliIo = processIo): Promise<number> {
+  let args: ReturnType<typeof parseServeArgs>;
+  try {
+    args = parseServeArgs(argv);
+  } catch (e) {
+    io.err(`nullsteer serve: ${(e as Error).message}\n${SERVE_USAGE}`);
+    return 2;
+  }
+  if (args.help) {
+    io.out(SERVE_USAGE);
+    return 0;
+  }
+  let service;
+  try {
+    const loaded = await loadConfig({ configFile: args.configFile, overrides: args.overrides, env: io.env });
+    service = await startService(loaded, { logger: { level: io.env.NULLSTEER_LOG_LEVEL ?? 'warn' } });
+    const c = loaded.config;
+    io.out(`nullsteer ${VERSION}: ${loaded.geometry.name} (${loaded.geometry.positions.length} channels) at ${c.input.sampleRateHz} Hz`);
+    if (c.source.kind === 'simulator') io.out('source: built-in simulated scenario (set --source network for live frames)');
+    else {
+      io.out(`source: network frames`);
+      if (service.udpPort !== null) io.out(`  UDP ingest   udp://${c.server.host}:${service.udpPort}`);
+      if (c.ingest.websocket.enabled) io.out(`  WS ingest    ${service.url.replace(/^http/, 'ws')}${c.ingest.websocket.path}`);
+    }
+    io.out(`status: ${service.url}/api/status`);
+    io.out(`listening on ${service.url}`);
+  } catch (e) {
+    if (e instanceof ConfigError) {
+      io.err(`nullsteer serve: ${e.message}`);
+      return 2;
+    }
+    const err = e as NodeJS.ErrnoException;
+    if (err.code === 'EADDRINUSE' || err.code === 'EACCES' || err.code === 'EADDRNOTAVAIL') {
+      io.err(`nullsteer serve: cannot listen (${err.code}: ${err.message}); choose another port with --http-port / --udp-port or 0 for any free port`);
+      return 1;
+    }
+    io.err(`nullsteer serve: ${err.stack ?? String(e)}`);
+    return 1;
+  }
+  const svc = service;
+  return new Promise<number>((resolve) => {
+    const stop = (sig: string) => {
+      io.out(`${sig}: shutting down`);
+      svc.close().then(
+        () => resolve(0),
+        (e) => {
+          io.err(`shutdown failed: ${(e as Error).message}`);
+          resolve(1);
+        },
+      );
+    };
+    process.once('SIGINT', () => stop('SIGINT'));
+    process.once('SIGTERM', () => stop('SIGTERM'));
+  });
+}

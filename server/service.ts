@@ -1,0 +1,157 @@
+/**
+ * The running server: source (simulator or network ingest) → block bus, plus the HTTP app and its
+ * listeners. main.ts starts one from the command line; integration tests start one in-process on
+ * free loopback ports.
+ */
+import type { FastifyInstance } from 'fastify';
+import type { Server } from 'node:http';
+import type { Block, BlockSink } from '../shared/types.ts';
+import type { LoadedConfig } from './config/load.ts';
+import { buildApp } from './http/app.ts';
+import { BlockBus } from './ingest/block-bus.ts';
+import { IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
+import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
+import { startUdpIngest, type UdpIngest } from './ingest/udp.ts';
+import { attachUpgrades, createWebSocketIngest, type WebSocketIngest } from './ingest/websocket.ts';
+
+export const VERSION = '0.1.0';
+/** How often held frames are checked against the reorder hold time. */
+const TICK_MS = 10;
+
+export interface Service {
+  readonly app: FastifyInstance;
+  readonly bus: BlockBus;
+  readonly hub: IngestHub | null;
+  readonly httpPort: number;
+  readonly udpPort: number | null;
+  /** Base URL of the HTTP server, e.g. http://127.0.0.1:8750 */
+  readonly url: string;
+  /** Subscribe to the block stream (returns the unsubscribe function). */
+  onBlock(sink: BlockSink): () => void;
+  status(): Record<string, unknown>;
+  close(): Promise<void>;
+}
+
+export interface ServiceOptions {
+  logger?: boolean | object;
+}
+
+function urlHost(host: string): string {
+  return host.includes(':') && !host.startsWith('[') ? `[${host}]` : host;
+}
+
+export async function startService(loaded: LoadedConfig, opts: ServiceOptions = {}): Promise<Service> {
+  const { config, geometry, arrayPath } = loaded;
+  const startedMs = performance.now();
+  const bus = new BlockBus();
+  const channels = geometry.positions.length;
+
+  let hub: IngestHub | null = null;
+  let sim: SimulatorSource | null = null;
+  let scene: SceneSimulator | null = null;
+  let udp: UdpIngest | null = null;
+  let wsIngest: WebSocketIngest | null = null;
+  let ticker: NodeJS.Timeout | null = null;
+
+  if (config.source.kind === 'network') {
+    hub = new IngestHub(
+      {
+        sampleRateHz: config.input.sampleRateHz,
+        channels,
+        encodings: config.input.encodings,
+        streamId: config.input.streamId,
+        maxStreams: config.ingest.maxStreams,
+        sequencer: {
+          reorderWindowFrames: config.ingest.reorderWindowFrames,
+          reorderHoldMs: config.ingest.reorderHoldMs,
+          maxGapSamples: Math.round(config.ingest.maxGapSeconds * config.input.sampleRateHz),
+          maxGapBlockFrames: 4096,
+        },
+      },
+      bus.publish,
+    );
+  } else {
+    scene = new SceneSimulator({
+      geometry,
+      sampleRateHz: config.input.sampleRateHz,
+      blockFrames: config.simulator.blockFrames,
+      seed: config.simulator.seed,
+      speedOfSoundMps: config.simulator.speedOfSoundMps,
+    });
+    sim = new SimulatorSource(scene);
+  }
+
+  const status = (): Record<string, unknown> => {
+    const now = performance.now();
+    let streams: StreamStatus[] | Record<string, unknown>[] = [];
+    if (hub) streams = hub.status(now);
+    else if (sim) {
+      const s = sim.stats();
+      const t = bus.status();
+      streams = [{ streamId: 0, selected: true, transport: 'simulator', sampleRateHz: config.input.sampleRateHz, channels, blocks: s.blocks, samplesAccepted: s.samples, skippedSamples: s.skippedSamples, nextSample: t.nextSample, inputRateHz: s.samples / Math.max(1e-3, (now - startedMs) / 1000) }];
+    }
+    return {
+      service: 'nullsteer',
+      version: VERSION,
+      uptimeS: (now - startedMs) / 1000,
+      source: { kind: config.source.kind, ...(scene ? { scenario: scene.describe() } : {}) },
+      array: { name: geometry.name, file: arrayPath, channels },
+      input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
+      listeners: {
+        http: { host: config.server.host, port: httpPort },
+        udp: udp ? { port: udp.port, receiveBufferBytes: udp.receiveBufferBytes } : null,
+        websocket: wsIngest ? { path: config.ingest.websocket.path, connections: wsIngest.connections } : null,
+      },
+      ingest: hub ? { messages: hub.messages, rejected: hub.rejected, lastRejected: hub.lastRejected } : null,
+      streams,
+      timeline: bus.status(),
+    };
+  };
+
+  const app = buildApp({ status, logger: opts.logger });
+  await app.ready();
+  if (hub && config.ingest.websocket.enabled) {
+    wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
+  }
+  attachUpgrades(app.server as Server, wsIngest ? [wsIngest] : []);
+
+  let httpPort = 0;
+  try {
+    await app.listen({ host: config.server.host, port: config.server.httpPort });
+    httpPort = (app.server.address() as { port: number }).port;
+    if (hub && config.ingest.udp.enabled) {
+      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, config.ingest.udp.receiveBufferBytes);
+    }
+  } catch (e) {
+    await app.close();
+    throw e;
+  }
+  if (hub) {
+    const h = hub;
+    ticker = setInterval(() => h.tick(), TICK_MS);
+    ticker.unref();
+  }
+  sim?.start(bus.publish);
+
+  let closed = false;
+  return {
+    app,
+    bus,
+    hub,
+    httpPort,
+    udpPort: udp ? udp.port : null,
+    url: `http://${urlHost(config.server.host)}:${httpPort}`,
+    onBlock: (sink: (b: Block) => void) => bus.subscribe(sink),
+    status,
+    async close() {
+      if (closed) return;
+      closed = true;
+      sim?.stop();
+      if (ticker) clearInterval(ticker);
+      await udp?.close();
+      await wsIngest?.close();
+      hub?.flush();
+      await app.close();
+    },
+  };
+}

@@ -1,0 +1,48 @@
+/** Start a real service on free loopback ports for integration tests. */
+import { fileURLToPath } from 'node:url';
+import { loadConfig } from '../../server/config/load.ts';
+import { startService, type Service } from '../../server/service.ts';
+import type { Block } from '../../shared/types.ts';
+
+export const FIXTURES = fileURLToPath(new URL('../fixtures/', import.meta.url));
+
+export async function startTestService(layer: Record<string, unknown> = {}): Promise<Service> {
+  const loaded = await loadConfig({
+    env: {},
+    layers: [
+      {
+        server: { host: '127.0.0.1', httpPort: 0 },
+        source: { kind: 'network' },
+        array: { file: `${FIXTURES}arrays/square-4.json` },
+        ingest: { udp: { port: 0 } },
+      },
+      layer,
+    ],
+  });
+  return startService(loaded);
+}
+
+/** Collect every block the service publishes. */
+export function collectBlocks(svc: Service): Block[] {
+  const blocks: Block[] = [];
+  svc.onBlock((b) => blocks.push(b));
+  return blocks;
+}
+
+export async function getStatus(svc: Service): Promise<any> {
+  const res = await fetch(`${svc.url}/api/status`);
+  if (res.status !== 200) throw new Error(`status ${res.status}`);
+  return res.json();
+}
+
+export const sleep = (ms: number) => new Promise<void>((r) => setTimeout(r, ms));
+
+/** Poll until `pred` holds or `ms` pass. */
+export async function waitFor(pred: () => boolean | Promise<boolean>, ms = 5000, what = 'condition'): Promise<void> {
+  const until = Date.now() + ms;
+  while (Date.now() < until) {
+    if (await pred()) return;
+    await sleep(10);
+  }
+  throw new Error(`timed out waiting for ${what}`);
+}

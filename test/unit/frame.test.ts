@@ -1,0 +1,128 @@
+import { readFileSync } from 'node:fs';
+import { describe, expect, it } from 'vitest';
+import {
+  decodeFrame,
+  decodeSamples,
+  encodeFrame,
+  encodeFrameRaw,
+  FRAME_HEADER_BYTES,
+  frameBytes,
+  maxSamplesPerFrame,
+  MAX_FRAME_BYTES,
+  SAMPLE_ENCODINGS,
+  type DecodedFrame,
+  type FrameHeader,
+} from '../../shared/frame.ts';
+
+const H: FrameHeader = { streamId: 7, sequence: 3, firstSample: 960, sampleRateHz: 48000, channels: 2, samplesPerChannel: 2, encoding: 'int16' };
+
+function decoded(bytes: Uint8Array): DecodedFrame {
+  const r = decodeFrame(bytes);
+  if (!r.ok) throw new Error(`${r.reason}: ${r.detail}`);
+  return r.frame;
+}
+
+describe('frame codec', () => {
+  it('matches the worked example in docs/wire-format.md byte for byte', () => {
+    const doc = readFileSync(new URL('../../docs/wire-format.md', import.meta.url), 'utf8');
+    const block = doc.slice(doc.indexOf('```\n4e') + 4, doc.lastIndexOf('```'));
+    const expected = Uint8Array.from(block.trim().split(/\s+/).map((h) => parseInt(h, 16)));
+    expect(encodeFrame(H, [0.5, -0.25, 0, 1.0])).toEqual(expected);
+  });
+
+  it('round-trips header fields including a large sample index and wrapped sequence', () => {
+    const h = { ...H, streamId: 0xffffffff, sequence: 0xfffffffe, firstSample: 2 ** 53 - 1 - 2, sampleRateHz: 384000, encoding: 'int32' as const };
+    const f = decoded(encodeFrame(h, [0, 0, 0, 0]));
+    expect({ ...f, payload: undefined, version: undefined }).toEqual({ ...h, payload: undefined, version: undefined });
+    expect(f.version).toBe(1);
+  });
+
+  for (const enc of SAMPLE_ENCODINGS) {
+    it(`${enc}: decodes to planar full-scale floats within half a step, extremes included`, () => {
+      const m = 3;
+      const n = 50;
+      const x = new Float32Array(m * n);
+      for (let k = 0; k < x.length; k++) x[k] = Math.sin(k * 0.37) * 0.999;
+      x[0] = -1;
+      x[1] = 32767 / 32768; // the largest int16 value: every encoding holds it exactly
+      const bytes = encodeFrame({ ...H, channels: m, samplesPerChannel: n, encoding: enc }, x);
+      expect(bytes.byteLength).toBe(frameBytes(m, n, enc));
+      const out = new Float32Array(m * n);
+      expect(decodeSamples(decoded(bytes), out)).toBe(true);
+      const bits = { int16: 16, int24: 24, int32: 32, float32: 0 }[enc];
+      const tol = bits ? 0.5 / 2 ** (bits - 1) + 6e-8 : 0;
+      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++) expect(Math.abs(out[c * n + i] - x[i * m + c])).toBeLessThanOrEqual(tol);
+      expect(out[0]).toBe(-1);
+    });
+  }
+
+  it('sign-extends int24 and clips out-of-range input to the encoding range', () => {
+    const f = decoded(encodeFrame({ ...H, channels: 1, samplesPerChannel: 4, encoding: 'int24' }, [-1 / 8388608, 2, -2, 0.5]));
+    expect(Array.from(f.payload)).toEqual([0xff, 0xff, 0xff, 0xff, 0xff, 0x7f, 0x00, 0x00, 0x80, 0x00, 0x00, 0x40]);
+    const out = new Float32Array(4);
+    decodeSamples(f, out);
+    expect(Array.from(out)).toEqual([-1 / 8388608, 8388607 / 8388608, -1, 0.5]);
+  });
+
+  it('passes raw payload bytes through unchanged', () => {
+    const payload = Uint8Array.from([1, 2, 3, 4, 5, 6, 7, 8]);
+    const f = decoded(encodeFrameRaw(H, payload));
+    expect(Array.from(f.payload)).toEqual(Array.from(payload));
+    expect(() => encodeFrameRaw(H, payload.subarray(1))).toThrow(RangeError);
+  });
+
+  it('names the reason for every kind of bad datagram', () => {
+    const good = encodeFrame(H, [0, 0, 0, 0]);
+    const mutate = (f: (b: Uint8Array, dv: DataView) => void) => {
+      const b = good.slice();
+      f(b, new DataView(b.buffer));
+      return b;
+    };
+    const cases: [Uint8Array, string][] = [
+      [good.subarray(0, 31), 'short_header'],
+      [mutate((b) => (b[3] = 0)), 'bad_magic'],
+      [mutate((b) => (b[4] = 2)), 'bad_version'],
+      [mutate((b) => (b[5] = 9)), 'bad_encoding'],
+      [mutate((_, dv) => dv.setUint16(6, 16, true)), 'bad_header_length'],
+      [mutate((_, dv) => dv.setUint16(6, 400, true)), 'bad_header_length'],
+      [mutate((_, dv) => dv.setUint32(24, 0, true)), 'bad_field'],
+      [mutate((_, dv) => dv.setUint16(28, 0, true)), 'bad_field'],
+      [mutate((_, dv) => dv.setUint16(30, 0, true)), 'bad_field'],
+      [mutate((_, dv) => dv.setBigUint64(16, 2n ** 60n, true)), 'bad_field'],
+      [good.subarray(0, good.length - 1), 'truncated'],
+      [Uint8Array.from([...good, 0]), 'trailing_bytes'],
+    ];
+    for (const [bytes, reason] of cases) {
+      const r = decodeFrame(bytes);
+      expect(r.ok, reason).toBe(false);
+      if (!r.ok) {
+        expect(r.reason).toBe(reason);
+        expect(r.detail.length).toBeGreaterThan(3);
+      }
+    }
+    const nan = decoded(encodeFrame({ ...H, encoding: 'float32' }, [0, Number.NaN, 0, 0]));
+    expect(decodeSamples(nan, new Float32Array(4))).toBe(false);
+  });
+
+  it('skips header bytes it does not know (forward compatibility)', () => {
+    const good = encodeFrame(H, [0.5, -0.25, 0, 0.75]);
+    const longer = new Uint8Array(good.length + 8);
+    longer.set(good.subarray(0, FRAME_HEADER_BYTES));
+    longer.set(good.subarray(FRAME_HEADER_BYTES), FRAME_HEADER_BYTES + 8);
+    new DataView(longer.buffer).setUint16(6, FRAME_HEADER_BYTES + 8, true);
+    const out = new Float32Array(4);
+    decodeSamples(decoded(longer), out);
+    expect(Array.from(out)).toEqual([0.5, 0, -0.25, 0.75]);
+  });
+
+  it('sizes frames for the MTU and refuses frames beyond the UDP limit', () => {
+    expect(maxSamplesPerFrame(24, 'int16')).toBe(30); // (1472 − 32) / 48
+    expect(frameBytes(24, 30, 'int16')).toBeLessThanOrEqual(1472);
+    expect(frameBytes(24, 31, 'int16')).toBeGreaterThan(1472);
+    expect(maxSamplesPerFrame(1024, 'float32')).toBe(1);
+    expect(() => encodeFrame({ ...H, channels: 64, samplesPerChannel: 256, encoding: 'float32' }, new Float32Array(64 * 256))).toThrow(RangeError);
+    expect(frameBytes(64, 255, 'float32')).toBeLessThanOrEqual(MAX_FRAME_BYTES);
+    expect(() => encodeFrame({ ...H, sequence: -1 }, [0, 0, 0, 0])).toThrow(/sequence/);
+    expect(() => encodeFrame({ ...H, firstSample: 1.5 }, [0, 0, 0, 0])).toThrow(/firstSample/);
+  });
+});
