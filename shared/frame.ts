@@ -134,10 +134,23 @@ export function decodeFrame(bytes: Uint8Array): DecodeResult {
  * @returns false if a float32 payload holds NaN or ±∞ (out is then partly written and must be discarded)
  */
 export function decodeSamples(frame: DecodedFrame, out: Float32Array): boolean {
-  const { channels: m, samplesPerChannel: n, payload } = frame;
+  return decodeInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out);
+}
+
+/**
+ * Interleaved little-endian samples (wire payload or WAV data, which share the layout) to planar
+ * float32 full-scale units.
+ * @param bytes at least channels·frames samples of `encoding`
+ * @param out length ≥ channels·frames; channel c, sample i lands at out[c·frames + i]
+ * @returns false if float32 input holds NaN or ±∞
+ */
+export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: number, encoding: SampleEncoding, out: Float32Array): boolean {
+  const m = channels;
+  const n = frames;
+  const payload = bytes;
   const dv = new DataView(payload.buffer, payload.byteOffset, payload.byteLength);
   let p = 0;
-  switch (frame.encoding) {
+  switch (encoding) {
     case 'int16':
       for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 2) out[c * n + i] = dv.getInt16(p, true) / 32768;
       return true;
