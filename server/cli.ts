@@ -5,6 +5,7 @@ const USAGE = `usage: nullsteer <command> [options]
 commands:
   serve   run the server (what \`npm start\` runs)
   send    stream a WAV or raw file to a server as ingest frames
+  analyze scan a WAV or raw recording offline: spectra and peaks (table or --json)
 run \`nullsteer <command> --help\` for a command's options.`;
 
 export async function main(argv: string[]): Promise<number> {
@@ -15,6 +16,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'send': {
       const { sendCommand } = await import('./tools/send.ts');
       return sendCommand(rest);
+    }
+    case 'analyze': {
+      const { analyzeCommand } = await import('./tools/analyze.ts');
+      return analyzeCommand(rest);
     }
     case undefined:
     case '-h':
