@@ -223,6 +223,8 @@ export class MultiChannelStft {
   #filled = 0;
   #nextSample: number | null = null;
   #frameStartSample = 0;
+  #out: Float64Array | null = null;
+  #slot: ((hopStartSample: number) => number) | null = null;
 
   /** @param channels M, integer 1…1024 @param fftSize N, a power of two in 256…4096 */
   constructor(channels: number, fftSize: number) {
@@ -238,6 +240,17 @@ export class MultiChannelStft {
     this.#buffer = new Float64Array(channels * fftSize);
     this.#snapshot = new Float64Array(this.snapshotLength);
     this.reset();
+  }
+
+  /**
+   * Write each snapshot into `out` at the offset `slot(hopStartSample)` returns (e.g. a slot of a
+   * shared ring) instead of the internal buffer; onHop then receives `out` itself. `null` restores
+   * the internal buffer. Saves the per-hop copy when another thread consumes the snapshots.
+   */
+  setOutput(out: Float64Array | null, slot: ((hopStartSample: number) => number) | null = null): void {
+    if ((out === null) !== (slot === null)) throw new TypeError('setOutput needs both out and slot, or neither');
+    this.#out = out;
+    this.#slot = slot;
   }
 
   /** Sample index the next push() must start at, or null before the first push after reset(). */
@@ -322,13 +335,15 @@ export class MultiChannelStft {
         this.#filled = filled + take;
         break;
       }
-      for (let c = 0; c < m; c++) stft.analyzeStrided(snap, 2 * c, 2 * m, buf, c * n);
       const hopStartSample = this.#frameStartSample;
+      const out = this.#out ?? snap;
+      const base = this.#slot === null ? 0 : this.#slot(hopStartSample);
+      for (let c = 0; c < m; c++) stft.analyzeStrided(out, base + 2 * c, 2 * m, buf, c * n);
       // Advance the state before the callback so that it is consistent even if onHop throws.
       for (let c = 0; c < m; c++) buf.copyWithin(c * n, c * n + hop, c * n + n);
       this.#filled = n - hop;
       this.#frameStartSample += hop;
-      onHop(snap, hopStartSample);
+      onHop(out, hopStartSample);
     }
   }
 }

@@ -40,7 +40,7 @@ describe('nullsteer serve', () => {
     const [, url] = await waitForLine(r.out, /listening on (http:\/\/127\.0\.0\.1:\d+)/);
     expect(r.out()).toMatch(/source: built-in simulated scenario/);
     await new Promise((res) => setTimeout(res, 500));
-    const st = await (await fetch(`${url}/api/status`)).json();
+    const st: any = await (await fetch(`${url}/api/status`)).json();
     expect(st.source.kind).toBe('simulator');
     expect(st.array.channels).toBe(24);
     expect(st.timeline.samples).toBeGreaterThan(0.2 * 48000);

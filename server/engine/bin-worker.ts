@@ -1,0 +1,166 @@
+/**
+ * A bin worker thread: owns the covariance of its bins (a BinProcessor), follows the shared ring
+ * hop by hop, and on scan hops writes its share of the spectra into the shared results. Every
+ * failure is caught and reported as a message; a fault it cannot recover from ends the thread
+ * after reporting, and the pool replaces it.
+ */
+import { parentPort } from 'node:worker_threads';
+import type { LoadingSpec } from '../dsp/loading.ts';
+import { BinProcessor } from './bin-processor.ts';
+import {
+  CTRL_DONE,
+  CTRL_WRITE,
+  FLAG_RESET,
+  LOAD_FIXED,
+  LOAD_RELATIVE,
+  META_FLAGS,
+  META_LAMBDA,
+  META_LOAD_A,
+  META_LOAD_B,
+  META_LOAD_MODE,
+  META_SCAN_SEQ,
+  META_STRIDE,
+  RESULT_SLOTS,
+  STATS_STRIDE,
+  type FromWorker,
+  type PlanMessage,
+  type ToWorker,
+} from './protocol.ts';
+
+interface State {
+  plan: PlanMessage;
+  ctrl: Int32Array;
+  meta: Float64Array;
+  stats: Float64Array;
+  views: Float64Array[];
+  conv: Float64Array[];
+  mvdr: Float64Array[];
+  proc: BinProcessor;
+  processed: number;
+  pendingFault: string | null;
+}
+
+const port = parentPort!;
+let state: State | null = null;
+let running = true;
+let looping = false;
+
+function post(m: FromWorker): void {
+  port.postMessage(m);
+}
+
+function gridOf(g: PlanMessage['grid']) {
+  return { count: g.nAz * g.nEl, nAz: g.nAz, nEl: g.nEl, azimuthDeg: Float64Array.from(g.azimuthDeg), elevationDeg: Float64Array.from(g.elevationDeg) };
+}
+
+function build(plan: PlanMessage): State {
+  const M = plan.positions.length;
+  const B = plan.freqsHz.length;
+  const ring = new Float64Array(plan.ring);
+  const results = new Float64Array(plan.results);
+  const n = 2 * M * B;
+  const views: Float64Array[] = [];
+  for (let s = 0; s < plan.slots; s++) views.push(ring.subarray(s * plan.slotDoubles + plan.binOffsetDoubles, s * plan.slotDoubles + plan.binOffsetDoubles + n));
+  const conv: Float64Array[] = [];
+  const mvdr: Float64Array[] = [];
+  const R = plan.resultDirections;
+  for (let r = 0; r < RESULT_SLOTS; r++) {
+    const base = (plan.workerIndex * RESULT_SLOTS + r) * 2 * R;
+    conv.push(results.subarray(base, base + R));
+    mvdr.push(results.subarray(base + R, base + 2 * R));
+  }
+  const proc = new BinProcessor({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale });
+  proc.setMask(plan.active);
+  const ctrl = new Int32Array(plan.ctrl);
+  return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
+}
+
+function loadingAt(meta: Float64Array, o: number): LoadingSpec {
+  const mode = meta[o + META_LOAD_MODE];
+  if (mode === LOAD_RELATIVE) return { mode: 'relative', ratio: meta[o + META_LOAD_A] };
+  if (mode === LOAD_FIXED) return { mode: 'fixed', delta: meta[o + META_LOAD_A] };
+  return { mode: 'wng', floorDb: meta[o + META_LOAD_A], maxRatio: meta[o + META_LOAD_B] };
+}
+
+/** Process one published hop. */
+function handle(st: State, hop: number): void {
+  const slot = hop % st.plan.slots;
+  const o = slot * META_STRIDE;
+  const flags = st.meta[o + META_FLAGS];
+  const t0 = performance.now();
+  if (st.pendingFault !== null) {
+    const m = st.pendingFault;
+    st.pendingFault = null;
+    throw new Error(m);
+  }
+  if ((flags & FLAG_RESET) !== 0) st.proc.reset();
+  st.proc.hop(st.views[slot], st.meta[o + META_LAMBDA]);
+  const scanBits = flags & 7;
+  const w = st.plan.workerIndex;
+  if ((scanBits & 3) !== 0) {
+    const seq = st.meta[o + META_SCAN_SEQ];
+    const r = seq % RESULT_SLOTS;
+    st.proc.scan(scanBits, loadingAt(st.meta, o), st.conv[r], st.mvdr[r]);
+    st.stats[w * STATS_STRIDE + 2]++;
+    st.stats[w * STATS_STRIDE + 3] = performance.now() - t0;
+    post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions });
+  }
+  st.stats[w * STATS_STRIDE] += performance.now() - t0;
+  st.stats[w * STATS_STRIDE + 1]++;
+}
+
+async function loop(): Promise<void> {
+  if (looping) return;
+  looping = true;
+  while (running && state !== null) {
+    const st = state;
+    const published = Atomics.load(st.ctrl, CTRL_WRITE);
+    while (st.processed < published && state === st) {
+      try {
+        handle(st, st.processed);
+      } catch (e) {
+        // Report once, then end the thread: its covariance may be half-updated. The pool replaces it.
+        post({ type: 'error', workerIndex: st.plan.workerIndex, message: (e as Error)?.stack ?? String(e), fatal: true });
+        running = false;
+        port.close();
+        return;
+      }
+      st.processed++;
+      Atomics.store(st.ctrl, CTRL_DONE + st.plan.workerIndex, st.processed);
+      Atomics.notify(st.ctrl, CTRL_DONE + st.plan.workerIndex);
+    }
+    if (state !== st) continue;
+    const r = Atomics.waitAsync(st.ctrl, CTRL_WRITE, published, 1000);
+    if (r.async) await r.value;
+    // Let queued messages (mask, grid, plan) run between batches.
+    await new Promise<void>((res) => setImmediate(res));
+  }
+  looping = false;
+}
+
+port.on('message', (m: ToWorker) => {
+  try {
+    switch (m.type) {
+      case 'plan':
+        state = build(m);
+        post({ type: 'ready', epoch: m.epoch, workerIndex: m.workerIndex });
+        void loop();
+        return;
+      case 'mask':
+        if (state && state.plan.epoch === m.epoch) state.proc.setMask(m.active);
+        return;
+      case 'grid':
+        if (state && state.plan.epoch === m.epoch) state.proc.setGrid(gridOf(m.grid));
+        return;
+      case 'fault':
+        if (state) state.pendingFault = m.message;
+        return;
+      case 'stop':
+        running = false;
+        port.close();
+        return;
+    }
+  } catch (e) {
+    post({ type: 'error', workerIndex: state?.plan.workerIndex ?? -1, message: (e as Error)?.stack ?? String(e), fatal: false });
+  }
+});

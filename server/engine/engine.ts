@@ -1,0 +1,607 @@
+/**
+ * The live engine: blocks → STFT written straight into a shared ring → bin workers (covariance per
+ * bin every hop; spectra at the display rate) → combiner (broadband spectra in dB, peaks) → rows.
+ *
+ * The main thread does O(M·N log N) per hop (the STFT) and O(W·D) per row (adding the workers'
+ * shares); never O(M²·bins). Parameters change at the next hop; a band or grid change re-plans the
+ * workers (new steering tables, empty covariance). When the workers fall behind, the shedder thins
+ * their work in the order of DESIGN.md §4; a full ring never blocks ingest: the hop is skipped and
+ * counted (the forced form of covariance decimation).
+ */
+import type { ArrayGeometry, Block } from '../../shared/types.ts';
+import { PeakFinder } from '../dsp/peaks.ts';
+import { MultiChannelStft } from '../dsp/stft.ts';
+import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
+import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
+import { type ProcessingParams, needsReplan } from './params.ts';
+import { BinPool, splitBins, type WorkerRange } from './pool.ts';
+import {
+  CTRL_DONE,
+  CTRL_WRITE,
+  FLAG_RESET,
+  LOAD_FIXED,
+  LOAD_RELATIVE,
+  LOAD_WNG,
+  META_FLAGS,
+  META_LAMBDA,
+  META_LOAD_A,
+  META_LOAD_B,
+  META_LOAD_MODE,
+  META_SAMPLE,
+  META_SCAN_SEQ,
+  META_STRIDE,
+  RESULT_SLOTS,
+  STATS_STRIDE,
+  type FromWorker,
+  type PlanMessage,
+} from './protocol.ts';
+import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from './shedding.ts';
+
+export const RING_SLOTS = 64;
+const LATENCY_HISTORY = 2048;
+
+export interface RowPeak {
+  azimuthDeg: number;
+  elevationDeg: number;
+  levelDb: number;
+}
+
+export interface EngineRow {
+  seq: number;
+  /** Sample index (stream clock) of the last sample of the hop that completed this row. */
+  sampleIndex: number;
+  emittedAtMs: number;
+  shedStep: number;
+  normalised: boolean;
+  nAz: number;
+  nEl: number;
+  conventionalDb: Float32Array | null;
+  mvdrDb: Float32Array | null;
+  /** The same spectra as linear float64 powers (band power; mean of normalised bins when normalised). */
+  conventionalPower: Float64Array | null;
+  mvdrPower: Float64Array | null;
+  peaks: { conventional: RowPeak[]; mvdr: RowPeak[] };
+  /** Last sample of the hop handed to the engine → row ready, ms. */
+  latencyMs: number;
+}
+
+export interface EngineOptions {
+  geometry: ArrayGeometry;
+  sampleRateHz: number;
+  fftSize: number;
+  params: ProcessingParams;
+  workers: number;
+  speedOfSoundMps: number;
+  onRow: (row: EngineRow) => void;
+  /** Called when the grid the rows use changes (re-plan or shedding). */
+  onGrid?: (grid: DirectionGrid) => void;
+  onError?: (message: string) => void;
+  shedPolicy?: ShedPolicy;
+  /** false disables load shedding (benchmarks measure the unshed engine). */
+  shedding?: boolean;
+  peakThresholdDb?: number;
+  maxPeaks?: number;
+}
+
+interface Plan {
+  epoch: number;
+  grid: DirectionGrid;
+  baseGrid: DirectionGrid;
+  bins: number;
+  startBin: number;
+  ranges: WorkerRange[];
+  ctrl: Int32Array;
+  meta: Float64Array;
+  ring: Float64Array;
+  results: Float64Array;
+  stats: Float64Array;
+  slotDoubles: number;
+  resultDirections: number;
+  finder: PeakFinder;
+  writeSeq: number;
+}
+
+function coarser(spec: ProcessingParams['grid'], k: number): ProcessingParams['grid'] {
+  if (k === 1) return spec;
+  const c = (r: { startDeg: number; stopDeg: number; stepDeg: number }) => ({ startDeg: r.startDeg, stopDeg: r.stopDeg, stepDeg: r.stepDeg * k });
+  return spec.elevationDeg ? { azimuthDeg: c(spec.azimuthDeg), elevationDeg: c(spec.elevationDeg) } : { azimuthDeg: c(spec.azimuthDeg) };
+}
+
+export class Engine {
+  readonly opts: EngineOptions;
+  readonly channels: number;
+  readonly hop: number;
+  #params: ProcessingParams;
+  #pool: BinPool;
+  #stft: MultiChannelStft;
+  #plan!: Plan;
+  #epoch = 0;
+  #active: boolean[];
+  #shedder: LoadShedder;
+  #shedTimer: NodeJS.Timeout | null = null;
+  #lastBusy: number[] = [];
+  #lastWindowMs = performance.now();
+  #nextScanSample = -1;
+  #scanSeq = 0;
+  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number }>();
+  #pendingReset = false;
+  #decimCounter = 0;
+  #arrivalMs = 0;
+  #replanning: Promise<void> | null = null;
+  #closed = false;
+  // Figures for status.
+  hops = 0;
+  hopsSkipped = 0;
+  hopsDecimated = 0;
+  rows = 0;
+  scansDropped = 0;
+  /** Scan requests put off to a later hop because every result slot was still waiting to be read. */
+  scansDeferred = 0;
+  #stftMs = 0;
+  #combineMs = 0;
+  readonly #latency = new Float64Array(LATENCY_HISTORY);
+  #latencyCount = 0;
+  #expected: number | null = null;
+
+  private constructor(opts: EngineOptions) {
+    this.opts = opts;
+    this.channels = opts.geometry.positions.length;
+    this.#params = opts.params;
+    this.#stft = new MultiChannelStft(this.channels, opts.fftSize);
+    this.hop = this.#stft.hop;
+    this.#active = Array(this.channels).fill(true);
+    this.#shedder = new LoadShedder(opts.shedPolicy ?? DEFAULT_SHED_POLICY);
+    const size = Math.max(1, Math.min(opts.workers, this.#bandBins(opts.params).count));
+    this.#pool = new BinPool(size, {
+      onScanned: (m) => this.#onScanned(m),
+      onError: (i, message, replaced) => {
+        opts.onError?.(`bin worker ${i} ${replaced ? 'failed and was replaced' : 'reported an error'}: ${message.split('\n')[0]}`);
+      },
+    });
+  }
+
+  static async create(opts: EngineOptions): Promise<Engine> {
+    const e = new Engine(opts);
+    await e.#replan(opts.params);
+    if (opts.shedding !== false) {
+      e.#shedTimer = setInterval(() => e.#shedTick(), e.#shedder.policy.windowMs);
+      e.#shedTimer.unref();
+    }
+    return e;
+  }
+
+  get params(): ProcessingParams {
+    return this.#params;
+  }
+
+  get grid(): DirectionGrid {
+    return this.#plan.grid;
+  }
+
+  get shedStep(): number {
+    return this.#shedder.step;
+  }
+
+  #bandBins(p: ProcessingParams) {
+    return this.#stft.bandBins(p.bandHz[0], p.bandHz[1], this.opts.sampleRateHz);
+  }
+
+  async #replan(p: ProcessingParams): Promise<void> {
+    const band = this.#bandBins(p);
+    if (band.count < 1) throw new RangeError(`band ${p.bandHz[0]}–${p.bandHz[1]} Hz holds no FFT bin`);
+    const M = this.channels;
+    const baseGrid = directionGrid(p.grid);
+    const grid = directionGrid(coarser(p.grid, shedEffect(this.#shedder.step).gridCoarsening));
+    const ranges = splitBins(band.count, this.#pool.size);
+    const slotDoubles = 2 * M * this.#stft.bins;
+    const W = this.#pool.size;
+    const resultDirections = baseGrid.count;
+    const sab = (n: number) => new SharedArrayBuffer(n);
+    const ctrlBuf = sab(4 * (16 + W));
+    const metaBuf = sab(8 * META_STRIDE * RING_SLOTS);
+    // One extra slot at the end takes hops that are skipped (ring full or decimated).
+    const ringBuf = sab(8 * slotDoubles * (RING_SLOTS + 1));
+    const resultsBuf = sab(8 * W * RESULT_SLOTS * 2 * resultDirections);
+    const statsBuf = sab(8 * STATS_STRIDE * W);
+    const epoch = ++this.#epoch;
+    const fs = this.opts.sampleRateHz;
+    const gridMsg = (g: DirectionGrid) => ({ azimuthDeg: Array.from(g.azimuthDeg), elevationDeg: Array.from(g.elevationDeg), nAz: g.nAz, nEl: g.nEl });
+    const plans: PlanMessage[] = ranges.map((r, i) => ({
+      type: 'plan',
+      epoch,
+      workerIndex: i,
+      ctrl: ctrlBuf,
+      meta: metaBuf,
+      ring: ringBuf,
+      results: resultsBuf,
+      stats: statsBuf,
+      slots: RING_SLOTS,
+      slotDoubles,
+      binOffsetDoubles: 2 * M * (band.startBin + r.start),
+      resultDirections,
+      positions: this.opts.geometry.positions,
+      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / this.opts.fftSize),
+      grid: gridMsg(grid),
+      speedOfSoundMps: this.opts.speedOfSoundMps,
+      snapshotScale: 2 / this.opts.fftSize,
+      active: [...this.#active],
+    }));
+    const plan: Plan = {
+      epoch,
+      grid,
+      baseGrid,
+      bins: band.count,
+      startBin: band.startBin,
+      ranges,
+      ctrl: new Int32Array(ctrlBuf),
+      meta: new Float64Array(metaBuf),
+      ring: new Float64Array(ringBuf),
+      results: new Float64Array(resultsBuf),
+      stats: new Float64Array(statsBuf),
+      slotDoubles,
+      resultDirections,
+      finder: this.#finder(grid, p),
+      writeSeq: 0,
+    };
+    // Wake workers still waiting on the previous ring so they move to the new plan.
+    if (this.#plan) Atomics.notify(this.#plan.ctrl, CTRL_WRITE);
+    await this.#pool.plan(plans);
+    this.#plan = plan;
+    this.#params = p;
+    this.#pending.clear();
+    this.#lastBusy = Array(W).fill(0);
+    this.#stft.setOutput(plan.ring, (hopStart) => this.#slotFor(hopStart));
+    this.opts.onGrid?.(grid);
+  }
+
+  #finder(grid: DirectionGrid, p: ProcessingParams): PeakFinder {
+    const azStep = grid.nAz > 1 ? grid.azimuthDeg[1] - grid.azimuthDeg[0] : p.grid.azimuthDeg.stepDeg;
+    const elStep = grid.nEl > 1 ? grid.elevationDeg[grid.nAz] - grid.elevationDeg[0] : 0;
+    return new PeakFinder({
+      nAz: grid.nAz,
+      nEl: grid.nEl,
+      azimuthStepDeg: azStep,
+      elevationStepDeg: elStep,
+      azimuthStartDeg: grid.azimuthDeg[0],
+      elevationStartDeg: grid.elevationDeg[0],
+      circularAzimuth: grid.nAz >= 3 && Math.abs(grid.nAz * azStep - 360) < 1e-9,
+      thresholdDb: this.opts.peakThresholdDb ?? 3,
+      maxPeaks: this.opts.maxPeaks ?? 8,
+    });
+  }
+
+  /** Decide where the STFT writes the next hop: a free ring slot, or the trash slot. */
+  #slotFor(_hopStart: number): number {
+    const p = this.#plan;
+    const dec = shedEffect(this.#shedder.step).covarianceDecimation;
+    this.#decimCounter = (this.#decimCounter + 1) % dec;
+    const scanDue = this.#nextScanSample < 0 || _hopStart + this.opts.fftSize >= this.#nextScanSample;
+    if (this.#decimCounter !== 0 && !scanDue) {
+      this.#skip = 'decimated';
+      return RING_SLOTS * p.slotDoubles;
+    }
+    let slowest = Infinity;
+    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    if (p.writeSeq - slowest >= RING_SLOTS) {
+      this.#skip = 'full';
+      return RING_SLOTS * p.slotDoubles;
+    }
+    this.#skip = null;
+    return (p.writeSeq % RING_SLOTS) * p.slotDoubles;
+  }
+
+  #skip: 'full' | 'decimated' | null = null;
+
+  #onHop = (_out: Float64Array, hopStart: number): void => {
+    this.hops++;
+    if (this.#skip === 'full') {
+      this.hopsSkipped++;
+      return;
+    }
+    if (this.#skip === 'decimated') {
+      this.hopsDecimated++;
+      return;
+    }
+    const p = this.#plan;
+    const params = this.#params;
+    const fs = this.opts.sampleRateHz;
+    const hopEnd = hopStart + this.opts.fftSize; // one past the frame's last sample
+    const slot = p.writeSeq % RING_SLOTS;
+    const o = slot * META_STRIDE;
+    const dec = shedEffect(this.#shedder.step).covarianceDecimation;
+    let flags = 0;
+    if (this.#pendingReset) {
+      flags |= FLAG_RESET;
+      this.#pendingReset = false;
+    }
+    if (this.#nextScanSample < 0) this.#nextScanSample = hopEnd;
+    // A scan is requested only while a result slot is free; else it waits for a later hop.
+    if (hopEnd >= this.#nextScanSample && this.#pending.size < RESULT_SLOTS - 1) {
+      if (params.methods.includes('conventional')) flags |= SCAN_CONVENTIONAL;
+      if (params.methods.includes('mvdr')) flags |= SCAN_MVDR;
+      if (params.normalise) flags |= SCAN_NORMALISE;
+      const period = fs / (params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
+      this.#nextScanSample = Math.max(this.#nextScanSample + period, hopEnd + 1);
+      const seq = this.#scanSeq++;
+      p.meta[o + META_SCAN_SEQ] = seq;
+      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags });
+    } else if (hopEnd >= this.#nextScanSample) {
+      this.scansDeferred++;
+    }
+    p.meta[o + META_SAMPLE] = hopStart;
+    // Decimated updates keep the time constant: λ per published hop becomes λ^k.
+    p.meta[o + META_LAMBDA] = dec === 1 ? params.lambda : Math.pow(params.lambda, dec);
+    p.meta[o + META_FLAGS] = flags;
+    const l = params.loading;
+    const mean = 1; // relative modes are scale-free; fixed δ is in scaled units already
+    switch (l.mode) {
+      case 'relative':
+        p.meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
+        p.meta[o + META_LOAD_A] = l.ratio * mean;
+        break;
+      case 'relative-db':
+        p.meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
+        p.meta[o + META_LOAD_A] = Math.pow(10, l.db / 10);
+        break;
+      case 'fixed':
+        p.meta[o + META_LOAD_MODE] = LOAD_FIXED;
+        p.meta[o + META_LOAD_A] = l.delta;
+        break;
+      case 'wng':
+        p.meta[o + META_LOAD_MODE] = LOAD_WNG;
+        p.meta[o + META_LOAD_A] = l.floorDb;
+        p.meta[o + META_LOAD_B] = l.maxRatio ?? 1e3;
+        break;
+    }
+    p.writeSeq++;
+    Atomics.store(p.ctrl, CTRL_WRITE, p.writeSeq);
+    Atomics.notify(p.ctrl, CTRL_WRITE);
+  };
+
+  /** Feed one block of the stream (live: never waits; a full ring skips hops and counts them). */
+  push(block: Block): void {
+    if (this.#closed) return;
+    if (block.channels !== this.channels) throw new RangeError(`block has ${block.channels} channels, the engine ${this.channels}`);
+    if (block.discontinuity || (this.#expected !== null && block.sampleIndex !== this.#expected)) {
+      this.#stft.reset();
+      this.#nextScanSample = -1;
+    }
+    this.#expected = block.sampleIndex + block.frames;
+    this.#arrivalMs = performance.now();
+    const t0 = this.#arrivalMs;
+    this.#stft.push(block.data, block.frames, block.sampleIndex, this.#onHop);
+    this.#stftMs += performance.now() - t0;
+  }
+
+  /**
+   * Feed a block and wait while the ring is full (offline runs and benchmarks: no hop is skipped).
+   * The block is pushed one hop at a time so no hop ever finds the ring full.
+   */
+  async pushAsync(block: Block): Promise<void> {
+    const M = this.channels;
+    const n = block.frames;
+    const hop = this.hop;
+    for (let s = 0; s < n; s += hop) {
+      await this.#waitForSlot();
+      const k = Math.min(hop, n - s);
+      const data = new Float32Array(M * k);
+      for (let c = 0; c < M; c++) data.set(block.data.subarray(c * n + s, c * n + s + k), c * k);
+      this.push({ ...block, sampleIndex: block.sampleIndex + s, frames: k, data, discontinuity: block.discontinuity && s === 0 });
+    }
+  }
+
+  async #waitForSlot(): Promise<void> {
+    for (;;) {
+      const p = this.#plan;
+      let slowest = Infinity;
+      let who = 0;
+      for (let w = 0; w < p.ranges.length; w++) {
+        const d = Atomics.load(p.ctrl, CTRL_DONE + w);
+        if (d < slowest) [slowest, who] = [d, w];
+      }
+      if (this.#pending.size >= RESULT_SLOTS - 1) {
+        // Results are read on this thread's event loop: let it turn.
+        await new Promise((r) => setTimeout(r, 0));
+        continue;
+      }
+      if (p.writeSeq - slowest < RING_SLOTS - 1) return;
+      const r = Atomics.waitAsync(p.ctrl, CTRL_DONE + who, slowest, 100);
+      if (r.async) await r.value;
+    }
+  }
+
+  /** Resolve when every published hop is processed and every scan requested so far has its row. */
+  async drain(timeoutMs = 30_000): Promise<void> {
+    const until = performance.now() + timeoutMs;
+    while (performance.now() < until) {
+      const p = this.#plan;
+      let slowest = Infinity;
+      for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+      if (slowest >= p.writeSeq && this.#pending.size === 0) return;
+      await new Promise((r) => setTimeout(r, 1));
+    }
+    throw new Error('engine did not drain in time');
+  }
+
+  #onScanned(m: Extract<FromWorker, { type: 'scanned' }>): void {
+    const p = this.#plan;
+    if (m.epoch !== p.epoch) return;
+    const pend = this.#pending.get(m.scanSeq);
+    if (!pend) return;
+    if (++pend.count < p.ranges.length) return;
+    this.#pending.delete(m.scanSeq);
+    // Older scans still waiting will never complete in order: drop them.
+    for (const k of [...this.#pending.keys()]) {
+      if (k < m.scanSeq) {
+        this.#pending.delete(k);
+        this.scansDropped++;
+      }
+    }
+    const t0 = performance.now();
+    const D = m.directions;
+    const grid = p.grid;
+    if (D !== grid.count) return; // a grid change crossed this scan
+    const r = m.resultSlot;
+    const R = p.resultDirections;
+    const W = p.ranges.length;
+    const norm = (pend.flags & SCAN_NORMALISE) !== 0;
+    const toDb = (method: 0 | 1): { power: Float64Array; db: Float32Array; peaks: RowPeak[] } => {
+      const power = new Float64Array(D);
+      for (let w = 0; w < W; w++) {
+        const base = (w * RESULT_SLOTS + r) * 2 * R + method * R;
+        for (let d = 0; d < D; d++) power[d] += p.results[base + d];
+      }
+      // Sum over bins = the band's power (dBFS); normalised: the mean over bins (0 dB at most).
+      const scale = norm ? 1 / p.bins : 1;
+      const db = new Float64Array(D);
+      for (let d = 0; d < D; d++) {
+        power[d] *= scale;
+        db[d] = power[d] > 0 ? 10 * Math.log10(power[d]) : -300;
+      }
+      const peaks = p.finder.find(db).map((q) => ({ azimuthDeg: q.azimuthDeg, elevationDeg: q.elevationDeg, levelDb: q.levelDb }));
+      return { power, db: Float32Array.from(db), peaks };
+    };
+    const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? toDb(0) : null;
+    const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? toDb(1) : null;
+    const now = performance.now();
+    this.#combineMs += now - t0;
+    const latencyMs = now - pend.arrivalMs;
+    this.#latency[this.#latencyCount++ % LATENCY_HISTORY] = latencyMs;
+    this.rows++;
+    this.opts.onRow({
+      seq: m.scanSeq,
+      sampleIndex: pend.sampleIndex,
+      emittedAtMs: Date.now(),
+      shedStep: this.#shedder.step,
+      normalised: norm,
+      nAz: grid.nAz,
+      nEl: grid.nEl,
+      conventionalDb: conv ? conv.db : null,
+      mvdrDb: mvdr ? mvdr.db : null,
+      conventionalPower: conv ? conv.power : null,
+      mvdrPower: mvdr ? mvdr.power : null,
+      peaks: { conventional: conv ? conv.peaks : [], mvdr: mvdr ? mvdr.peaks : [] },
+      latencyMs,
+    });
+  }
+
+  #shedTick(): void {
+    const p = this.#plan;
+    const now = performance.now();
+    const dt = now - this.#lastWindowMs;
+    this.#lastWindowMs = now;
+    let busy = 0;
+    for (let w = 0; w < p.ranges.length; w++) {
+      const b = p.stats[w * STATS_STRIDE];
+      busy = Math.max(busy, (b - (this.#lastBusy[w] ?? 0)) / dt);
+      this.#lastBusy[w] = b;
+    }
+    let slowest = Infinity;
+    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    const backlog = (p.writeSeq - slowest) / RING_SLOTS;
+    const before = shedEffect(this.#shedder.step).gridCoarsening;
+    if (this.#shedder.update(Math.max(busy, backlog))) {
+      const g = shedEffect(this.#shedder.step).gridCoarsening;
+      if (g !== before) this.#applyGrid(g);
+    }
+  }
+
+  #applyGrid(k: number): void {
+    const p = this.#plan;
+    const grid = directionGrid(coarser(this.#params.grid, k));
+    const msg = { azimuthDeg: Array.from(grid.azimuthDeg), elevationDeg: Array.from(grid.elevationDeg), nAz: grid.nAz, nEl: grid.nEl };
+    this.#pool.updatePlans((pl) => (pl.grid = msg));
+    this.#pool.broadcast({ type: 'grid', epoch: p.epoch, grid: msg });
+    p.grid = grid;
+    p.finder = this.#finder(grid, this.#params);
+    this.opts.onGrid?.(grid);
+  }
+
+  /** Apply validated parameters: at the next hop, or after a re-plan when band or grid change. */
+  async setParams(next: ProcessingParams): Promise<ProcessingParams> {
+    if (this.#replanning) await this.#replanning;
+    if (needsReplan(this.#params, next)) {
+      this.#replanning = this.#replan(next);
+      try {
+        await this.#replanning;
+      } finally {
+        this.#replanning = null;
+      }
+    } else {
+      this.#params = next;
+    }
+    return this.#params;
+  }
+
+  /** Empty every bin's covariance at the next hop. */
+  resetCovariance(): void {
+    this.#pendingReset = true;
+  }
+
+  /** Include (true) or exclude channels; applied by each worker at its next batch. */
+  setMask(active: boolean[]): void {
+    if (active.length !== this.channels || !active.some((a) => a)) throw new RangeError(`mask needs ${this.channels} entries with at least one true`);
+    this.#active = [...active];
+    const p = this.#plan;
+    this.#pool.updatePlans((pl) => (pl.active = [...active]));
+    this.#pool.broadcast({ type: 'mask', epoch: p.epoch, active: [...active] });
+  }
+
+  /** Test hook: make worker i throw at its next hop (to prove replacement). */
+  injectWorkerFault(i: number): void {
+    this.#pool.send(i, { type: 'fault', message: `injected fault in worker ${i}` });
+  }
+
+  latencyPercentiles(): { p50: number; p99: number; count: number } {
+    const n = Math.min(this.#latencyCount, LATENCY_HISTORY);
+    if (n === 0) return { p50: NaN, p99: NaN, count: 0 };
+    const a = Array.from(this.#latency.subarray(0, n)).sort((x, y) => x - y);
+    return { p50: a[Math.floor(0.5 * (n - 1))], p99: a[Math.floor(0.99 * (n - 1))], count: n };
+  }
+
+  status(): Record<string, unknown> {
+    const p = this.#plan;
+    const W = p.ranges.length;
+    const workers = p.ranges.map((r, w) => ({
+      bins: r.count,
+      firstBin: p.startBin + r.start,
+      hops: p.stats[w * STATS_STRIDE + 1],
+      scans: p.stats[w * STATS_STRIDE + 2],
+      busyMs: p.stats[w * STATS_STRIDE],
+      lastScanMs: p.stats[w * STATS_STRIDE + 3],
+    }));
+    const lat = this.latencyPercentiles();
+    const eff = shedEffect(this.#shedder.step);
+    return {
+      workers: W,
+      workerRestarts: this.#pool.restarts,
+      workerErrors: this.#pool.errors,
+      lastWorkerError: this.#pool.lastError,
+      load: this.#shedder.load,
+      shed: { step: this.#shedder.step, changes: this.#shedder.changes, spectrumRateHz: this.#params.spectrumRateHz / eff.rateDivisor, gridCoarsening: eff.gridCoarsening, covarianceDecimation: eff.covarianceDecimation },
+      hops: this.hops,
+      hopsSkipped: this.hopsSkipped,
+      hopsDecimated: this.hopsDecimated,
+      rows: this.rows,
+      scansDropped: this.scansDropped,
+      scansDeferred: this.scansDeferred,
+      bins: p.bins,
+      directions: p.grid.count,
+      stages: {
+        stftMsPerHop: this.hops ? this.#stftMs / this.hops : 0,
+        workerMsPerHop: workers.map((w) => (w.hops ? w.busyMs / w.hops : 0)),
+        lastScanMs: workers.map((w) => w.lastScanMs),
+        combineMsPerRow: this.rows ? this.#combineMs / this.rows : 0,
+      },
+      latencyMs: { p50: lat.p50, p99: lat.p99 },
+      perWorker: workers,
+    };
+  }
+
+  async close(): Promise<void> {
+    if (this.#closed) return;
+    this.#closed = true;
+    if (this.#shedTimer) clearInterval(this.#shedTimer);
+    await this.#pool.close();
+  }
+}

@@ -1,0 +1,132 @@
+/**
+ * The bin-worker pool: splits the band's bins into contiguous ranges, one per worker, sends each
+ * its plan, and replaces a worker that reports a fatal error or exits unasked (its bins restart
+ * from an empty covariance, which the bias-corrected start makes usable after a few hops).
+ * The pool itself never throws from a worker's failure: it counts and reports.
+ */
+import { Worker } from 'node:worker_threads';
+import { CTRL_DONE, CTRL_WRITE, type FromWorker, type PlanMessage, type ToWorker } from './protocol.ts';
+
+const BOOT = new URL('./bin-worker-boot.mjs', import.meta.url);
+
+export interface WorkerRange {
+  start: number;
+  count: number;
+}
+
+/** Split `bins` into `workers` contiguous ranges as equal as possible (MVDR costs the same per bin). */
+export function splitBins(bins: number, workers: number): WorkerRange[] {
+  const w = Math.max(1, Math.min(workers, bins));
+  const out: WorkerRange[] = [];
+  let start = 0;
+  for (let i = 0; i < w; i++) {
+    const count = Math.floor(bins / w) + (i < bins % w ? 1 : 0);
+    out.push({ start, count });
+    start += count;
+  }
+  return out;
+}
+
+export interface PoolEvents {
+  onScanned(m: Extract<FromWorker, { type: 'scanned' }>): void;
+  onError(workerIndex: number, message: string, replaced: boolean): void;
+}
+
+export class BinPool {
+  readonly size: number;
+  #workers: (Worker | null)[];
+  #plans: PlanMessage[] = [];
+  #events: PoolEvents;
+  #closing = false;
+  restarts = 0;
+  errors = 0;
+  lastError: string | null = null;
+  #readyWaiters: (() => void)[] = [];
+  #ready = new Set<number>();
+
+  constructor(size: number, events: PoolEvents) {
+    this.size = size;
+    this.#events = events;
+    this.#workers = Array.from({ length: size }, (_, i) => this.#spawn(i));
+  }
+
+  #spawn(i: number): Worker {
+    const w = new Worker(BOOT);
+    w.on('message', (m: FromWorker) => this.#message(i, w, m));
+    w.on('error', (e) => this.#failed(i, w, e.stack ?? e.message));
+    w.on('exit', (code) => {
+      if (!this.#closing && this.#workers[i] === w) this.#failed(i, w, `worker exited with code ${code}`);
+    });
+    return w;
+  }
+
+  #message(i: number, w: Worker, m: FromWorker): void {
+    if (this.#workers[i] !== w) return;
+    switch (m.type) {
+      case 'ready':
+        if (this.#plans[i] && m.epoch === this.#plans[i].epoch) {
+          this.#ready.add(i);
+          if (this.#ready.size === this.size) for (const r of this.#readyWaiters.splice(0)) r();
+        }
+        return;
+      case 'scanned':
+        this.#events.onScanned(m);
+        return;
+      case 'error':
+        if (m.fatal) this.#failed(i, w, m.message);
+        else {
+          this.errors++;
+          this.lastError = m.message;
+          this.#events.onError(i, m.message, false);
+        }
+        return;
+    }
+  }
+
+  #failed(i: number, w: Worker, message: string): void {
+    if (this.#workers[i] !== w || this.#closing) return;
+    this.errors++;
+    this.lastError = message;
+    this.#workers[i] = null;
+    void w.terminate();
+    const plan = this.#plans[i];
+    const fresh = this.#spawn(i);
+    this.#workers[i] = fresh;
+    this.restarts++;
+    if (plan) {
+      // Start after everything already published: the replacement never sees a half-written slot.
+      const ctrl = new Int32Array(plan.ctrl);
+      Atomics.store(ctrl, CTRL_DONE + i, Atomics.load(ctrl, CTRL_WRITE));
+      fresh.postMessage(plan);
+    }
+    this.#events.onError(i, message, true);
+  }
+
+  /** Send every worker its plan; resolves when all have built it. */
+  async plan(plans: PlanMessage[]): Promise<void> {
+    if (plans.length !== this.size) throw new RangeError(`${plans.length} plans for ${this.size} workers`);
+    this.#plans = plans;
+    this.#ready.clear();
+    const done = new Promise<void>((r) => this.#readyWaiters.push(r));
+    plans.forEach((p, i) => this.#workers[i]?.postMessage(p));
+    await done;
+  }
+
+  /** Update the stored plan (mask, grid) so a replacement worker starts with the current state. */
+  updatePlans(f: (p: PlanMessage) => void): void {
+    this.#plans.forEach(f);
+  }
+
+  send(i: number, m: ToWorker): void {
+    this.#workers[i]?.postMessage(m);
+  }
+
+  broadcast(m: ToWorker): void {
+    for (const w of this.#workers) w?.postMessage(m);
+  }
+
+  async close(): Promise<void> {
+    this.#closing = true;
+    await Promise.all(this.#workers.map((w) => w?.terminate()));
+  }
+}

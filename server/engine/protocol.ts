@@ -1,0 +1,71 @@
+/**
+ * The shared memory layout between the engine (main thread) and its bin workers, and the messages
+ * they exchange (a union on `type`). Per hop nothing is posted: the main thread writes the snapshot
+ * into a ring slot and bumps a counter; workers wake on it with Atomics.waitAsync.
+ *
+ * ctrl (Int32Array over a SharedArrayBuffer):
+ *   [CTRL_WRITE]          hops published so far (the slot of hop h is h mod slots)
+ *   [CTRL_DONE + w]       hops worker w has finished (the main thread reuses a slot only when
+ *                         every worker is past it)
+ * meta (Float64Array, META_STRIDE per slot): hop start sample, λ, flags, scan sequence, loading
+ *   mode and its two values.
+ * ring (Float64Array, slotDoubles per slot): the full bin-major snapshot of the hop (all N/2+1 bins).
+ * results (Float64Array): per worker and result slot, D conventional then D MVDR partial sums.
+ * stats (Float64Array, STATS_STRIDE per worker): busy milliseconds, hops, scans, last scan ms.
+ */
+
+export const CTRL_WRITE = 0;
+export const CTRL_DONE = 8;
+export const META_STRIDE = 8;
+export const META_SAMPLE = 0;
+export const META_LAMBDA = 1;
+export const META_FLAGS = 2;
+export const META_SCAN_SEQ = 3;
+export const META_LOAD_MODE = 4;
+export const META_LOAD_A = 5;
+export const META_LOAD_B = 6;
+export const STATS_STRIDE = 4;
+export const RESULT_SLOTS = 8;
+
+/** Flags in meta: which spectra this hop's scan computes (bits of bin-processor.ts), and a reset. */
+export const FLAG_RESET = 8;
+
+/** Loading spec as numbers: mode 0 relative (A = ratio), 1 fixed (A = δ), 2 WNG floor (A = dB, B = max ratio). */
+export const LOAD_RELATIVE = 0;
+export const LOAD_FIXED = 1;
+export const LOAD_WNG = 2;
+
+export interface PlanMessage {
+  type: 'plan';
+  epoch: number;
+  workerIndex: number;
+  ctrl: SharedArrayBuffer;
+  meta: SharedArrayBuffer;
+  ring: SharedArrayBuffer;
+  results: SharedArrayBuffer;
+  stats: SharedArrayBuffer;
+  slots: number;
+  slotDoubles: number;
+  /** Index in a slot of this worker's first bin (2·M·bin). */
+  binOffsetDoubles: number;
+  /** Room per direction vector in the results (≥ D). */
+  resultDirections: number;
+  positions: [number, number, number][];
+  freqsHz: number[];
+  grid: { azimuthDeg: number[]; elevationDeg: number[]; nAz: number; nEl: number };
+  speedOfSoundMps: number;
+  snapshotScale: number;
+  active: boolean[];
+}
+
+export type ToWorker =
+  | PlanMessage
+  | { type: 'mask'; epoch: number; active: boolean[] }
+  | { type: 'grid'; epoch: number; grid: PlanMessage['grid'] }
+  | { type: 'fault'; message: string }
+  | { type: 'stop' };
+
+export type FromWorker =
+  | { type: 'ready'; epoch: number; workerIndex: number }
+  | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number }
+  | { type: 'error'; workerIndex: number; message: string; fatal: boolean };

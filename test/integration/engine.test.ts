@@ -1,0 +1,187 @@
+/**
+ * The pooled live engine against the single-thread reference (the same BinProcessor over all bins,
+ * fed the same snapshots), worker replacement, live parameter changes and load shedding.
+ */
+import { afterEach, describe, expect, it } from 'vitest';
+import { loadGeometry } from '../../server/config/array-file.ts';
+import { BinProcessor, SCAN_CONVENTIONAL, SCAN_MVDR } from '../../server/dsp/../engine/bin-processor.ts';
+import { MultiChannelStft } from '../../server/dsp/stft.ts';
+import { directionGrid } from '../../server/dsp/steering.ts';
+import { Engine, type EngineRow } from '../../server/engine/engine.ts';
+import type { ProcessingParams } from '../../server/engine/params.ts';
+import type { Block } from '../../shared/types.ts';
+import { renderPlaneWaves } from '../helpers/plane-waves.ts';
+
+const ARRAYS = new URL('../../config/arrays/', import.meta.url).pathname;
+const FS = 48000;
+const N = 512;
+
+let engine: Engine | null = null;
+afterEach(async () => {
+  await engine?.close();
+  engine = null;
+});
+
+const params = (over: Partial<ProcessingParams> = {}): ProcessingParams => ({
+  lambda: 0.98,
+  loading: { mode: 'relative', ratio: 0.01 },
+  bandHz: [500, 4000],
+  grid: { azimuthDeg: { startDeg: 0, stopDeg: 355, stepDeg: 5 } },
+  methods: ['mvdr', 'conventional'],
+  spectrumRateHz: 20,
+  normalise: false,
+  ...over,
+});
+
+async function scene(frames = 32768) {
+  const g = await loadGeometry(`${ARRAYS}ring-24.json`);
+  const x = renderPlaneWaves({
+    positions: g.positions,
+    sampleRateHz: FS,
+    frames,
+    speedOfSoundMps: 343.2,
+    sources: [
+      { azimuthDeg: 40, rms: 0.1, loHz: 300, hiHz: 6000, seed: 1 },
+      { azimuthDeg: 200, rms: 0.03, loHz: 300, hiHz: 6000, seed: 2 },
+    ],
+    noiseRms: 0.002,
+    noiseSeed: 3,
+  });
+  const M = g.positions.length;
+  const blocks: Block[] = [];
+  const B = 1000; // not a multiple of the hop, on purpose
+  for (let s = 0; s < frames; s += B) {
+    const n = Math.min(B, frames - s);
+    const data = new Float32Array(M * n);
+    for (let i = 0; i < n; i++) for (let c = 0; c < M; c++) data[c * n + i] = x[(s + i) * M + c];
+    blocks.push({ streamId: 0, sampleIndex: s, sampleRateHz: FS, channels: M, frames: n, data, gap: false, discontinuity: false });
+  }
+  return { g, blocks };
+}
+
+/** The single-thread float64 reference: every hop into one BinProcessor; scans at the given hops. */
+function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p: ProcessingParams, scanAt: Set<number>) {
+  const M = g.positions.length;
+  const stft = new MultiChannelStft(M, N);
+  const band = stft.bandBins(p.bandHz[0], p.bandHz[1], FS);
+  const grid = directionGrid(p.grid);
+  const freqs = Float64Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * FS) / N);
+  const proc = new BinProcessor({ positions: g.positions, freqsHz: freqs, grid, speedOfSoundMps: 343.2, snapshotScale: 2 / N });
+  const out = new Map<number, { conv: Float64Array; mvdr: Float64Array }>();
+  for (const b of blocks) {
+    stft.push(b.data, b.frames, b.sampleIndex, (snap, hopStart) => {
+      proc.hop(snap.slice(2 * M * band.startBin, 2 * M * (band.stopBin + 1)), p.lambda);
+      const last = hopStart + N - 1;
+      if (scanAt.has(last)) {
+        const conv = new Float64Array(grid.count);
+        const mvdr = new Float64Array(grid.count);
+        proc.scan(SCAN_CONVENTIONAL | SCAN_MVDR, p.loading, conv, mvdr);
+        out.set(last, { conv, mvdr });
+      }
+    });
+  }
+  return out;
+}
+
+function maxRel(a: Float64Array, b: Float64Array): number {
+  let m = 0;
+  for (let i = 0; i < a.length; i++) m = Math.max(m, Math.abs(a[i] - b[i]) / Math.abs(b[i]));
+  return m;
+}
+
+describe('live engine', () => {
+  it('pooled spectra equal the single-thread float64 reference to 1e-9 (2 and 3 workers)', async () => {
+    const { g, blocks } = await scene();
+    for (const workers of [2, 3]) {
+      const rows: EngineRow[] = [];
+      const p = params();
+      engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: p, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+      for (const b of blocks) await engine.pushAsync(b);
+      await engine.drain();
+      expect(engine.status()).toMatchObject({ workers, hopsSkipped: 0, scansDropped: 0 });
+      await engine.close();
+      engine = null;
+      // 32768 samples → 128 hops of 256; rows at 20 Hz → one per 2400 samples.
+      expect(rows.length).toBeGreaterThanOrEqual(12);
+      const ref = reference(g, blocks, p, new Set(rows.map((r) => r.sampleIndex)));
+      let worst = 0;
+      for (const r of rows) {
+        const e = ref.get(r.sampleIndex)!;
+        expect(e, `reference scan at ${r.sampleIndex}`).toBeDefined();
+        worst = Math.max(worst, maxRel(r.mvdrPower!, e.mvdr), maxRel(r.conventionalPower!, e.conv));
+      }
+      expect(worst).toBeLessThan(1e-9);
+      // And the rows make sense: the louder source's direction carries the MVDR maximum.
+      const last = rows[rows.length - 1];
+      expect(last.peaks.mvdr[0].azimuthDeg).toBeCloseTo(40, 0);
+      expect(Math.abs(last.peaks.mvdr[1].azimuthDeg - 200)).toBeLessThan(2.5);
+    }
+  });
+
+  it('a worker that throws reports an error and is replaced; rows keep coming', async () => {
+    const { g, blocks } = await scene();
+    const rows: EngineRow[] = [];
+    const errors: string[] = [];
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), onError: (m) => errors.push(m), shedding: false });
+    for (const b of blocks.slice(0, 10)) await engine.pushAsync(b);
+    await engine.drain();
+    engine.injectWorkerFault(1);
+    for (const b of blocks.slice(10, 14)) engine.push(b);
+    const until = Date.now() + 10_000;
+    while (errors.length === 0 && Date.now() < until) await new Promise((r) => setTimeout(r, 20));
+    expect(errors[0]).toMatch(/bin worker 1 failed and was replaced: Error: injected fault in worker 1/);
+    const before = rows.length;
+    // Give the replacement time to start, then feed the rest.
+    await new Promise((r) => setTimeout(r, 1500));
+    for (const b of blocks.slice(14)) await engine.pushAsync(b);
+    await engine.drain();
+    expect(rows.length).toBeGreaterThan(before + 3);
+    const st = engine.status() as any;
+    expect(st.workerRestarts).toBe(1);
+    expect(st.lastWorkerError).toMatch(/injected fault/);
+  });
+
+  it('a λ change applies from the next hop; band and grid changes re-plan', async () => {
+    const { g, blocks } = await scene();
+    const rows: EngineRow[] = [];
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+    for (const b of blocks.slice(0, 16)) await engine.pushAsync(b);
+    await engine.drain();
+    await engine.setParams(params({ lambda: 0.5 }));
+    expect(engine.params.lambda).toBe(0.5);
+    await engine.setParams(params({ lambda: 0.5, grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } }));
+    for (const b of blocks.slice(16)) await engine.pushAsync(b);
+    await engine.drain();
+    const lastRow = rows[rows.length - 1];
+    expect(lastRow.mvdrDb!.length).toBe(360);
+    expect(engine.grid.count).toBe(360);
+  });
+
+  it('sheds load when the workers are over the threshold and recovers when the load goes', async () => {
+    const { g, blocks } = await scene(65536);
+    const rows: EngineRow[] = [];
+    // A policy that calls ~any real work "overload", so the test is deterministic on a busy machine.
+    const policy = { windowMs: 100, highLoad: 0.02, lowLoad: 0.01, recoverWindows: 3 };
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params({ spectrumRateHz: 50, grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } }), workers: 1, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedPolicy: policy });
+    // Real-time pace: 1000 samples every ~20.8 ms.
+    const t0 = performance.now();
+    let after = -1; // blocks still to push once the grid step is reached
+    for (let k = 0; k < blocks.length && after !== 0; k++) {
+      const due = t0 + ((k * 1000) / FS) * 1000;
+      while (performance.now() < due) await new Promise((r) => setTimeout(r, 2));
+      engine.push(blocks[k]);
+      if (after > 0) after--;
+      else if (after < 0 && engine.shedStep >= 3) after = 12;
+    }
+    const peak = engine.shedStep;
+    expect(peak).toBeGreaterThanOrEqual(1);
+    const shedRows = rows.filter((r) => r.shedStep > 0);
+    expect(shedRows.length).toBeGreaterThan(0);
+    if (peak >= 3) expect(shedRows.some((r) => r.mvdrDb!.length === 180)).toBe(true); // grid twice as coarse
+    // No input: load falls to zero, the shedder steps back down to 0.
+    const until = Date.now() + 10_000;
+    while (engine.shedStep > 0 && Date.now() < until) await new Promise((r) => setTimeout(r, 50));
+    expect(engine.shedStep).toBe(0);
+    expect((engine.status() as any).shed.changes).toBeGreaterThanOrEqual(2 * peak);
+  });
+});
