@@ -5,9 +5,16 @@
  */
 import type { FastifyInstance } from 'fastify';
 import type { Server } from 'node:http';
+import { availableParallelism } from 'node:os';
+import type { HelloMessage, ProcessingDerived } from '../shared/messages.ts';
 import type { Block, BlockSink } from '../shared/types.ts';
 import type { LoadedConfig } from './config/load.ts';
+import { ConfigError } from './config/validate.ts';
+import { defaultGrid } from './dsp/scan-pipeline.ts';
+import { Engine } from './engine/engine.ts';
+import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
+import { LiveHub } from './http/hub.ts';
 import { BlockBus } from './ingest/block-bus.ts';
 import { IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
@@ -22,6 +29,8 @@ export interface Service {
   readonly app: FastifyInstance;
   readonly bus: BlockBus;
   readonly hub: IngestHub | null;
+  readonly engine: Engine;
+  readonly live: LiveHub;
   readonly httpPort: number;
   readonly udpPort: number | null;
   /** Base URL of the HTTP server, e.g. http://127.0.0.1:8750 */
@@ -81,6 +90,62 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     sim = new SimulatorSource(scene);
   }
 
+  // The live engine and the dashboard push.
+  const fs = config.input.sampleRateHz;
+  const fftSize = Number(config.engine.fftSize);
+  const hop = fftSize / 2;
+  const pr = config.processing;
+  if (pr.bandHighHz > fs / 2 || pr.bandLowHz >= pr.bandHighHz) {
+    throw new ConfigError([{ path: 'processing.bandHighHz', value: pr.bandHighHz, message: `processing.bandLowHz–bandHighHz = ${pr.bandLowHz}–${pr.bandHighHz}: need low < high ≤ fs/2 = ${fs / 2} Hz` }]);
+  }
+  if (pr.tauS <= hop / fs) {
+    throw new ConfigError([{ path: 'processing.tauS', value: pr.tauS, message: `processing.tauS = ${pr.tauS}: must exceed one hop, ${(hop / fs).toFixed(6)} s` }]);
+  }
+  const grid = defaultGrid(geometry);
+  const initial: ProcessingParams = {
+    lambda: 1 - hop / (fs * pr.tauS),
+    loading: { mode: 'relative', ratio: pr.loadingRatio },
+    bandHz: [pr.bandLowHz, pr.bandHighHz],
+    grid: { azimuthDeg: { ...grid.azimuthDeg, stepDeg: pr.azimuthStepDeg, stopDeg: grid.azimuthDeg.stopDeg === 359 ? 360 - pr.azimuthStepDeg : 180 } },
+    methods: ['mvdr', 'conventional'],
+    spectrumRateHz: pr.spectrumRateHz,
+    normalise: false,
+  };
+  let engine: Engine | null = null;
+  const derived = (): ProcessingDerived => ({ tauS: hop / (fs * (1 - engine!.params.lambda)), hopSamples: hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
+  const hello = (): HelloMessage => {
+    const g = engine!.grid;
+    return {
+      type: 'hello',
+      version: 1,
+      grid: { nAz: g.nAz, nEl: g.nEl, azimuthDeg: Array.from(g.azimuthDeg.subarray(0, g.nAz)), elevationDeg: Array.from({ length: g.nEl }, (_, i) => g.elevationDeg[i * g.nAz]) },
+      params: engine!.params,
+      array: { name: geometry.name, positions: geometry.positions },
+      derived: derived(),
+    };
+  };
+  const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, onConnect: (c) => c.sendJson(hello()) });
+  const engineErrors: string[] = [];
+  engine = await Engine.create({
+    geometry,
+    sampleRateHz: fs,
+    fftSize,
+    params: initial,
+    workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers,
+    speedOfSoundMps: config.engine.speedOfSoundMps,
+    onRow: (row) => live.broadcastRow(row),
+    onGrid: () => {
+      if (engine) live.broadcastJson(hello());
+    },
+    onError: (m) => {
+      engineErrors.push(m);
+      if (engineErrors.length > 20) engineErrors.shift();
+      process.emitWarning(m);
+    },
+  });
+  const eng = engine;
+  bus.subscribe((b) => eng.push(b));
+
   const status = (): Record<string, unknown> => {
     const now = performance.now();
     let streams: StreamStatus[] | Record<string, unknown>[] = [];
@@ -105,15 +170,31 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       ingest: hub ? { messages: hub.messages, rejected: hub.rejected, lastRejected: hub.lastRejected } : null,
       streams,
       timeline: bus.status(),
+      engine: { ...eng.status(), recentErrors: [...engineErrors] },
+      live: live.stats(),
     };
   };
 
-  const app = buildApp({ status, logger: opts.logger });
+  const app = buildApp({
+    status,
+    logger: opts.logger,
+    token: config.server.token,
+    processing: {
+      get: () => eng.params,
+      apply: async (next) => {
+        const applied = await eng.setParams(next);
+        live.broadcastJson({ type: 'params', params: applied, derived: derived() });
+        return applied;
+      },
+      derived,
+      reset: () => eng.resetCovariance(),
+    },
+  });
   await app.ready();
   if (hub && config.ingest.websocket.enabled) {
     wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
   }
-  attachUpgrades(app.server as Server, wsIngest ? [wsIngest] : []);
+  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live] : [live]);
 
   let httpPort = 0;
   try {
@@ -124,6 +205,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     }
   } catch (e) {
     await app.close();
+    await eng.close();
     throw e;
   }
   if (hub) {
@@ -138,6 +220,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     app,
     bus,
     hub,
+    engine: eng,
+    live,
     httpPort,
     udpPort: udp ? udp.port : null,
     url: `http://${urlHost(config.server.host)}:${httpPort}`,
@@ -151,7 +235,9 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       await udp?.close();
       await wsIngest?.close();
       hub?.flush();
+      await live.close();
       await app.close();
+      await eng.close();
     },
   };
 }

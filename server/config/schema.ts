@@ -72,6 +72,33 @@ export const CONFIG_SCHEMA: FieldSpec = {
         maxStreams: { kind: 'int', min: 1, max: 256, doc: 'Streams tracked at once; frames of further stream ids are rejected and counted.' },
       },
     },
+    engine: {
+      kind: 'object',
+      fields: {
+        workers: { kind: 'int', min: 0, max: 64, doc: 'Bin worker threads; 0 = one per core.' },
+        fftSize: { kind: 'enum', values: ['256', '512', '1024', '2048', '4096'], doc: 'STFT size N (hop N/2), as a string.' },
+        speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound for steering, m/s (343.2 at 20 °C).' },
+      },
+    },
+    processing: {
+      kind: 'object',
+      fields: {
+        tauS: { kind: 'number', min: 0.01, max: 3600, doc: 'Covariance time constant τ = hop/(fs·(1−λ)), seconds; changeable live.' },
+        bandLowHz: { kind: 'number', min: 0, max: 192000, doc: 'Lowest frequency scanned, Hz.' },
+        bandHighHz: { kind: 'number', min: 1, max: 192000, doc: 'Highest frequency scanned, Hz (≤ fs/2).' },
+        loadingRatio: { kind: 'number', min: 0, max: 1000000, doc: 'Diagonal loading δ = ratio·tr(R)/M at start; changeable live.' },
+        spectrumRateHz: { kind: 'number', min: 0.5, max: 50, doc: 'Spectrum rows per second at start; changeable live.' },
+        azimuthStepDeg: { kind: 'number', min: 0.1, max: 90, doc: 'Azimuth grid step, degrees (full turn, or half a turn for a line array).' },
+      },
+    },
+    hub: {
+      kind: 'object',
+      fields: {
+        path: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'WebSocket path of the live rows.' },
+        maxClients: { kind: 'int', min: 1, max: 1024, doc: 'Dashboard connections at once; more get HTTP 503.' },
+        maxBufferedBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Per-client send backlog above which rows to that client are dropped (counted).' },
+      },
+    },
     simulator: {
       kind: 'object',
       fields: {
@@ -97,6 +124,9 @@ export interface Config {
     maxGapSeconds: number;
     maxStreams: number;
   };
+  engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number };
+  processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
+  hub: { path: string; maxClients: number; maxBufferedBytes: number };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }
 

@@ -102,8 +102,9 @@ function handle(st: State, hop: number): void {
     const r = seq % RESULT_SLOTS;
     st.proc.scan(scanBits, loadingAt(st.meta, o), st.conv[r], st.mvdr[r]);
     st.stats[w * STATS_STRIDE + 2]++;
-    st.stats[w * STATS_STRIDE + 3] = performance.now() - t0;
-    post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions });
+    const scanMs = performance.now() - t0;
+    st.stats[w * STATS_STRIDE + 3] = scanMs;
+    post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions, scanMs });
   }
   st.stats[w * STATS_STRIDE] += performance.now() - t0;
   st.stats[w * STATS_STRIDE + 1]++;

@@ -123,7 +123,7 @@ export class Engine {
   #lastWindowMs = performance.now();
   #nextScanSample = -1;
   #scanSeq = 0;
-  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number }>();
+  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number; scanMs: number }>();
   #pendingReset = false;
   #decimCounter = 0;
   #arrivalMs = 0;
@@ -140,6 +140,8 @@ export class Engine {
   #stftMs = 0;
   #combineMs = 0;
   readonly #latency = new Float64Array(LATENCY_HISTORY);
+  /** Per row: the slowest worker's scan time, i.e. the wall time of one pooled spectrum update. */
+  readonly #scanWall = new Float64Array(LATENCY_HISTORY);
   #latencyCount = 0;
   #expected: number | null = null;
 
@@ -324,7 +326,7 @@ export class Engine {
       this.#nextScanSample = Math.max(this.#nextScanSample + period, hopEnd + 1);
       const seq = this.#scanSeq++;
       p.meta[o + META_SCAN_SEQ] = seq;
-      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags });
+      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags, scanMs: 0 });
     } else if (hopEnd >= this.#nextScanSample) {
       this.scansDeferred++;
     }
@@ -428,6 +430,7 @@ export class Engine {
     if (m.epoch !== p.epoch) return;
     const pend = this.#pending.get(m.scanSeq);
     if (!pend) return;
+    pend.scanMs = Math.max(pend.scanMs, m.scanMs);
     if (++pend.count < p.ranges.length) return;
     this.#pending.delete(m.scanSeq);
     // Older scans still waiting will never complete in order: drop them.
@@ -466,7 +469,8 @@ export class Engine {
     const now = performance.now();
     this.#combineMs += now - t0;
     const latencyMs = now - pend.arrivalMs;
-    this.#latency[this.#latencyCount++ % LATENCY_HISTORY] = latencyMs;
+    this.#latency[this.#latencyCount % LATENCY_HISTORY] = latencyMs;
+    this.#scanWall[this.#latencyCount++ % LATENCY_HISTORY] = pend.scanMs;
     this.rows++;
     this.opts.onRow({
       seq: m.scanSeq,
@@ -552,11 +556,19 @@ export class Engine {
     this.#pool.send(i, { type: 'fault', message: `injected fault in worker ${i}` });
   }
 
+  /** Row latency (last sample of the hop in → row out), ms, over the last rows. */
   latencyPercentiles(): { p50: number; p99: number; count: number } {
-    const n = Math.min(this.#latencyCount, LATENCY_HISTORY);
-    if (n === 0) return { p50: NaN, p99: NaN, count: 0 };
-    const a = Array.from(this.#latency.subarray(0, n)).sort((x, y) => x - y);
-    return { p50: a[Math.floor(0.5 * (n - 1))], p99: a[Math.floor(0.99 * (n - 1))], count: n };
+    return percentiles(this.#latency, Math.min(this.#latencyCount, LATENCY_HISTORY));
+  }
+
+  /** Wall time of one pooled spectrum update (the slowest worker's share), ms, over the last rows. */
+  scanPercentiles(): { p50: number; p99: number; count: number } {
+    return percentiles(this.#scanWall, Math.min(this.#latencyCount, LATENCY_HISTORY));
+  }
+
+  /** Forget latency and scan-time history (benchmarks: measure one phase only). */
+  clearTimings(): void {
+    this.#latencyCount = 0;
   }
 
   status(): Record<string, unknown> {
@@ -604,4 +616,10 @@ export class Engine {
     if (this.#shedTimer) clearInterval(this.#shedTimer);
     await this.#pool.close();
   }
+}
+
+function percentiles(x: Float64Array, n: number): { p50: number; p99: number; count: number } {
+  if (n === 0) return { p50: NaN, p99: NaN, count: 0 };
+  const a = Array.from(x.subarray(0, n)).sort((p, q) => p - q);
+  return { p50: a[Math.floor(0.5 * (n - 1))], p99: a[Math.floor(0.99 * (n - 1))], count: n };
 }

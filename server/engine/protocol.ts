@@ -67,5 +67,5 @@ export type ToWorker =
 
 export type FromWorker =
   | { type: 'ready'; epoch: number; workerIndex: number }
-  | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number }
+  | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number; scanMs: number }
   | { type: 'error'; workerIndex: number; message: string; fatal: boolean };

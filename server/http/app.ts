@@ -2,20 +2,50 @@
  * The fastify application, built from its dependencies and not listening: main.ts (or a test)
  * decides where it listens. Tests drive it in-process with `app.inject()`.
  */
+import { createHash, timingSafeEqual } from 'node:crypto';
 import Fastify, { type FastifyInstance } from 'fastify';
 import { HttpError } from './errors.ts';
+import { processingRoutes, type ProcessingController } from './routes/processing.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
 export interface AppDeps {
   status: StatusProvider;
+  /** The live processing parameters (`/api/processing`); the routes are absent without it. */
+  processing?: ProcessingController;
+  /**
+   * When set, every mutating request (any method but GET, HEAD, OPTIONS) needs
+   * `Authorization: Bearer <token>`, else 401 ERR_HTTP_UNAUTHORIZED. null/absent: no check.
+   */
+  token?: string | null;
   /** fastify logger setting; false in tests. */
   logger?: boolean | object;
+}
+
+const READ_ONLY_METHODS = new Set(['GET', 'HEAD', 'OPTIONS']);
+
+/** Compare bearer tokens in constant time (both sides hashed, so lengths always match). */
+function tokenMatches(header: string | undefined, digest: Buffer): boolean {
+  const m = /^Bearer[ ]+(\S+)\s*$/i.exec(header ?? '');
+  if (!m) return false;
+  return timingSafeEqual(createHash('sha256').update(m[1]).digest(), digest);
 }
 
 export const BODY_LIMIT_BYTES = 65536;
 
 export function buildApp(deps: AppDeps): FastifyInstance {
   const app = Fastify({ logger: deps.logger ?? false, bodyLimit: BODY_LIMIT_BYTES });
+
+  if (deps.token !== undefined && deps.token !== null) {
+    if (typeof deps.token !== 'string' || deps.token.length === 0 || /\s/.test(deps.token)) throw new RangeError('token must be a non-empty string without whitespace');
+    const digest = createHash('sha256').update(deps.token).digest();
+    // onRequest: refused before the body is read or parsed.
+    app.addHook('onRequest', async (req, reply) => {
+      if (READ_ONLY_METHODS.has(req.method)) return;
+      if (tokenMatches(req.headers.authorization, digest)) return;
+      void reply.header('WWW-Authenticate', 'Bearer realm="nullsteer"');
+      throw new HttpError('ERR_HTTP_UNAUTHORIZED', { method: req.method, url: req.url.split('?')[0] });
+    });
+  }
 
   app.setNotFoundHandler((req, reply) => {
     const e = new HttpError('ERR_HTTP_NOT_FOUND', { method: req.method, url: req.url.split('?')[0] });
@@ -37,5 +67,6 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   });
 
   app.register(statusRoutes(deps.status), { prefix: '/api' });
+  if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
   return app;
 }
