@@ -90,7 +90,7 @@ export interface LiveHubStats {
   rowsDropped: number;
   /** Payload bytes handed to sockets, rows and JSON. */
   bytesSent: number;
-  /** broadcastRow calls (rows encoded). */
+  /** Rows offered (broadcastRow and broadcastRowBytes calls), whether or not anyone was connected. */
   rowsBroadcast: number;
   messagesSent: number;
   messagesDropped: number;
@@ -135,7 +135,7 @@ export class LiveHub {
   #closed = false;
   #totals = { rowsSent: 0, rowsDropped: 0, bytesSent: 0, rowsBroadcast: 0, messagesSent: 0, messagesDropped: 0, messagesIgnored: 0, connectionsTotal: 0, refusedFull: 0, closedSlow: 0, closedProtocol: 0 };
 
-  /** @throws RangeError for a limit that is not a positive integer */
+  /** @throws RangeError for a limit that is not a positive integer (closeGraceMs: negative) */
   constructor(opts: LiveHubOptions = {}) {
     this.path = opts.path ?? LIVE_DEFAULTS.path;
     this.maxClients = positiveInt('maxClients', opts.maxClients ?? LIVE_DEFAULTS.maxClients);
@@ -144,6 +144,7 @@ export class LiveHub {
     this.slowClientTimeoutMs = positiveInt('slowClientTimeoutMs', opts.slowClientTimeoutMs ?? LIVE_DEFAULTS.slowClientTimeoutMs);
     this.maxIncomingBytes = positiveInt('maxIncomingBytes', opts.maxIncomingBytes ?? LIVE_DEFAULTS.maxIncomingBytes);
     this.closeGraceMs = opts.closeGraceMs ?? LIVE_DEFAULTS.closeGraceMs;
+    if (!(this.closeGraceMs >= 0)) throw new RangeError(`closeGraceMs must be ≥ 0, got ${this.closeGraceMs}`);
     this.onConnect = opts.onConnect ?? null;
     this.#wss = new WebSocketServer({ noServer: true, maxPayload: this.maxIncomingBytes, perMessageDeflate: false, clientTracking: false });
     this.#wss.on('connection', (ws: WebSocket, req: IncomingMessage) => this.#accept(ws, req));
@@ -252,8 +253,7 @@ export class LiveHub {
   /** Encode `row` once and send the same bytes to every client below the soft limit. */
   broadcastRow(row: SpectrumRowInput): void {
     this.#totals.rowsBroadcast++;
-    if (this.#clients.size === 0) return;
-    this.broadcastRowBytes(encodeRow(row));
+    if (this.#clients.size > 0) this.#sendRow(encodeRow(row));
   }
 
   /**
@@ -261,6 +261,11 @@ export class LiveHub {
    * handed to every socket as they are: the caller must not overwrite them afterwards.
    */
   broadcastRowBytes(bytes: Uint8Array): void {
+    this.#totals.rowsBroadcast++;
+    this.#sendRow(bytes);
+  }
+
+  #sendRow(bytes: Uint8Array): void {
     const now = performance.now();
     const n = bytes.byteLength;
     for (const c of this.#clients) {
