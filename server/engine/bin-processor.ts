@@ -5,6 +5,8 @@
  * pooled result differs from the reference only by the order of a final sum over workers.
  */
 import { CovarianceBank } from '../dsp/covariance.ts';
+import { ConventionalTracker } from '../dsp/fast/conventional-tracker.ts';
+import { FastMvdrScanner } from '../dsp/fast/mvdr-scan.ts';
 import type { LoadingSpec } from '../dsp/loading.ts';
 import { SpectrumScanner } from '../dsp/spectrum.ts';
 import { SteeringTable, type DirectionGrid } from '../dsp/steering.ts';
@@ -17,6 +19,11 @@ export interface BinProcessorOptions {
   speedOfSoundMps: number;
   /** Snapshots are multiplied by this before use (2/N: one bin's power in full-scale units). */
   snapshotScale: number;
+  /**
+   * Use the fast paths (WebAssembly MVDR scan, conventional spectrum tracked per snapshot); false
+   * runs the plain float64 kernels, which are the reference the fast paths are tested against.
+   */
+  fast?: boolean;
 }
 
 export const SCAN_CONVENTIONAL = 1;
@@ -24,6 +31,30 @@ export const SCAN_MVDR = 2;
 export const SCAN_NORMALISE = 4;
 
 export class BinProcessor {
+  #tracker: ConventionalTracker | null = null;
+  #fastMvdr: FastMvdrScanner | null = null;
+
+  /** A processor with its fast kernels compiled (when opts.fast). */
+  static async create(opts: BinProcessorOptions): Promise<BinProcessor> {
+    const p = new BinProcessor(opts);
+    if (opts.fast) await p.#buildFast();
+    return p;
+  }
+
+  async #buildFast(): Promise<void> {
+    const table = this.#table;
+    const [tracker, mvdr] = await Promise.all([ConventionalTracker.create(table), FastMvdrScanner.create(table)]);
+    if (table !== this.#table) return; // a newer grid won the race; it builds its own
+    // Synchronous from here: no hop runs between seeding and installing.
+    const old = this.#tracker;
+    tracker.setMask(this.#active);
+    if (this.bank.updates > 0) tracker.seedFrom(this.bank, old ? old.weightSum : undefined);
+    this.#tracker = tracker;
+    this.#fastMvdr = mvdr;
+  }
+
+  #active: boolean[];
+
   readonly channels: number;
   readonly bins: number;
   #grid: DirectionGrid;
@@ -37,6 +68,7 @@ export class BinProcessor {
   constructor(opts: BinProcessorOptions) {
     this.#opts = opts;
     this.channels = opts.positions.length;
+    this.#active = Array(this.channels).fill(true);
     this.bins = opts.freqsHz.length;
     this.bank = new CovarianceBank(this.channels, this.bins);
     this.#grid = opts.grid;
@@ -55,12 +87,16 @@ export class BinProcessor {
   }
 
   /** A new direction grid; the covariance is kept (it does not depend on the grid). */
-  setGrid(grid: DirectionGrid): void {
+  async setGrid(grid: DirectionGrid): Promise<void> {
     this.#grid = grid;
     this.#table = this.#makeTable(grid);
     this.#scanner = new SpectrumScanner(this.#table);
     this.#conv = new Float64Array(this.bins * grid.count);
     this.#mvdr = new Float64Array(this.bins * grid.count);
+    // Until the new fast kernels are ready the plain ones serve the new grid.
+    this.#tracker = null;
+    this.#fastMvdr = null;
+    if (this.#opts.fast) await this.#buildFast();
   }
 
   /**
@@ -72,6 +108,7 @@ export class BinProcessor {
     const s = this.#opts.snapshotScale;
     for (let i = 0; i < snap.length; i++) snap[i] *= s;
     this.bank.update(snap, lambda);
+    this.#tracker?.update(snap, lambda);
   }
 
   /**
@@ -85,7 +122,16 @@ export class BinProcessor {
     const B = this.bins;
     const wantConv = (flags & SCAN_CONVENTIONAL) !== 0;
     const wantMvdr = (flags & SCAN_MVDR) !== 0;
-    this.#scanner.scan(this.bank, { loading }, { conventional: wantConv ? this.#conv : null, mvdr: wantMvdr ? this.#mvdr : null, loadingDelta: deltaOut });
+    const tracker = this.#tracker !== null && this.#tracker.consistent ? this.#tracker : null;
+    // The fast MVDR scan needs a look direction for a WNG floor; the plain scan finds it itself.
+    const fastMvdr = loading.mode === 'wng' ? null : this.#fastMvdr;
+    const plainConv = wantConv && tracker === null;
+    const plainMvdr = wantMvdr && fastMvdr === null;
+    if (plainConv || plainMvdr) {
+      this.#scanner.scan(this.bank, { loading }, { conventional: plainConv ? this.#conv : null, mvdr: plainMvdr ? this.#mvdr : null, loadingDelta: deltaOut });
+    }
+    if (wantConv && tracker !== null) this.#conv.set(tracker.power);
+    if (wantMvdr && fastMvdr !== null) fastMvdr.scan(this.bank, loading, this.#mvdr, deltaOut);
     const normalise = (flags & SCAN_NORMALISE) !== 0;
     if (wantConv) sumBins(conv, this.#conv, B, D, normalise);
     if (wantMvdr) sumBins(mvdr, this.#mvdr, B, D, normalise);
@@ -93,10 +139,16 @@ export class BinProcessor {
 
   setMask(active: ArrayLike<boolean>): void {
     this.bank.setMask(active);
+    this.#active = Array.from(active, Boolean);
+    if (this.#tracker) {
+      this.#tracker.setMask(active);
+      if (this.bank.updates > 0) this.#tracker.seedFrom(this.bank, this.#tracker.weightSum);
+    }
   }
 
   reset(): void {
     this.bank.reset();
+    this.#tracker?.reset();
   }
 }
 

@@ -53,7 +53,7 @@ function gridOf(g: PlanMessage['grid']) {
   return { count: g.nAz * g.nEl, nAz: g.nAz, nEl: g.nEl, azimuthDeg: Float64Array.from(g.azimuthDeg), elevationDeg: Float64Array.from(g.elevationDeg) };
 }
 
-function build(plan: PlanMessage): State {
+async function build(plan: PlanMessage): Promise<State> {
   const M = plan.positions.length;
   const B = plan.freqsHz.length;
   const ring = new Float64Array(plan.ring);
@@ -69,7 +69,7 @@ function build(plan: PlanMessage): State {
     conv.push(results.subarray(base, base + R));
     mvdr.push(results.subarray(base + R, base + 2 * R));
   }
-  const proc = new BinProcessor({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale });
+  const proc = await BinProcessor.create({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale, fast: plan.fast });
   proc.setMask(plan.active);
   const ctrl = new Int32Array(plan.ctrl);
   return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
@@ -139,11 +139,11 @@ async function loop(): Promise<void> {
   looping = false;
 }
 
-port.on('message', (m: ToWorker) => {
+port.on('message', async (m: ToWorker) => {
   try {
     switch (m.type) {
       case 'plan':
-        state = build(m);
+        state = await build(m);
         post({ type: 'ready', epoch: m.epoch, workerIndex: m.workerIndex });
         void loop();
         return;
@@ -151,7 +151,7 @@ port.on('message', (m: ToWorker) => {
         if (state && state.plan.epoch === m.epoch) state.proc.setMask(m.active);
         return;
       case 'grid':
-        if (state && state.plan.epoch === m.epoch) state.proc.setGrid(gridOf(m.grid));
+        if (state && state.plan.epoch === m.epoch) await state.proc.setGrid(gridOf(m.grid));
         return;
       case 'fault':
         if (state) state.pendingFault = m.message;

@@ -77,6 +77,8 @@ export interface EngineOptions {
   onGrid?: (grid: DirectionGrid) => void;
   onError?: (message: string) => void;
   shedPolicy?: ShedPolicy;
+  /** false runs the plain float64 kernels in the workers (the reference); default true. */
+  fastKernels?: boolean;
   /** false disables load shedding (benchmarks measure the unshed engine). */
   shedding?: boolean;
   peakThresholdDb?: number;
@@ -227,6 +229,7 @@ export class Engine {
       speedOfSoundMps: this.opts.speedOfSoundMps,
       snapshotScale: 2 / this.opts.fftSize,
       active: [...this.#active],
+      fast: this.opts.fastKernels !== false,
     }));
     const plan: Plan = {
       epoch,

@@ -56,6 +56,8 @@ export interface PlanMessage {
   speedOfSoundMps: number;
   snapshotScale: number;
   active: boolean[];
+  /** Fast kernels (WebAssembly MVDR, tracked conventional spectrum) or the plain reference ones. */
+  fast: boolean;
 }
 
 export type ToWorker =
