@@ -44,11 +44,17 @@ export function ringGeometry(m: number): ArrayGeometry {
   return { name: `ring-${m}`, positions: Array.from({ length: m }, (_, i) => [0.2 * Math.cos((2 * Math.PI * i) / m), 0.2 * Math.sin((2 * Math.PI * i) / m), 0] as [number, number, number]) };
 }
 
-/** The built-in scene heard by `geometry`: blocks of 480 samples (10 ms), as live ingest delivers. */
-export function sceneBlocks(geometry: ArrayGeometry, seconds: number): Block[] {
+/**
+ * The built-in scene heard by `geometry`: blocks of 480 samples (10 ms), as live ingest delivers.
+ * At most `uniqueS` seconds are generated and then repeated on a continuing clock, so the signal
+ * held by the benchmark does not dominate the process's memory (peak RSS is the engine's).
+ */
+export function sceneBlocks(geometry: ArrayGeometry, seconds: number, uniqueS = 2): Block[] {
   const sim = new SceneSimulator({ geometry, sampleRateHz: FS, blockFrames: 480, seed: 7 });
   const n = Math.round((seconds * FS) / 480);
-  return Array.from({ length: n }, () => sim.next());
+  const u = Math.min(n, Math.round((uniqueS * FS) / 480));
+  const unique = Array.from({ length: u }, () => sim.next());
+  return Array.from({ length: n }, (_, k) => ({ ...unique[k % u], sampleIndex: k * 480 }));
 }
 
 export interface EngineRun {
