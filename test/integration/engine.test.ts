@@ -9,6 +9,7 @@ import { MultiChannelStft } from '../../server/dsp/stft.ts';
 import { directionGrid } from '../../server/dsp/steering.ts';
 import { Engine, type EngineRow } from '../../server/engine/engine.ts';
 import type { ProcessingParams } from '../../server/engine/params.ts';
+import { DEFAULT_SHED_POLICY } from '../../server/engine/shedding.ts';
 import type { Block } from '../../shared/types.ts';
 import { renderPlaneWaves } from '../helpers/plane-waves.ts';
 
@@ -60,13 +61,14 @@ async function scene(frames = 32768) {
 }
 
 /** The single-thread float64 reference: every hop into one BinProcessor; scans at the given hops. */
-function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p: ProcessingParams, scanAt: Set<number>) {
+function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p: ProcessingParams, scanAt: Set<number>, active?: boolean[]) {
   const M = g.positions.length;
   const stft = new MultiChannelStft(M, N);
   const band = stft.bandBins(p.bandHz[0], p.bandHz[1], FS);
   const grid = directionGrid(p.grid);
   const freqs = Float64Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * FS) / N);
   const proc = new BinProcessor({ positions: g.positions, freqsHz: freqs, grid, speedOfSoundMps: 343.2, snapshotScale: 2 / N });
+  if (active) proc.setMask(active);
   const out = new Map<number, { conv: Float64Array; mvdr: Float64Array }>();
   for (const b of blocks) {
     stft.push(b.data, b.frames, b.sampleIndex, (snap, hopStart) => {
@@ -90,12 +92,17 @@ function maxRel(a: Float64Array, b: Float64Array): number {
 }
 
 describe('live engine', () => {
-  it('pooled spectra equal the single-thread float64 reference to 1e-9 (2 and 3 workers)', async () => {
+  it('pooled fast-path spectra equal the single-thread plain float64 reference to 1e-9 (2 and 3 workers, masked channels)', async () => {
     const { g, blocks } = await scene();
-    for (const workers of [2, 3]) {
+    const masked = Array.from({ length: 24 }, (_, c) => c !== 3 && c !== 17);
+    for (const [workers, active] of [[2, undefined], [3, undefined], [2, masked]] as const) {
       const rows: EngineRow[] = [];
       const p = params();
       engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: p, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+      if (active) {
+        engine.setMask([...active]);
+        await new Promise((r) => setTimeout(r, 200)); // idle workers take the mask before any hop
+      }
       for (const b of blocks) await engine.pushAsync(b);
       await engine.drain();
       expect(engine.status()).toMatchObject({ workers, hopsSkipped: 0, scansDropped: 0 });
@@ -103,7 +110,7 @@ describe('live engine', () => {
       engine = null;
       // 32768 samples → 128 hops of 256; rows at 20 Hz → one per 2400 samples.
       expect(rows.length).toBeGreaterThanOrEqual(12);
-      const ref = reference(g, blocks, p, new Set(rows.map((r) => r.sampleIndex)));
+      const ref = reference(g, blocks, p, new Set(rows.map((r) => r.sampleIndex)), active ? [...active] : undefined);
       let worst = 0;
       for (const r of rows) {
         const e = ref.get(r.sampleIndex)!;
@@ -158,26 +165,32 @@ describe('live engine', () => {
   });
 
   it('sheds load when the workers are over the threshold and recovers when the load goes', async () => {
-    const { g, blocks } = await scene(65536);
+    const { g, blocks } = await scene(16384); // 17 blocks (the last shorter), repeated
     const rows: EngineRow[] = [];
-    // A policy that calls ~any real work "overload", so the test is deterministic on a busy machine.
-    const policy = { windowMs: 100, highLoad: 0.02, lowLoad: 0.01, recoverWindows: 3 };
-    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params({ spectrumRateHz: 50, grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } }), workers: 1, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedPolicy: policy });
+    // A real overload: one worker, 0.25° steps (1440 directions × 61 bins) at 50 rows/s is several
+    // times what one core can do. The default thresholds; shorter windows to keep the test short.
+    const policy = { ...DEFAULT_SHED_POLICY, windowMs: 200, recoverWindows: 3 };
+    const heavy = params({ spectrumRateHz: 50, bandHz: [300, 6000], grid: { azimuthDeg: { startDeg: 0, stopDeg: 359.75, stepDeg: 0.25 } } });
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: heavy, workers: 1, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedPolicy: policy });
     // Real-time pace: 1000 samples every ~20.8 ms.
     const t0 = performance.now();
     let after = -1; // blocks still to push once the grid step is reached
-    for (let k = 0; k < blocks.length && after !== 0; k++) {
+    let maxLoad = 0;
+    // The scene repeats on a continuing clock for at most 8 s of real time.
+    for (let k = 0; after !== 0 && performance.now() - t0 < 8000; k++) {
       const due = t0 + ((k * 1000) / FS) * 1000;
       while (performance.now() < due) await new Promise((r) => setTimeout(r, 2));
-      engine.push(blocks[k]);
+      engine.push({ ...blocks[k % 16], sampleIndex: k * 1000 });
+      maxLoad = Math.max(maxLoad, (engine.status() as any).load);
       if (after > 0) after--;
-      else if (after < 0 && engine.shedStep >= 3) after = 12;
+      else if (after < 0 && engine.shedStep >= 3) after = 25;
     }
     const peak = engine.shedStep;
     expect(peak).toBeGreaterThanOrEqual(1);
     const shedRows = rows.filter((r) => r.shedStep > 0);
     expect(shedRows.length).toBeGreaterThan(0);
-    if (peak >= 3) expect(shedRows.some((r) => r.mvdrDb!.length === 180)).toBe(true); // grid twice as coarse
+    if (peak >= 3) expect(shedRows.some((r) => r.mvdrDb!.length === 720)).toBe(true); // grid twice as coarse
+    expect(maxLoad).toBeGreaterThan(0.85); // it really was overloaded
     // No input: load falls to zero, the shedder steps back down to 0.
     const until = Date.now() + 10_000;
     while (engine.shedStep > 0 && Date.now() < until) await new Promise((r) => setTimeout(r, 50));
