@@ -243,26 +243,37 @@ export function encodeFrame(h: FrameHeader, samples: ArrayLike<number>): Uint8Ar
   if (samples.length !== count) throw new RangeError(`${samples.length} samples, header needs ${count}`);
   const out = new Uint8Array(frameBytes(h.channels, h.samplesPerChannel, h.encoding));
   writeHeader(out, h);
-  const dv = new DataView(out.buffer, FRAME_HEADER_BYTES);
+  encodeInterleaved(out.subarray(FRAME_HEADER_BYTES), samples, h.encoding);
+  return out;
+}
+
+/**
+ * Quantise full-scale floats (±1) to little-endian samples of `encoding` (the wire payload and WAV
+ * data layout): integers round to the nearest step and clip to [−2^(b−1), 2^(b−1) − 1]; float32 is
+ * stored as is.
+ * @param out at least samples.length × bytesPerSample(encoding) bytes
+ */
+export function encodeInterleaved(out: Uint8Array, samples: ArrayLike<number>, encoding: SampleEncoding): void {
+  const count = samples.length;
+  const dv = new DataView(out.buffer, out.byteOffset, out.byteLength);
   const q = (x: number, full: number) => Math.max(-full, Math.min(full - 1, Math.round(x * full)));
-  switch (h.encoding) {
+  switch (encoding) {
     case 'int16':
       for (let k = 0; k < count; k++) dv.setInt16(2 * k, q(samples[k], 32768), true);
-      break;
+      return;
     case 'int24':
-      for (let k = 0, p = FRAME_HEADER_BYTES; k < count; k++, p += 3) {
+      for (let k = 0, p = 0; k < count; k++, p += 3) {
         const v = q(samples[k], 8388608);
         out[p] = v & 0xff;
         out[p + 1] = (v >> 8) & 0xff;
         out[p + 2] = (v >> 16) & 0xff;
       }
-      break;
+      return;
     case 'int32':
       for (let k = 0; k < count; k++) dv.setInt32(4 * k, q(samples[k], 2147483648), true);
-      break;
+      return;
     case 'float32':
       for (let k = 0; k < count; k++) dv.setFloat32(4 * k, samples[k], true);
-      break;
+      return;
   }
-  return out;
 }

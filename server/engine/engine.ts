@@ -8,6 +8,7 @@
  * their work in the order of DESIGN.md §4; a full ring never blocks ingest: the hop is skipped and
  * counted (the forced form of covariance decimation).
  */
+import type { RowPeak, SpectrumRow } from '../../shared/messages.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { PeakFinder } from '../dsp/peaks.ts';
 import { MultiChannelStft } from '../dsp/stft.ts';
@@ -40,27 +41,14 @@ import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from '.
 export const RING_SLOTS = 64;
 const LATENCY_HISTORY = 2048;
 
-export interface RowPeak {
-  azimuthDeg: number;
-  elevationDeg: number;
-  levelDb: number;
-}
-
-export interface EngineRow {
-  seq: number;
-  /** Sample index (stream clock) of the last sample of the hop that completed this row. */
-  sampleIndex: number;
-  emittedAtMs: number;
-  shedStep: number;
-  normalised: boolean;
-  nAz: number;
-  nEl: number;
-  conventionalDb: Float32Array | null;
-  mvdrDb: Float32Array | null;
+/**
+ * A row as the engine emits it: the dashboard's SpectrumRow (shared/messages.ts) with the dB spectra
+ * as float32, plus the linear float64 powers and the latency.
+ */
+export interface EngineRow extends SpectrumRow {
   /** The same spectra as linear float64 powers (band power; mean of normalised bins when normalised). */
   conventionalPower: Float64Array | null;
   mvdrPower: Float64Array | null;
-  peaks: { conventional: RowPeak[]; mvdr: RowPeak[] };
   /** Last sample of the hop handed to the engine → row ready, ms. */
   latencyMs: number;
 }

@@ -9,7 +9,7 @@
  * unsigned PCM, 64-bit float, A-law, µ-law, ADPCM, MPEG …) is rejected by format code and bits.
  */
 import { open, type FileHandle } from 'node:fs/promises';
-import { bytesPerSample, type SampleEncoding } from '../../shared/frame.ts';
+import { bytesPerSample, encodeInterleaved, type SampleEncoding } from '../../shared/frame.ts';
 import { ioError } from './errors.ts';
 import { checkSampleFormat, FileSampleReader, readFully, type SampleFileInfo, type SampleFormat } from './raw.ts';
 
@@ -330,29 +330,8 @@ export function encodeWavHeader(spec: WavHeaderSpec): Uint8Array {
  * @returns little-endian bytes, length samples.length × bytesPerSample
  */
 export function encodeSamples(samples: ArrayLike<number>, encoding: SampleEncoding): Uint8Array {
-  const count = samples.length;
-  const out = new Uint8Array(count * bytesPerSample(encoding));
-  const dv = new DataView(out.buffer);
-  const q = (x: number, full: number) => Math.max(-full, Math.min(full - 1, Math.round(x * full)));
-  switch (encoding) {
-    case 'int16':
-      for (let k = 0; k < count; k++) dv.setInt16(2 * k, q(samples[k], 32768), true);
-      break;
-    case 'int24':
-      for (let k = 0, p = 0; k < count; k++, p += 3) {
-        const v = q(samples[k], 8388608);
-        out[p] = v & 0xff;
-        out[p + 1] = (v >> 8) & 0xff;
-        out[p + 2] = (v >> 16) & 0xff;
-      }
-      break;
-    case 'int32':
-      for (let k = 0; k < count; k++) dv.setInt32(4 * k, q(samples[k], 2147483648), true);
-      break;
-    case 'float32':
-      for (let k = 0; k < count; k++) dv.setFloat32(4 * k, samples[k], true);
-      break;
-  }
+  const out = new Uint8Array(samples.length * bytesPerSample(encoding));
+  encodeInterleaved(out, samples, encoding);
   return out;
 }
 

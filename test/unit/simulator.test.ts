@@ -107,7 +107,7 @@ describe('array geometry files', () => {
 describe('Prng', () => {
   it('follows the xoshiro128** recurrence (Blackman & Vigna 2021) from state (1, 2, 3, 4)', () => {
     // First outputs of the reference C recurrence for s = {1, 2, 3, 4}, recomputed here with an
-    // independent Python transcription of the published algorithm.
+    // independent Python rendering of the published algorithm.
     const g = Prng.fromState(1, 2, 3, 4);
     expect([0, 1, 2, 3, 4].map(() => g.nextUint32())).toEqual([11520, 0, 5927040, 70819200, 2031721883]);
   });

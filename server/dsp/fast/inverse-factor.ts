@@ -9,7 +9,7 @@
  *
  * Why not HermitianSolver: its factor L is private; recovering W through M forward solves of
  * unit vectors costs M³/2 complex multiply–adds per bin, three times the M³/6 of the triangular
- * inversion here (≈ 9 % of the whole W32 scan). The factorisation below is a transcription of
+ * inversion here (≈ 9 % of the whole W32 scan). The factorisation below follows
  * HermitianSolver.factor (same operation order, same pivot rule and error), and
  * test/unit/fast-mvdr.test.ts checks W against HermitianSolver.forward column by column.
  *
