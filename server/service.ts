@@ -6,6 +6,7 @@
 import type { FastifyInstance } from 'fastify';
 import type { Server } from 'node:http';
 import { availableParallelism } from 'node:os';
+import { fileURLToPath } from 'node:url';
 import type { HelloMessage, ProcessingDerived } from '../shared/messages.ts';
 import type { Block, BlockSink } from '../shared/types.ts';
 import type { LoadedConfig } from './config/load.ts';
@@ -22,6 +23,8 @@ import { startUdpIngest, type UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades, createWebSocketIngest, type WebSocketIngest } from './ingest/websocket.ts';
 
 export const VERSION = '0.1.0';
+/** The built dashboard, served at `/`. */
+export const CLIENT_DIST = fileURLToPath(new URL('../client/dist/', import.meta.url));
 /** How often held frames are checked against the reorder hold time. */
 const TICK_MS = 10;
 
@@ -189,6 +192,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       derived,
       reset: () => eng.resetCovariance(),
     },
+    beams: {
+      list: () => eng.beams,
+      add: (az, el, method) => eng.addBeam(az, el, method),
+      remove: (id) => eng.removeBeam(id),
+    },
+    staticDir: CLIENT_DIST,
   });
   await app.ready();
   if (hub && config.ingest.websocket.enabled) {

@@ -10,6 +10,7 @@ import { FastMvdrScanner } from '../dsp/fast/mvdr-scan.ts';
 import type { LoadingSpec } from '../dsp/loading.ts';
 import { SpectrumScanner } from '../dsp/spectrum.ts';
 import { SteeringTable, type DirectionGrid } from '../dsp/steering.ts';
+import { beamResponse, BeamWeights, createWeightResult } from '../dsp/weights.ts';
 
 export interface BinProcessorOptions {
   positions: [number, number, number][];
@@ -136,6 +137,39 @@ export class BinProcessor {
     if (wantConv) sumBins(conv, this.#conv, B, D, normalise);
     if (wantMvdr) sumBins(mvdr, this.#mvdr, B, D, normalise);
   }
+
+  /**
+   * Every beam's share over this range's bins: for beam i, out[i·(D+1) + d] = Σ_b |w_bᴴ v_b(θ_d)|²
+   * and out[i·(D+1) + D] = Σ_b WNG_b (linear). The combiner divides by the band's bin count.
+   */
+  scanBeams(beams: readonly { lookIndex: number; method: 'mvdr' | 'delay-and-sum' }[], loading: LoadingSpec, out: Float64Array): void {
+    const D = this.#grid.count;
+    const M = this.channels;
+    if (this.#weights === null || this.#weightsTable !== this.#table) {
+      this.#weights = new BeamWeights(this.#table);
+      this.#weightsTable = this.#table;
+      this.#w = new Float64Array(2 * M);
+      this.#resp = new Float64Array(D);
+    }
+    const res = this.#weightResult;
+    for (let i = 0; i < beams.length; i++) {
+      const o = i * (D + 1);
+      out.fill(0, o, o + D + 1);
+      const look = Math.min(beams[i].lookIndex, D - 1);
+      for (let b = 0; b < this.bins; b++) {
+        this.#weights.compute(this.#w, beams[i].method, this.bank, b, look, loading, res);
+        beamResponse(this.#resp, this.#w, this.#table, b);
+        for (let d = 0; d < D; d++) out[o + d] += this.#resp[d];
+        out[o + D] += Math.pow(10, res.wngDb / 10);
+      }
+    }
+  }
+
+  #weights: BeamWeights | null = null;
+  #weightsTable: SteeringTable | null = null;
+  #w = new Float64Array(0);
+  #resp = new Float64Array(0);
+  readonly #weightResult = createWeightResult();
 
   setMask(active: ArrayLike<boolean>): void {
     this.bank.setMask(active);

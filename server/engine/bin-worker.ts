@@ -10,7 +10,10 @@ import { BinProcessor } from './bin-processor.ts';
 import {
   CTRL_DONE,
   CTRL_WRITE,
+  FLAG_BEAMS,
   FLAG_RESET,
+  resultStride,
+  type BeamSpec,
   LOAD_FIXED,
   LOAD_RELATIVE,
   META_FLAGS,
@@ -35,6 +38,8 @@ interface State {
   views: Float64Array[];
   conv: Float64Array[];
   mvdr: Float64Array[];
+  beamOut: Float64Array[];
+  beams: BeamSpec[];
   proc: BinProcessor;
   processed: number;
   pendingFault: string | null;
@@ -63,16 +68,19 @@ async function build(plan: PlanMessage): Promise<State> {
   for (let s = 0; s < plan.slots; s++) views.push(ring.subarray(s * plan.slotDoubles + plan.binOffsetDoubles, s * plan.slotDoubles + plan.binOffsetDoubles + n));
   const conv: Float64Array[] = [];
   const mvdr: Float64Array[] = [];
+  const beamOut: Float64Array[] = [];
   const R = plan.resultDirections;
+  const stride = resultStride(R);
   for (let r = 0; r < RESULT_SLOTS; r++) {
-    const base = (plan.workerIndex * RESULT_SLOTS + r) * 2 * R;
+    const base = (plan.workerIndex * RESULT_SLOTS + r) * stride;
     conv.push(results.subarray(base, base + R));
     mvdr.push(results.subarray(base + R, base + 2 * R));
+    beamOut.push(results.subarray(base + 2 * R, base + stride));
   }
   const proc = await BinProcessor.create({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale, fast: plan.fast });
   proc.setMask(plan.active);
   const ctrl = new Int32Array(plan.ctrl);
-  return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
+  return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, beamOut, beams: plan.beams, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
 }
 
 function loadingAt(meta: Float64Array, o: number): LoadingSpec {
@@ -100,11 +108,13 @@ function handle(st: State, hop: number): void {
   if ((scanBits & 3) !== 0) {
     const seq = st.meta[o + META_SCAN_SEQ];
     const r = seq % RESULT_SLOTS;
-    st.proc.scan(scanBits, loadingAt(st.meta, o), st.conv[r], st.mvdr[r]);
+    const loading = loadingAt(st.meta, o);
+    st.proc.scan(scanBits, loading, st.conv[r], st.mvdr[r]);
+    if ((flags & FLAG_BEAMS) !== 0 && st.beams.length > 0) st.proc.scanBeams(st.beams, loading, st.beamOut[r]);
     st.stats[w * STATS_STRIDE + 2]++;
     const scanMs = performance.now() - t0;
     st.stats[w * STATS_STRIDE + 3] = scanMs;
-    post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions, scanMs });
+    post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions, scanMs, beams: (flags & FLAG_BEAMS) !== 0 ? st.beams.map((b) => b.id) : [] });
   }
   st.stats[w * STATS_STRIDE] += performance.now() - t0;
   st.stats[w * STATS_STRIDE + 1]++;
@@ -152,6 +162,9 @@ port.on('message', async (m: ToWorker) => {
         return;
       case 'grid':
         if (state && state.plan.epoch === m.epoch) await state.proc.setGrid(gridOf(m.grid));
+        return;
+      case 'beams':
+        if (state && state.plan.epoch === m.epoch) state.beams = m.beams;
         return;
       case 'fault':
         if (state) state.pendingFault = m.message;

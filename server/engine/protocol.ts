@@ -26,9 +26,24 @@ export const META_LOAD_A = 5;
 export const META_LOAD_B = 6;
 export const STATS_STRIDE = 4;
 export const RESULT_SLOTS = 8;
+/** Steered beams at most (DESIGN.md: up to 8). */
+export const MAX_BEAMS = 8;
+/** Doubles per worker and result slot: D conventional, D MVDR, then per beam D response + 1 WNG. */
+export function resultStride(directions: number): number {
+  return 2 * directions + MAX_BEAMS * (directions + 1);
+}
 
 /** Flags in meta: which spectra this hop's scan computes (bits of bin-processor.ts), and a reset. */
 export const FLAG_RESET = 8;
+/** This scan also computes every beam's weights, WNG and response. */
+export const FLAG_BEAMS = 16;
+
+export interface BeamSpec {
+  id: number;
+  /** Index of the look direction in the worker's current grid. */
+  lookIndex: number;
+  method: 'mvdr' | 'delay-and-sum';
+}
 
 /** Loading spec as numbers: mode 0 relative (A = ratio), 1 fixed (A = δ), 2 WNG floor (A = dB, B = max ratio). */
 export const LOAD_RELATIVE = 0;
@@ -58,16 +73,18 @@ export interface PlanMessage {
   active: boolean[];
   /** Fast kernels (WebAssembly MVDR, tracked conventional spectrum) or the plain reference ones. */
   fast: boolean;
+  beams: BeamSpec[];
 }
 
 export type ToWorker =
   | PlanMessage
   | { type: 'mask'; epoch: number; active: boolean[] }
   | { type: 'grid'; epoch: number; grid: PlanMessage['grid'] }
+  | { type: 'beams'; epoch: number; beams: BeamSpec[] }
   | { type: 'fault'; message: string }
   | { type: 'stop' };
 
 export type FromWorker =
   | { type: 'ready'; epoch: number; workerIndex: number }
-  | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number; scanMs: number }
+  | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number; scanMs: number; beams: number[] }
   | { type: 'error'; workerIndex: number; message: string; fatal: boolean };

@@ -5,13 +5,19 @@
 import { createHash, timingSafeEqual } from 'node:crypto';
 import Fastify, { type FastifyInstance } from 'fastify';
 import { HttpError } from './errors.ts';
+import { beamsRoutes, type BeamsController } from './routes/beams.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
+import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
 export interface AppDeps {
   status: StatusProvider;
   /** The live processing parameters (`/api/processing`); the routes are absent without it. */
   processing?: ProcessingController;
+  /** Steered beams (`/api/beams`); absent without it. */
+  beams?: BeamsController;
+  /** Serves the built dashboard (client/dist) at `/` when given. */
+  staticDir?: string;
   /**
    * When set, every mutating request (any method but GET, HEAD, OPTIONS) needs
    * `Authorization: Bearer <token>`, else 401 ERR_HTTP_UNAUTHORIZED. null/absent: no check.
@@ -68,5 +74,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
 
   app.register(statusRoutes(deps.status), { prefix: '/api' });
   if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
+  if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
+  if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }
