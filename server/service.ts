@@ -12,6 +12,7 @@ import type { Block, BlockSink } from '../shared/types.ts';
 import type { LoadedConfig } from './config/load.ts';
 import { ConfigError } from './config/validate.ts';
 import { defaultGrid } from './dsp/scan-pipeline.ts';
+import { ChannelMeters } from './engine/channel-meters.ts';
 import { Engine } from './engine/engine.ts';
 import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
@@ -147,6 +148,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     },
   });
   const eng = engine;
+  const meters = new ChannelMeters(channels, fs);
+  bus.subscribe((b) => meters.push(b.data, b.frames));
   bus.subscribe((b) => eng.push(b));
 
   const status = (): Record<string, unknown> => {
@@ -174,6 +177,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       streams,
       timeline: bus.status(),
       engine: { ...eng.status(), recentErrors: [...engineErrors] },
+      channels: meters.levels(),
       live: live.stats(),
     };
   };
@@ -196,6 +200,15 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       list: () => eng.beams,
       add: (az, el, method) => eng.addBeam(az, el, method),
       remove: (id) => eng.removeBeam(id),
+    },
+    channels: {
+      channels,
+      levels: () => meters.levels(),
+      setMasked: (masked) => {
+        const active = Array.from({ length: channels }, (_, c) => !masked.includes(c));
+        eng.setMask(active);
+        meters.masked = active.map((a) => !a);
+      },
     },
     staticDir: CLIENT_DIST,
   });

@@ -6,6 +6,7 @@ import { createHash, timingSafeEqual } from 'node:crypto';
 import Fastify, { type FastifyInstance } from 'fastify';
 import { HttpError } from './errors.ts';
 import { beamsRoutes, type BeamsController } from './routes/beams.ts';
+import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
@@ -14,6 +15,8 @@ export interface AppDeps {
   status: StatusProvider;
   /** The live processing parameters (`/api/processing`); the routes are absent without it. */
   processing?: ProcessingController;
+  /** Channel levels and masking (`/api/channels`); absent without it. */
+  channels?: ChannelsController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
@@ -75,6 +78,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   app.register(statusRoutes(deps.status), { prefix: '/api' });
   if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
+  if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }

@@ -135,4 +135,25 @@ describe('live server', () => {
     expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE' })).status).toBe(204);
     expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE' })).status).toBe(404);
   });
+
+  it('reports channel levels and masks a channel without a restart', async () => {
+    const ch: any = await (await fetch(`${svc.url}/api/channels`)).json();
+    expect(ch.channels).toHaveLength(24);
+    // The scene plays at about −21.6 dBFS rms overall (server/ingest/scenario.ts); every mic is alive.
+    for (const c of ch.channels) {
+      expect(c.levelDbfs).toBeGreaterThan(-30);
+      expect(c.levelDbfs).toBeLessThan(-15);
+      expect(c.dead).toBe(false);
+    }
+    const put = await fetch(`${svc.url}/api/channels/mask`, { method: 'PUT', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ masked: [5] }) });
+    expect(put.status).toBe(200);
+    expect(((await put.json()) as any).channels[5].masked).toBe(true);
+    const rows = connect();
+    await until(() => rows.rows.length >= 5, 5000, 'rows with a masked channel');
+    const bad = await fetch(`${svc.url}/api/channels/mask`, { method: 'PUT', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ masked: [24] }) });
+    expect(bad.status).toBe(400);
+    expect(((await bad.json()) as any).error.message).toMatch(/^masked: \[24\]: allowed a list of distinct channel numbers 0–23/);
+    await fetch(`${svc.url}/api/channels/mask`, { method: 'PUT', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ masked: [] }) });
+    rows.ws.close();
+  });
 });
