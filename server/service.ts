@@ -18,7 +18,7 @@ import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
 import { BlockBus } from './ingest/block-bus.ts';
-import { IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
+import { IngestHub, RateMeter, type StreamStatus } from './ingest/ingest-hub.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
 import { startUdpIngest, type UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades, createWebSocketIngest, type WebSocketIngest } from './ingest/websocket.ts';
@@ -152,6 +152,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   bus.subscribe((b) => meters.push(b.data, b.frames));
   bus.subscribe((b) => eng.push(b));
 
+  const simRate = new RateMeter();
   const status = (): Record<string, unknown> => {
     const now = performance.now();
     let streams: StreamStatus[] | Record<string, unknown>[] = [];
@@ -159,7 +160,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     else if (sim) {
       const s = sim.stats();
       const t = bus.status();
-      streams = [{ streamId: 0, selected: true, transport: 'simulator', sampleRateHz: config.input.sampleRateHz, channels, blocks: s.blocks, samplesAccepted: s.samples, skippedSamples: s.skippedSamples, nextSample: t.nextSample, inputRateHz: s.samples / Math.max(1e-3, (now - startedMs) / 1000) }];
+      simRate.update(s.samples, now);
+      streams = [{ streamId: 0, selected: true, transport: 'simulator', sampleRateHz: config.input.sampleRateHz, channels, blocks: s.blocks, samplesAccepted: s.samples, skippedSamples: s.skippedSamples, nextSample: t.nextSample, inputRateHz: simRate.rate(now) }];
     }
     return {
       service: 'nullsteer',

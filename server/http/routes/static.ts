@@ -19,7 +19,7 @@ const TYPES: Record<string, string> = {
 };
 
 export function staticRoutes(dir: string): FastifyPluginAsync {
-  const root = normalize(dir) + sep;
+  const root = join(normalize(dir), sep);
   return async (app) => {
     const send = async (rel: string, reply: import('fastify').FastifyReply) => {
       const path = normalize(join(root, rel));

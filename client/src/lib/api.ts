@@ -1,0 +1,80 @@
+/**
+ * Small typed helpers for the server's REST API (same origin). Every helper resolves — it never
+ * throws — to `{ ok: true, data }` or `{ ok: false, message }`, where `message` is the server's own
+ * `error.message` (e.g. "tauS: -1 out of range; allowed 0.005333–3600 s") when it sent one.
+ */
+import type { ProcessingDerived, ProcessingParams } from '../../../shared/messages.ts';
+
+export type ApiResult<T> = { ok: true; data: T } | { ok: false; message: string; status: number; code?: string };
+
+export interface ProcessingState {
+  params: ProcessingParams;
+  derived: ProcessingDerived;
+}
+
+/** What PATCH /api/processing accepts: any subset of the parameters, `tauS` instead of `lambda`. */
+export type ProcessingPatch = Partial<ProcessingParams> & { tauS?: number };
+
+export type BeamMethod = 'mvdr' | 'delay-and-sum';
+
+export interface Beam {
+  id: string | number;
+  azimuthDeg: number;
+  elevationDeg: number;
+  method: BeamMethod;
+  /** White noise gain of the beam's weights, dB. */
+  wngDb: number;
+  /** Response of the beam's weights over the live grid's directions, dB. */
+  responseDb: number[];
+}
+
+export interface NewBeam {
+  azimuthDeg: number;
+  elevationDeg?: number;
+  method?: BeamMethod;
+}
+
+let bearerToken: string | null = null;
+
+/** Token sent as `Authorization: Bearer …` with changes (servers bound beyond loopback need one). */
+export function setApiToken(token: string | null): void {
+  bearerToken = token && token.length > 0 ? token : null;
+}
+
+async function request<T>(method: string, path: string, body?: unknown): Promise<ApiResult<T>> {
+  const headers: Record<string, string> = { accept: 'application/json' };
+  if (body !== undefined) headers['content-type'] = 'application/json';
+  if (bearerToken && method !== 'GET') headers.authorization = `Bearer ${bearerToken}`;
+  let res: Response;
+  try {
+    res = await fetch(path, { method, headers, body: body === undefined ? undefined : JSON.stringify(body), cache: 'no-store' });
+  } catch (e) {
+    return { ok: false, status: 0, message: `server unreachable (${(e as Error).message})` };
+  }
+  const text = await res.text().catch(() => '');
+  let json: unknown = undefined;
+  if (text.length > 0) {
+    try {
+      json = JSON.parse(text);
+    } catch {
+      json = undefined;
+    }
+  }
+  if (!res.ok) {
+    const err = (json as { error?: { message?: unknown; code?: unknown } } | undefined)?.error;
+    const message = typeof err?.message === 'string' ? err.message : `HTTP ${res.status}${res.statusText ? ` ${res.statusText}` : ''}`;
+    return { ok: false, status: res.status, message, code: typeof err?.code === 'string' ? err.code : undefined };
+  }
+  if (res.status !== 204 && text.length > 0 && json === undefined) return { ok: false, status: res.status, message: 'the server answered with something that is not JSON' };
+  return { ok: true, data: json as T };
+}
+
+export const getProcessing = (): Promise<ApiResult<ProcessingState>> => request('GET', '/api/processing');
+export const patchProcessing = (patch: ProcessingPatch | Record<string, unknown>): Promise<ApiResult<ProcessingState>> => request('PATCH', '/api/processing', patch);
+export const resetCovariance = (): Promise<ApiResult<void>> => request('POST', '/api/processing/reset');
+export const getStatus = (): Promise<ApiResult<Record<string, unknown>>> => request('GET', '/api/status');
+export const getBeams = (): Promise<ApiResult<{ beams: Beam[] }>> => request('GET', '/api/beams');
+export const addBeam = (beam: NewBeam): Promise<ApiResult<Beam>> => request('POST', '/api/beams', beam);
+/** `PUT /api/channels/mask`: exclude these channels from processing (`[]` uses all). */
+export const setChannelMask = (masked: number[]): Promise<ApiResult<{ channels: unknown[] }>> => request('PUT', '/api/channels/mask', { masked });
+export const removeBeam = (id: Beam['id']): Promise<ApiResult<void>> => request('DELETE', `/api/beams/${encodeURIComponent(String(id))}`);

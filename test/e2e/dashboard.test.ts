@@ -1,0 +1,111 @@
+/**
+ * The dashboard in a real browser (Debian's chromium driven by playwright-core, headless, loopback
+ * only) against a real server fed by the simulator.
+ */
+import { existsSync } from 'node:fs';
+import { chromium, type Browser, type Page } from 'playwright-core';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { loadConfig } from '../../server/config/load.ts';
+import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
+
+const CHROMIUM = '/usr/bin/chromium';
+const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
+const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
+if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
+
+let svc: Service | null = null;
+let port = 0;
+let browser: Browser;
+let page: Page;
+const problems: string[] = [];
+
+async function start(httpPort: number): Promise<Service> {
+  const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort }, engine: { workers: 2 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 } }] });
+  return startService(loaded);
+}
+
+async function processing(): Promise<any> {
+  return (await fetch(`http://127.0.0.1:${port}/api/processing`)).json();
+}
+
+async function historyHash(): Promise<string> {
+  return page.evaluate(() => {
+    const c = document.querySelector('[data-testid="history-canvas"]') as HTMLCanvasElement;
+    return c.toDataURL().slice(-2000);
+  });
+}
+
+describe.skipIf(!available)('dashboard in a browser', () => {
+  beforeAll(async () => {
+    svc = await start(0);
+    port = svc.httpPort;
+    browser = await chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+    page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
+    page.on('console', (m) => {
+      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
+    });
+    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
+    await page.goto(`http://127.0.0.1:${port}/`);
+  }, 60_000);
+
+  afterAll(async () => {
+    await browser?.close();
+    await svc?.close();
+  });
+
+  it('loads without console errors and shows the scene moving in the direction history within 3 s', async () => {
+    await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 3000 });
+    const a = await historyHash();
+    await page.waitForTimeout(1000);
+    const b = await historyHash();
+    expect(b).not.toBe(a);
+    const rows = Number(await page.getByTestId('history-canvas').getAttribute('data-rows'));
+    expect(rows).toBeGreaterThanOrEqual(15);
+    expect(problems).toEqual([]);
+  });
+
+  it('shows the fixed sources as peaks within 2° of truth', async () => {
+    // Tarnwick scene truth (server/ingest/scenario.ts): intake vent 35°, pump whine 285°.
+    await page.waitForTimeout(1500);
+    const az = (await page.getByTestId('peak').evaluateAll((els) => els.map((e) => Number((e as HTMLElement).dataset.az)))) as number[];
+    for (const truth of [35, 285]) {
+      const nearest = Math.min(...az.map((a) => Math.abs(((a - truth + 540) % 360) - 180)));
+      expect(nearest, `peak near ${truth}°`).toBeLessThan(2);
+    }
+  });
+
+  it('τ typed in the panel changes the server λ; a bad value shows an error and changes nothing', async () => {
+    const input = page.getByTestId('input-tauS');
+    await input.fill('0.25');
+    await input.press('Enter');
+    await expect.poll(async () => (await processing()).params.lambda, { timeout: 3000 }).toBeCloseTo(1 - 256 / (48000 * 0.25), 9);
+    const before = (await processing()).params.lambda;
+    await input.fill('-3');
+    await input.press('Enter');
+    await page.getByTestId('error-tauS').waitFor({ timeout: 3000 });
+    expect(await page.getByTestId('error-tauS').textContent()).toMatch(/tauS/);
+    expect((await processing()).params.lambda).toBe(before);
+  });
+
+  it('clicking a direction in the history steers a beam there', async () => {
+    const canvas = page.getByTestId('history-canvas');
+    const box = (await canvas.boundingBox())!;
+    // The history's x axis spans the grid 0…359° left to right.
+    const target = 100;
+    await canvas.click({ position: { x: ((target + 0.5) / 360) * box.width, y: box.height / 2 } });
+    await expect
+      .poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/beams`)).json()) as any).beams.map((b: any) => b.azimuthDeg), { timeout: 3000 })
+      .toEqual(expect.arrayContaining([expect.closeTo(target, 0)]));
+  });
+
+  it('reconnects by itself after a server restart, showing offline meanwhile', async () => {
+    await svc!.close();
+    await page.getByTestId('connection').filter({ hasText: 'offline' }).waitFor({ timeout: 5000 });
+    svc = await start(port);
+    await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 10_000 });
+    const a = await historyHash();
+    await page.waitForTimeout(800);
+    expect(await historyHash()).not.toBe(a);
+    expect(problems.filter((p) => !/WebSocket|ERR_CONNECTION_REFUSED|Failed to load resource/.test(p))).toEqual([]);
+  });
+});
