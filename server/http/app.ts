@@ -42,7 +42,8 @@ function tokenMatches(header: string | undefined, digest: Buffer): boolean {
 export const BODY_LIMIT_BYTES = 65536;
 
 export function buildApp(deps: AppDeps): FastifyInstance {
-  const app = Fastify({ logger: deps.logger ?? false, bodyLimit: BODY_LIMIT_BYTES });
+  // forceCloseConnections: close() must not wait for a browser's idle keep-alive sockets.
+  const app = Fastify({ logger: deps.logger ?? false, bodyLimit: BODY_LIMIT_BYTES, forceCloseConnections: true });
 
   if (deps.token !== undefined && deps.token !== null) {
     if (typeof deps.token !== 'string' || deps.token.length === 0 || /\s/.test(deps.token)) throw new RangeError('token must be a non-empty string without whitespace');
