@@ -36,7 +36,7 @@ export const WORKLOADS: Workload[] = [
 ];
 
 export function paramsFor(w: Workload): ProcessingParams {
-  return { lambda: 0.99, loading: { mode: 'relative', ratio: 0.01 }, bandHz: [300, 6000], grid: w.grid, methods: ['mvdr', 'conventional'], spectrumRateHz: w.spectrumRateHz, normalise: false };
+  return { lambda: 0.99, loading: { mode: 'relative', ratio: 0.01 }, bandHz: [300, 6000], grid: w.grid, methods: ['mvdr', 'conventional'], spectrumRateHz: w.spectrumRateHz, normalise: false, fftSize: FFT };
 }
 
 /** A ring of M sensors, radius 0.2 m (W32's geometry with another count). */
@@ -70,7 +70,7 @@ export interface EngineRun {
 
 export async function runOffline(geometry: ArrayGeometry, params: ProcessingParams, blocks: Block[], workers: number): Promise<EngineRun> {
   const rows: EngineRow[] = [];
-  const engine = await Engine.create({ geometry, sampleRateHz: FS, fftSize: FFT, params, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+  const engine = await Engine.create({ geometry, sampleRateHz: FS, params, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
   try {
     // Warm-up second (JIT, worker start) not counted.
     const warm = Math.min(100, Math.floor(blocks.length / 4));
@@ -93,7 +93,7 @@ export async function runOffline(geometry: ArrayGeometry, params: ProcessingPara
 
 /** Real-time paced run: blocks handed over on the wall clock, as from a live source. */
 export async function runPaced(geometry: ArrayGeometry, params: ProcessingParams, blocks: Block[], workers: number): Promise<{ p50: number; p99: number; rows: number; shedStep: number; hopsSkipped: number }> {
-  const engine = await Engine.create({ geometry, sampleRateHz: FS, fftSize: FFT, params, workers, speedOfSoundMps: 343.2, onRow: () => {} });
+  const engine = await Engine.create({ geometry, sampleRateHz: FS, params, workers, speedOfSoundMps: 343.2, onRow: () => {} });
   try {
     const warm = Math.min(100, Math.floor(blocks.length / 4));
     for (const b of blocks.slice(0, warm)) await engine.pushAsync(b);

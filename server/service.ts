@@ -114,9 +114,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     methods: ['mvdr', 'conventional'],
     spectrumRateHz: pr.spectrumRateHz,
     normalise: false,
+    fftSize,
   };
   let engine: Engine | null = null;
-  const derived = (): ProcessingDerived => ({ tauS: hop / (fs * (1 - engine!.params.lambda)), hopSamples: hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
+  const derived = (): ProcessingDerived => ({ tauS: engine!.hop / (fs * (1 - engine!.params.lambda)), hopSamples: engine!.hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
   const hello = (): HelloMessage => {
     const g = engine!.grid;
     return {
@@ -133,7 +134,6 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
-    fftSize,
     params: initial,
     workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers,
     speedOfSoundMps: config.engine.speedOfSoundMps,

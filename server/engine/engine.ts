@@ -91,7 +91,6 @@ export interface EngineRow extends SpectrumRow {
 export interface EngineOptions {
   geometry: ArrayGeometry;
   sampleRateHz: number;
-  fftSize: number;
   params: ProcessingParams;
   workers: number;
   speedOfSoundMps: number;
@@ -135,7 +134,6 @@ function coarser(spec: ProcessingParams['grid'], k: number): ProcessingParams['g
 export class Engine {
   readonly opts: EngineOptions;
   readonly channels: number;
-  readonly hop: number;
   #params: ProcessingParams;
   #pool: BinPool;
   #stft: MultiChannelStft;
@@ -174,8 +172,7 @@ export class Engine {
     this.opts = opts;
     this.channels = opts.geometry.positions.length;
     this.#params = opts.params;
-    this.#stft = new MultiChannelStft(this.channels, opts.fftSize);
-    this.hop = this.#stft.hop;
+    this.#stft = new MultiChannelStft(this.channels, opts.params.fftSize);
     this.#active = Array(this.channels).fill(true);
     this.#shedder = new LoadShedder(opts.shedPolicy ?? DEFAULT_SHED_POLICY);
     const size = Math.max(1, Math.min(opts.workers, this.#bandBins(opts.params).count));
@@ -197,6 +194,15 @@ export class Engine {
     return e;
   }
 
+  /** Hop of the STFT in force, samples (N/2). */
+  get hop(): number {
+    return this.#stft.hop;
+  }
+
+  get fftSize(): number {
+    return this.#stft.fftSize;
+  }
+
   get params(): ProcessingParams {
     return this.#params;
   }
@@ -214,6 +220,12 @@ export class Engine {
   }
 
   async #replan(p: ProcessingParams): Promise<void> {
+    if (p.fftSize !== this.#stft.fftSize) {
+      // A new transform size: a new front end; the stream continues on the same clock.
+      this.#stft = new MultiChannelStft(this.channels, p.fftSize);
+      this.#expected = null;
+      this.#nextScanSample = -1;
+    }
     const band = this.#bandBins(p);
     if (band.count < 1) throw new RangeError(`band ${p.bandHz[0]}–${p.bandHz[1]} Hz holds no FFT bin`);
     const M = this.channels;
@@ -247,10 +259,10 @@ export class Engine {
       binOffsetDoubles: 2 * M * (band.startBin + r.start),
       resultDirections,
       positions: this.opts.geometry.positions,
-      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / this.opts.fftSize),
+      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / this.#stft.fftSize),
       grid: gridMsg(grid),
       speedOfSoundMps: this.opts.speedOfSoundMps,
-      snapshotScale: 2 / this.opts.fftSize,
+      snapshotScale: 2 / this.#stft.fftSize,
       active: [...this.#active],
       fast: this.opts.fastKernels !== false,
       beams: this.#beamSpecs(grid),
@@ -304,7 +316,7 @@ export class Engine {
     const p = this.#plan;
     const dec = shedEffect(this.#shedder.step).covarianceDecimation;
     this.#decimCounter = (this.#decimCounter + 1) % dec;
-    const scanDue = this.#nextScanSample < 0 || _hopStart + this.opts.fftSize >= this.#nextScanSample;
+    const scanDue = this.#nextScanSample < 0 || _hopStart + this.#stft.fftSize >= this.#nextScanSample;
     if (this.#decimCounter !== 0 && !scanDue) {
       this.#skip = 'decimated';
       return RING_SLOTS * p.slotDoubles;
@@ -371,7 +383,7 @@ export class Engine {
     const p = this.#plan;
     const params = this.#params;
     const fs = this.opts.sampleRateHz;
-    const hopEnd = hopStart + this.opts.fftSize; // one past the frame's last sample
+    const hopEnd = hopStart + this.#stft.fftSize; // one past the frame's last sample
     const slot = p.writeSeq % RING_SLOTS;
     const o = slot * META_STRIDE;
     const dec = shedEffect(this.#shedder.step).covarianceDecimation;

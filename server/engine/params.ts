@@ -20,7 +20,11 @@ export interface ProcessingParams {
   spectrumRateHz: number;
   /** Broadband combination with each bin normalised to its maximum. */
   normalise: boolean;
+  /** STFT size N (hop N/2), a power of two 256–4096; a change re-plans and keeps τ unless λ/τ is given. */
+  fftSize: number;
 }
+
+export const FFT_SIZES = [256, 512, 1024, 2048, 4096] as const;
 
 export class ParamError extends Error {
   readonly code = 'ERR_PARAM_INVALID';
@@ -60,10 +64,22 @@ function count(r: AngleRangeDeg): number {
 export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampleRateHz: number; hop: number }): ProcessingParams {
   if (typeof patch !== 'object' || patch === null || Array.isArray(patch)) throw new ParamError('(body)', 'must be a JSON object');
   const p = patch as Record<string, unknown>;
-  const known = ['lambda', 'tauS', 'loading', 'bandHz', 'grid', 'methods', 'spectrumRateHz', 'normalise'];
+  const known = ['lambda', 'tauS', 'loading', 'bandHz', 'grid', 'methods', 'spectrumRateHz', 'normalise', 'fftSize'];
   for (const k of Object.keys(p)) if (!known.includes(k)) throw new ParamError(k, `unknown field; known: ${known.join(', ')}`);
   const out: ProcessingParams = structuredClone(base);
   if (p.lambda !== undefined && p.tauS !== undefined) throw new ParamError('tauS', 'give lambda or tauS, not both');
+  let hop = ctx.hop;
+  if (p.fftSize !== undefined) {
+    const n = p.fftSize;
+    if (typeof n !== 'number' || !(FFT_SIZES as readonly number[]).includes(n)) throw new ParamError('fftSize', `${JSON.stringify(n)} not allowed; allowed ${FFT_SIZES.join(', ')}`);
+    if (n !== base.fftSize && p.lambda === undefined && p.tauS === undefined) {
+      // Keep the time constant: τ = hop/(fs(1−λ)) with the new hop.
+      out.lambda = 1 - ((n / 2) / hop) * (1 - base.lambda);
+      if (!(out.lambda > 0)) throw new ParamError('fftSize', `${n} would need λ ≤ 0 to keep τ; lower τ first`);
+    }
+    out.fftSize = n;
+    hop = n / 2;
+  }
   if (p.lambda !== undefined) {
     const v = p.lambda;
     if (typeof v !== 'number' || !(v > 0 && v < 1)) throw new ParamError('lambda', `${JSON.stringify(v)} out of range; allowed a number in (0, 1)`);
@@ -71,9 +87,9 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
   }
   if (p.tauS !== undefined) {
     const v = p.tauS;
-    const minTau = ctx.hop / ctx.sampleRateHz;
+    const minTau = hop / ctx.sampleRateHz;
     if (typeof v !== 'number' || !(v > minTau && v <= 3600)) throw new ParamError('tauS', `${JSON.stringify(v)} out of range; allowed ${minTau.toFixed(6)}–3600 s`);
-    out.lambda = 1 - ctx.hop / (ctx.sampleRateHz * v);
+    out.lambda = 1 - hop / (ctx.sampleRateHz * v);
   }
   if (p.loading !== undefined) {
     try {
@@ -122,5 +138,5 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
 
 /** True when the change needs new steering tables and a fresh covariance (band or grid). */
 export function needsReplan(a: ProcessingParams, b: ProcessingParams): boolean {
-  return JSON.stringify(a.bandHz) !== JSON.stringify(b.bandHz) || JSON.stringify(a.grid) !== JSON.stringify(b.grid);
+  return a.fftSize !== b.fftSize || JSON.stringify(a.bandHz) !== JSON.stringify(b.bandHz) || JSON.stringify(a.grid) !== JSON.stringify(b.grid);
 }

@@ -87,6 +87,17 @@ describe.skipIf(!available)('dashboard in a browser', () => {
     expect((await processing()).params.lambda).toBe(before);
   });
 
+  it('the FFT size chosen in the panel re-plans the server and keeps τ', async () => {
+    const tauBefore = (await processing()).derived.tauS;
+    await page.getByTestId('input-fft').selectOption('1024');
+    await expect.poll(async () => (await processing()).params.fftSize, { timeout: 5000 }).toBe(1024);
+    const after = await processing();
+    expect(after.derived.hopSamples).toBe(512);
+    expect(after.derived.tauS).toBeCloseTo(tauBefore, 9);
+    await page.getByTestId('input-fft').selectOption('512');
+    await expect.poll(async () => (await processing()).params.fftSize, { timeout: 5000 }).toBe(512);
+  });
+
   it('clicking a direction in the history steers a beam there', async () => {
     const canvas = page.getByTestId('history-canvas');
     const box = (await canvas.boundingBox())!;

@@ -31,6 +31,7 @@ const params = (over: Partial<ProcessingParams> = {}): ProcessingParams => ({
   methods: ['mvdr', 'conventional'],
   spectrumRateHz: 20,
   normalise: false,
+  fftSize: N,
   ...over,
 });
 
@@ -98,7 +99,7 @@ describe('live engine', () => {
     for (const [workers, active] of [[2, undefined], [3, undefined], [2, masked]] as const) {
       const rows: EngineRow[] = [];
       const p = params();
-      engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: p, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+      engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
       if (active) {
         engine.setMask([...active]);
         await new Promise((r) => setTimeout(r, 200)); // idle workers take the mask before any hop
@@ -129,7 +130,7 @@ describe('live engine', () => {
     const { g, blocks } = await scene();
     const rows: EngineRow[] = [];
     const errors: string[] = [];
-    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), onError: (m) => errors.push(m), shedding: false });
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), onError: (m) => errors.push(m), shedding: false });
     for (const b of blocks.slice(0, 10)) await engine.pushAsync(b);
     await engine.drain();
     engine.injectWorkerFault(1);
@@ -151,7 +152,7 @@ describe('live engine', () => {
   it('a λ change applies from the next hop; band and grid changes re-plan', async () => {
     const { g, blocks } = await scene();
     const rows: EngineRow[] = [];
-    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: params(), workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
     for (const b of blocks.slice(0, 16)) await engine.pushAsync(b);
     await engine.drain();
     await engine.setParams(params({ lambda: 0.5 }));
@@ -162,6 +163,14 @@ describe('live engine', () => {
     const lastRow = rows[rows.length - 1];
     expect(lastRow.mvdrDb!.length).toBe(360);
     expect(engine.grid.count).toBe(360);
+    // A new FFT size re-plans the front end too; the stream keeps its clock and rows keep coming.
+    const n = rows.length;
+    await engine.setParams(params({ lambda: 0.5, fftSize: 1024, grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } }));
+    expect(engine.hop).toBe(512);
+    for (const b of blocks) await engine.pushAsync({ ...b, sampleIndex: b.sampleIndex + 40_000 });
+    await engine.drain();
+    expect(rows.length).toBeGreaterThan(n + 5);
+    expect(rows[rows.length - 1].peaks.mvdr[0].azimuthDeg).toBeCloseTo(40, 0);
   });
 
   it('sheds load when the workers are over the threshold and recovers when the load goes', async () => {
@@ -171,7 +180,7 @@ describe('live engine', () => {
     // times what one core can do. The default thresholds; shorter windows to keep the test short.
     const policy = { ...DEFAULT_SHED_POLICY, windowMs: 200, recoverWindows: 3 };
     const heavy = params({ spectrumRateHz: 50, bandHz: [300, 6000], grid: { azimuthDeg: { startDeg: 0, stopDeg: 359.75, stepDeg: 0.25 } } });
-    engine = await Engine.create({ geometry: g, sampleRateHz: FS, fftSize: N, params: heavy, workers: 1, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedPolicy: policy });
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: heavy, workers: 1, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedPolicy: policy });
     // Real-time pace: 1000 samples every ~20.8 ms.
     const t0 = performance.now();
     let after = -1; // blocks still to push once the grid step is reached

@@ -128,7 +128,7 @@ describe('LiveHub', () => {
           grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 1 } },
           methods: ['conventional', 'mvdr'],
           spectrumRateHz: 20,
-          normalise: false,
+          normalise: false, fftSize: 512,
         },
         array: { name: `client ${c.id}`, positions: [[0, 0, 0]] },
       });

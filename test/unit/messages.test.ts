@@ -218,7 +218,7 @@ const PARAMS: ProcessingParams = {
   grid: { azimuthDeg: { startDeg: 0, stopDeg: 355, stepDeg: 5 }, elevationDeg: { startDeg: 0, stopDeg: 90, stepDeg: 5 } },
   methods: ['conventional', 'mvdr'],
   spectrumRateHz: 10,
-  normalise: false,
+  normalise: false, fftSize: 512,
 };
 
 function hello(): HelloMessage {

@@ -15,7 +15,7 @@ const BASE: ProcessingParams = {
   grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 1 } },
   methods: ['conventional', 'mvdr'],
   spectrumRateHz: 20,
-  normalise: false,
+  normalise: false, fftSize: 512,
 };
 
 class FakeController implements ProcessingController {
@@ -149,7 +149,7 @@ describe('/api/processing', () => {
 
   it('refuses unknown fields (PATCH and PUT)', async () => {
     const { app } = setup();
-    const known = 'lambda, tauS, loading, bandHz, grid, methods, spectrumRateHz, normalise';
+    const known = 'lambda, tauS, loading, bandHz, grid, methods, spectrumRateHz, normalise, fftSize';
     const a = await app.inject({ method: 'PATCH', url: '/api/processing', payload: { lamda: 0.9 } });
     expect(a.statusCode).toBe(400);
     expect(a.json()).toEqual(validation(`lamda: unknown field; known: ${known}`));

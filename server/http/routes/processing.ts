@@ -34,7 +34,7 @@ export interface ProcessingController {
 }
 
 /** The fields PUT requires: all of ProcessingParams (grid.elevationDeg stays optional inside grid). */
-export const PROCESSING_FIELDS = ['lambda', 'loading', 'bandHz', 'grid', 'methods', 'spectrumRateHz', 'normalise'] as const satisfies readonly (keyof ProcessingParams)[];
+export const PROCESSING_FIELDS = ['lambda', 'loading', 'bandHz', 'grid', 'methods', 'spectrumRateHz', 'normalise', 'fftSize'] as const satisfies readonly (keyof ProcessingParams)[];
 
 interface AjvError {
   keyword: string;
