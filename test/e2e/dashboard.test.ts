@@ -61,6 +61,12 @@ describe.skipIf(!available)('dashboard in a browser', () => {
     expect(b).not.toBe(a);
     const rows = Number(await page.getByTestId('history-canvas').getAttribute('data-rows'));
     expect(rows).toBeGreaterThanOrEqual(15);
+    // 20 rows/s drawn without missing any: count over two seconds, and the client's own seq check.
+    const r0 = Number(await page.getByTestId('history-canvas').getAttribute('data-rows'));
+    await page.waitForTimeout(2000);
+    const r1 = Number(await page.getByTestId('history-canvas').getAttribute('data-rows'));
+    expect(r1 - r0).toBeGreaterThanOrEqual(36);
+    expect((await page.getByTestId('rows-missed').textContent())?.trim()).toMatch(/^(missed )?0$/);
     expect(problems).toEqual([]);
   });
 
