@@ -81,6 +81,7 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
       if (service.udpPort !== null) io.out(`  UDP ingest   udp://${c.server.host}:${service.udpPort}`);
       if (c.ingest.websocket.enabled) io.out(`  WS ingest    ${service.url.replace(/^http/, 'ws')}${c.ingest.websocket.path}`);
     }
+    io.out(`dashboard: ${service.url}/   live rows: ${service.url.replace(/^http/, 'ws')}${c.hub.path}`);
     io.out(`status: ${service.url}/api/status`);
     io.out(`listening on ${service.url}`);
   } catch (e) {

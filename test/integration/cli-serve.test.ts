@@ -39,6 +39,10 @@ describe('nullsteer serve', () => {
     child = r.proc;
     const [, url] = await waitForLine(r.out, /listening on (http:\/\/127\.0\.0\.1:\d+)/);
     expect(r.out()).toMatch(/source: built-in simulated scenario/);
+    expect(r.out()).toContain(`dashboard: ${url}/`);
+    const page = await fetch(`${url}/`);
+    expect(page.status).toBe(200);
+    expect(page.headers.get('content-type')).toBe('text/html; charset=utf-8');
     await new Promise((res) => setTimeout(res, 500));
     const st: any = await (await fetch(`${url}/api/status`)).json();
     expect(st.source.kind).toBe('simulator');
