@@ -15,15 +15,14 @@ import { MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
 import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
 import { type ProcessingParams, needsReplan } from './params.ts';
+import { BEAM_EVERY, BeamSet, type BeamState } from './beam-set.ts';
 import { BinPool, splitBins, type WorkerRange } from './pool.ts';
 import {
   CTRL_DONE,
   CTRL_WRITE,
   FLAG_BEAMS,
   FLAG_RESET,
-  MAX_BEAMS,
   resultStride,
-  type BeamSpec,
   LOAD_FIXED,
   LOAD_RELATIVE,
   LOAD_WNG,
@@ -43,39 +42,7 @@ import {
 import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from './shedding.ts';
 
 export const RING_SLOTS = 64;
-/** Beams are recomputed on every BEAM_EVERY-th spectrum scan (their weights change slowly). */
-export const BEAM_EVERY = 4;
-
-export interface BeamState {
-  id: number;
-  azimuthDeg: number;
-  elevationDeg: number;
-  method: 'mvdr' | 'delay-and-sum';
-  /** Mean WNG over the band's bins, dB (null until first computed). */
-  wngDb: number | null;
-  /** Response |wᴴv(θ)|² averaged over the band, dB, per grid direction. */
-  responseDb: number[] | null;
-  updatedAtMs: number | null;
-}
-
-/** Index of the grid direction nearest (great-circle) to the given one. */
-export function nearestDirection(grid: DirectionGrid, azimuthDeg: number, elevationDeg: number): number {
-  const r = Math.PI / 180;
-  const ux = Math.cos(elevationDeg * r) * Math.cos(azimuthDeg * r);
-  const uy = Math.cos(elevationDeg * r) * Math.sin(azimuthDeg * r);
-  const uz = Math.sin(elevationDeg * r);
-  let best = 0;
-  let bestDot = -2;
-  for (let d = 0; d < grid.count; d++) {
-    const a = grid.azimuthDeg[d] * r;
-    const e = grid.elevationDeg[d] * r;
-    const dot = Math.cos(e) * Math.cos(a) * ux + Math.cos(e) * Math.sin(a) * uy + Math.sin(e) * uz;
-    if (dot > bestDot) [bestDot, best] = [dot, d];
-  }
-  return best;
-}
 const LATENCY_HISTORY = 2048;
-
 /**
  * A row as the engine emits it: the dashboard's SpectrumRow (shared/messages.ts) with the dB spectra
  * as float32, plus the linear float64 powers and the latency.
@@ -265,7 +232,7 @@ export class Engine {
       snapshotScale: 2 / this.#stft.fftSize,
       active: [...this.#active],
       fast: this.opts.fastKernels !== false,
-      beams: this.#beamSpecs(grid),
+      beams: this.#beams.specs(grid),
     }));
     const plan: Plan = {
       epoch,
@@ -334,40 +301,31 @@ export class Engine {
   #skip: 'full' | 'decimated' | null = null;
 
   // ---- steered beams: weights and responses computed by the workers every BEAM_EVERY-th scan ----
-  #beams: BeamState[] = [];
-  #nextBeamId = 1;
+  readonly #beams = new BeamSet();
   #beamScan = 0;
-
-  #beamSpecs(grid: DirectionGrid): BeamSpec[] {
-    return this.#beams.map((b) => ({ id: b.id, lookIndex: nearestDirection(grid, b.azimuthDeg, b.elevationDeg), method: b.method }));
-  }
 
   #sendBeams(): void {
     const p = this.#plan;
-    const specs = this.#beamSpecs(p.grid);
+    const specs = this.#beams.specs(p.grid);
     this.#pool.updatePlans((pl) => (pl.beams = specs));
     this.#pool.broadcast({ type: 'beams', epoch: p.epoch, beams: specs });
   }
 
   /** Steer a new beam (look direction snapped to the nearest grid direction for its response). */
   addBeam(azimuthDeg: number, elevationDeg: number, method: 'mvdr' | 'delay-and-sum'): BeamState {
-    if (this.#beams.length >= MAX_BEAMS) throw new RangeError(`at most ${MAX_BEAMS} beams`);
-    const b: BeamState = { id: this.#nextBeamId++, azimuthDeg, elevationDeg, method, wngDb: null, responseDb: null, updatedAtMs: null };
-    this.#beams.push(b);
+    const b = this.#beams.add(azimuthDeg, elevationDeg, method);
     this.#sendBeams();
     return b;
   }
 
   removeBeam(id: number): boolean {
-    const n = this.#beams.length;
-    this.#beams = this.#beams.filter((b) => b.id !== id);
-    if (this.#beams.length === n) return false;
+    if (!this.#beams.remove(id)) return false;
     this.#sendBeams();
     return true;
   }
 
   get beams(): readonly BeamState[] {
-    return this.#beams;
+    return this.#beams.list;
   }
 
   #onHop = (_out: Float64Array, hopStart: number): void => {
@@ -398,7 +356,7 @@ export class Engine {
       if (params.methods.includes('conventional')) flags |= SCAN_CONVENTIONAL;
       if (params.methods.includes('mvdr')) flags |= SCAN_MVDR;
       if (params.normalise) flags |= SCAN_NORMALISE;
-      if (this.#beams.length > 0 && this.#beamScan++ % BEAM_EVERY === 0) flags |= FLAG_BEAMS;
+      if (this.#beams.list.length > 0 && this.#beamScan++ % BEAM_EVERY === 0) flags |= FLAG_BEAMS;
       const period = fs / (params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
       this.#nextScanSample = Math.max(this.#nextScanSample + period, hopEnd + 1);
       const seq = this.#scanSeq++;
@@ -541,7 +499,7 @@ export class Engine {
       const peaks = p.finder.find(db).map((q) => ({ azimuthDeg: q.azimuthDeg, elevationDeg: q.elevationDeg, levelDb: q.levelDb }));
       return { power, db: Float32Array.from(db), peaks };
     };
-    if ((pend.flags & FLAG_BEAMS) !== 0) this.#combineBeams(m, r, D);
+    if ((pend.flags & FLAG_BEAMS) !== 0) this.#beams.combine(m.beams, p.results, (w) => (w * RESULT_SLOTS + r) * resultStride(p.resultDirections) + 2 * p.resultDirections, p.ranges.length, D, p.bins);
     const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? toDb(0) : null;
     const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? toDb(1) : null;
     const now = performance.now();
@@ -564,29 +522,6 @@ export class Engine {
       mvdrPower: mvdr ? mvdr.power : null,
       peaks: { conventional: conv ? conv.peaks : [], mvdr: mvdr ? mvdr.peaks : [] },
       latencyMs,
-    });
-  }
-
-  /** Add the workers' beam shares: mean over bins of the response (dB) and of the WNG. */
-  #combineBeams(m: Extract<FromWorker, { type: 'scanned' }>, r: number, D: number): void {
-    const p = this.#plan;
-    const R = p.resultDirections;
-    const W = p.ranges.length;
-    const now = Date.now();
-    m.beams.forEach((id, i) => {
-      const beam = this.#beams.find((b) => b.id === id);
-      if (!beam) return;
-      const resp = new Float64Array(D);
-      let wng = 0;
-      for (let w = 0; w < W; w++) {
-        const base = (w * RESULT_SLOTS + r) * resultStride(R) + 2 * R + i * (D + 1);
-        for (let d = 0; d < D; d++) resp[d] += p.results[base + d];
-        wng += p.results[base + D];
-      }
-      if (!(wng > 0)) return; // a worker had not taken this beam yet
-      beam.wngDb = 10 * Math.log10(wng / p.bins);
-      beam.responseDb = Array.from(resp, (x) => (x > 0 ? 10 * Math.log10(x / p.bins) : -300));
-      beam.updatedAtMs = now;
     });
   }
 
