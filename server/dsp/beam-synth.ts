@@ -249,11 +249,12 @@ export class BeamSynthesizer {
    * One hop: smooth the weights, form the beam on the band bins, overlap-add, gain and limiter.
    * @param snapshot length ≥ 2·bins·M, MultiChannelStft layout (X_m[k] at [(k·M + m)·2]); unchanged
    * @param out length ≥ hop; receives hop output samples (full scale ±1.0); must not be `snapshot`
+   * @param snapshotOffset index of X_0[0].re in `snapshot` (e.g. a slot of the engine's shared ring)
    */
-  process(snapshot: Float64Array | Float32Array, out: Samples): void {
+  process(snapshot: Float64Array | Float32Array, out: Samples, snapshotOffset = 0): void {
     const M = this.channels;
     const hop = this.hop;
-    if (snapshot.length < 2 * this.bins * M) {
+    if (snapshot.length < snapshotOffset + 2 * this.bins * M) {
       throw new RangeError(`snapshot must have length ≥ 2·bins·channels = ${2 * this.bins * M}, got ${snapshot.length}`);
     }
     if (out.length < hop) throw new RangeError(`out must have length ≥ hop = ${hop}, got ${out.length}`);
@@ -264,7 +265,7 @@ export class BeamSynthesizer {
     const count = this.count;
     const m2 = 2 * M;
     for (let b = 0; b < count; b++) {
-      const xo = (start + b) * m2;
+      const xo = snapshotOffset + (start + b) * m2;
       const wo = b * m2;
       let re = 0;
       let im = 0;

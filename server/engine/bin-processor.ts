@@ -141,8 +141,9 @@ export class BinProcessor {
   /**
    * Every beam's share over this range's bins: for beam i, out[i·(D+1) + d] = Σ_b |w_bᴴ v_b(θ_d)|²
    * and out[i·(D+1) + D] = Σ_b WNG_b (linear). The combiner divides by the band's bin count.
+   * With `weightsOut`, also each beam's weights per bin (2·M doubles, interleaved complex).
    */
-  scanBeams(beams: readonly { lookIndex: number; method: 'mvdr' | 'delay-and-sum' }[], loading: LoadingSpec, out: Float64Array): void {
+  scanBeams(beams: readonly { lookIndex: number; method: 'mvdr' | 'delay-and-sum' }[], loading: LoadingSpec, out: Float64Array, weightsOut?: Float64Array, weightStride = 0): void {
     const D = this.#grid.count;
     const M = this.channels;
     if (this.#weights === null || this.#weightsTable !== this.#table) {
@@ -158,6 +159,8 @@ export class BinProcessor {
       const look = Math.min(beams[i].lookIndex, D - 1);
       for (let b = 0; b < this.bins; b++) {
         this.#weights.compute(this.#w, beams[i].method, this.bank, b, look, loading, res);
+        // Weights for beam i, bin b at weightsOut[i·weightStride + b·2M] (the engine's audio path).
+        if (weightsOut) weightsOut.set(this.#w, i * weightStride + b * 2 * M);
         beamResponse(this.#resp, this.#w, this.#table, b);
         for (let d = 0; d < D; d++) out[o + d] += this.#resp[d];
         out[o + D] += Math.pow(10, res.wngDb / 10);

@@ -12,6 +12,7 @@ import {
   CTRL_WRITE,
   FLAG_BEAMS,
   FLAG_RESET,
+  MAX_BEAMS,
   resultStride,
   type BeamSpec,
   LOAD_FIXED,
@@ -39,6 +40,7 @@ interface State {
   conv: Float64Array[];
   mvdr: Float64Array[];
   beamOut: Float64Array[];
+  weightOut: Float64Array[];
   beams: BeamSpec[];
   proc: BinProcessor;
   processed: number;
@@ -69,18 +71,21 @@ async function build(plan: PlanMessage): Promise<State> {
   const conv: Float64Array[] = [];
   const mvdr: Float64Array[] = [];
   const beamOut: Float64Array[] = [];
+  const weightOut: Float64Array[] = [];
   const R = plan.resultDirections;
-  const stride = resultStride(R);
+  const stride = resultStride(R, plan.weightDoubles);
+  const beamShares = MAX_BEAMS * (R + 1);
   for (let r = 0; r < RESULT_SLOTS; r++) {
     const base = (plan.workerIndex * RESULT_SLOTS + r) * stride;
     conv.push(results.subarray(base, base + R));
     mvdr.push(results.subarray(base + R, base + 2 * R));
-    beamOut.push(results.subarray(base + 2 * R, base + stride));
+    beamOut.push(results.subarray(base + 2 * R, base + 2 * R + beamShares));
+    weightOut.push(results.subarray(base + 2 * R + beamShares, base + stride));
   }
   const proc = await BinProcessor.create({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale, fast: plan.fast });
   proc.setMask(plan.active);
   const ctrl = new Int32Array(plan.ctrl);
-  return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, beamOut, beams: plan.beams, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
+  return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, beamOut, weightOut, beams: plan.beams, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
 }
 
 function loadingAt(meta: Float64Array, o: number): LoadingSpec {
@@ -110,7 +115,7 @@ function handle(st: State, hop: number): void {
     const r = seq % RESULT_SLOTS;
     const loading = loadingAt(st.meta, o);
     st.proc.scan(scanBits, loading, st.conv[r], st.mvdr[r]);
-    if ((flags & FLAG_BEAMS) !== 0 && st.beams.length > 0) st.proc.scanBeams(st.beams, loading, st.beamOut[r]);
+    if ((flags & FLAG_BEAMS) !== 0 && st.beams.length > 0) st.proc.scanBeams(st.beams, loading, st.beamOut[r], st.weightOut[r], st.plan.weightDoubles);
     st.stats[w * STATS_STRIDE + 2]++;
     const scanMs = performance.now() - t0;
     st.stats[w * STATS_STRIDE + 3] = scanMs;

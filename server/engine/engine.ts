@@ -15,6 +15,7 @@ import { MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
 import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
 import { type ProcessingParams, needsReplan } from './params.ts';
+import { BeamAudio, type BeamAudioHop } from './beam-audio.ts';
 import { BEAM_EVERY, BeamSet, type BeamState } from './beam-set.ts';
 import { BinPool, splitBins, type WorkerRange } from './pool.ts';
 import {
@@ -22,6 +23,7 @@ import {
   CTRL_WRITE,
   FLAG_BEAMS,
   FLAG_RESET,
+  MAX_BEAMS,
   resultStride,
   LOAD_FIXED,
   LOAD_RELATIVE,
@@ -65,6 +67,8 @@ export interface EngineOptions {
   /** Called when the grid the rows use changes (re-plan or shedding). */
   onGrid?: (grid: DirectionGrid) => void;
   onError?: (message: string) => void;
+  /** One hop of steered-beam audio (every hop while beams exist; see beam-audio.ts). */
+  onBeamAudio?: (hop: BeamAudioHop) => void;
   shedPolicy?: ShedPolicy;
   /** false runs the plain float64 kernels in the workers (the reference); default true. */
   fastKernels?: boolean;
@@ -88,6 +92,7 @@ interface Plan {
   stats: Float64Array;
   slotDoubles: number;
   resultDirections: number;
+  weightDoubles: number;
   finder: PeakFinder;
   writeSeq: number;
 }
@@ -207,7 +212,8 @@ export class Engine {
     const metaBuf = sab(8 * META_STRIDE * RING_SLOTS);
     // One extra slot at the end takes hops that are skipped (ring full or decimated).
     const ringBuf = sab(8 * slotDoubles * (RING_SLOTS + 1));
-    const resultsBuf = sab(8 * W * RESULT_SLOTS * resultStride(resultDirections));
+    const weightDoubles = Math.max(...ranges.map((r) => r.count)) * 2 * M;
+    const resultsBuf = sab(8 * W * RESULT_SLOTS * resultStride(resultDirections, weightDoubles));
     const statsBuf = sab(8 * STATS_STRIDE * W);
     const epoch = ++this.#epoch;
     const fs = this.opts.sampleRateHz;
@@ -225,6 +231,7 @@ export class Engine {
       slotDoubles,
       binOffsetDoubles: 2 * M * (band.startBin + r.start),
       resultDirections,
+      weightDoubles,
       positions: this.opts.geometry.positions,
       freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / this.#stft.fftSize),
       grid: gridMsg(grid),
@@ -248,6 +255,7 @@ export class Engine {
       stats: new Float64Array(statsBuf),
       slotDoubles,
       resultDirections,
+      weightDoubles,
       finder: this.#finder(grid, p),
       writeSeq: 0,
     };
@@ -258,7 +266,10 @@ export class Engine {
     this.#params = p;
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
-    this.#stft.setOutput(plan.ring, (hopStart) => this.#slotFor(hopStart));
+    this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)));
+    // Beam audio follows the band and FFT size; weights arrive with the next beam scan.
+    this.#audio = new BeamAudio({ channels: this.channels, fftSize: this.#stft.fftSize, band, sampleRateHz: fs });
+    this.#audio.sync(this.#beams.list.map((b) => b.id));
     this.opts.onGrid?.(grid);
   }
 
@@ -303,9 +314,12 @@ export class Engine {
   // ---- steered beams: weights and responses computed by the workers every BEAM_EVERY-th scan ----
   readonly #beams = new BeamSet();
   #beamScan = 0;
+  #audio!: BeamAudio;
+  #slotOffset = 0;
 
   #sendBeams(): void {
     const p = this.#plan;
+    this.#audio.sync(this.#beams.list.map((b) => b.id));
     const specs = this.#beams.specs(p.grid);
     this.#pool.updatePlans((pl) => (pl.beams = specs));
     this.#pool.broadcast({ type: 'beams', epoch: p.epoch, beams: specs });
@@ -328,8 +342,11 @@ export class Engine {
     return this.#beams.list;
   }
 
-  #onHop = (_out: Float64Array, hopStart: number): void => {
+  #onHop = (out: Float64Array, hopStart: number): void => {
     this.hops++;
+    // Beam audio first, from the snapshot as written (before any worker scales its bins in place).
+    const audio = this.#audio.process(out, this.#slotOffset, hopStart);
+    if (audio) this.opts.onBeamAudio?.(audio);
     if (this.#skip === 'full') {
       this.hopsSkipped++;
       return;
@@ -486,7 +503,7 @@ export class Engine {
     const toDb = (method: 0 | 1): { power: Float64Array; db: Float32Array; peaks: RowPeak[] } => {
       const power = new Float64Array(D);
       for (let w = 0; w < W; w++) {
-        const base = (w * RESULT_SLOTS + r) * resultStride(R) + method * R;
+        const base = (w * RESULT_SLOTS + r) * resultStride(R, p.weightDoubles) + method * R;
         for (let d = 0; d < D; d++) power[d] += p.results[base + d];
       }
       // Sum over bins = the band's power (dBFS); normalised: the mean over bins (0 dB at most).
@@ -499,7 +516,11 @@ export class Engine {
       const peaks = p.finder.find(db).map((q) => ({ azimuthDeg: q.azimuthDeg, elevationDeg: q.elevationDeg, levelDb: q.levelDb }));
       return { power, db: Float32Array.from(db), peaks };
     };
-    if ((pend.flags & FLAG_BEAMS) !== 0) this.#beams.combine(m.beams, p.results, (w) => (w * RESULT_SLOTS + r) * resultStride(p.resultDirections) + 2 * p.resultDirections, p.ranges.length, D, p.bins);
+    if ((pend.flags & FLAG_BEAMS) !== 0) {
+      const slotBase = (w: number) => (w * RESULT_SLOTS + r) * resultStride(R, p.weightDoubles);
+      this.#beams.combine(m.beams, p.results, (w) => slotBase(w) + 2 * R, W, D, p.bins);
+      this.#audio.setWeights(m.beams, p.results, (w) => slotBase(w) + 2 * R + MAX_BEAMS * (R + 1), p.weightDoubles, p.ranges);
+    }
     const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? toDb(0) : null;
     const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? toDb(1) : null;
     const now = performance.now();

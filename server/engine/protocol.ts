@@ -28,9 +28,12 @@ export const STATS_STRIDE = 4;
 export const RESULT_SLOTS = 8;
 /** Steered beams at most (DESIGN.md: up to 8). */
 export const MAX_BEAMS = 8;
-/** Doubles per worker and result slot: D conventional, D MVDR, then per beam D response + 1 WNG. */
-export function resultStride(directions: number): number {
-  return 2 * directions + MAX_BEAMS * (directions + 1);
+/**
+ * Doubles per worker and result slot: D conventional, D MVDR, per beam D response + 1 WNG, then per
+ * beam the weights of the worker's bins (`weightDoubles` = most bins of any worker × 2·M).
+ */
+export function resultStride(directions: number, weightDoubles: number): number {
+  return 2 * directions + MAX_BEAMS * (directions + 1) + MAX_BEAMS * weightDoubles;
 }
 
 /** Flags in meta: which spectra this hop's scan computes (bits of bin-processor.ts), and a reset. */
@@ -65,6 +68,8 @@ export interface PlanMessage {
   binOffsetDoubles: number;
   /** Room per direction vector in the results (≥ D). */
   resultDirections: number;
+  /** Room per beam for weights in the results: most bins of any worker × 2·M. */
+  weightDoubles: number;
   positions: [number, number, number][];
   freqsHz: number[];
   grid: { azimuthDeg: number[]; elevationDeg: number[]; nAz: number; nEl: number };
