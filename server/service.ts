@@ -17,6 +17,9 @@ import { Engine } from './engine/engine.ts';
 import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
+import { Recorder } from './outputs/recorder.ts';
+import { BeamStreamOut } from './outputs/stream-out.ts';
+import { resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
 import { IngestHub, RateMeter, type StreamStatus } from './ingest/ingest-hub.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
@@ -129,6 +132,9 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       derived: derived(),
     };
   };
+  const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
+  let recordBeams = false;
+  const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
   const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, onConnect: (c) => c.sendJson(hello()) });
   const engineErrors: string[] = [];
   engine = await Engine.create({
@@ -138,6 +144,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers,
     speedOfSoundMps: config.engine.speedOfSoundMps,
     onRow: (row) => live.broadcastRow(row),
+    onBeamAudio: (hop) => {
+      streamOut.send(hop);
+      if (recordBeams && recorder.recording && hop.sampleIndex >= 0) {
+        recorder.pushTrack('beams', { streamId: config.outputs.streamId, sampleIndex: hop.sampleIndex, sampleRateHz: fs, channels: hop.ids.length, frames: hop.frames, data: hop.data, gap: false, discontinuity: false });
+      }
+    },
     onGrid: () => {
       if (engine) live.broadcastJson(hello());
     },
@@ -150,6 +162,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const eng = engine;
   const meters = new ChannelMeters(channels, fs);
   bus.subscribe((b) => meters.push(b.data, b.frames));
+  let recordRaw = false;
+  bus.subscribe((b) => {
+    if (recordRaw && recorder.recording) recorder.push(b);
+  });
   bus.subscribe((b) => eng.push(b));
 
   const simRate = new RateMeter();
@@ -181,6 +197,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       engine: { ...eng.status(), recentErrors: [...engineErrors] },
       channels: meters.levels(),
       live: live.stats(),
+      recording: { recording: recorder.recording, streamOut: streamOut.stats() },
     };
   };
 
@@ -192,6 +209,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       get: () => eng.params,
       apply: async (next) => {
         const applied = await eng.setParams(next);
+        if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
         live.broadcastJson({ type: 'params', params: applied, derived: derived() });
         return applied;
       },
@@ -212,13 +230,35 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         meters.masked = active.map((a) => !a);
       },
     },
+    recording: {
+      status: () => ({ ...recorder.status(), raw: recordRaw, beams: recordBeams, streamOut: streamOut.stats() }),
+      start: async (r) => {
+        recordRaw = r.raw;
+        recordBeams = r.beams;
+        const st = await recorder.start({
+          dir: resolvePath(config.outputs.dir),
+          prefix: 'nullsteer',
+          encoding: r.encoding,
+          rotateSeconds: r.rotateSeconds ?? undefined,
+          meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind } },
+        });
+        if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
+        return { ...st, raw: recordRaw, beams: recordBeams };
+      },
+      stop: async () => {
+        const st = await recorder.stop();
+        recordRaw = false;
+        recordBeams = false;
+        return st;
+      },
+    },
     staticDir: CLIENT_DIST,
   });
   await app.ready();
   if (hub && config.ingest.websocket.enabled) {
     wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
   }
-  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live] : [live]);
+  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, streamOut] : [live, streamOut]);
 
   let httpPort = 0;
   try {
@@ -259,6 +299,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       await udp?.close();
       await wsIngest?.close();
       hub?.flush();
+      if (recorder.recording) await recorder.stop();
+      await streamOut.close();
       await live.close();
       await app.close();
       await eng.close();

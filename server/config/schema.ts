@@ -99,6 +99,15 @@ export const CONFIG_SCHEMA: FieldSpec = {
         maxBufferedBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Per-client send backlog above which rows to that client are dropped (counted).' },
       },
     },
+    outputs: {
+      kind: 'object',
+      fields: {
+        dir: { kind: 'string', maxLength: 4096, doc: 'Folder for recordings (relative: to the working directory); REST cannot choose another.' },
+        streamUdpTarget: { kind: 'string', nullable: true, maxLength: 300, pattern: /^(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+):\d{1,5}$/, patternDoc: 'HOST:PORT', doc: 'Send beam audio as ingest frames (float32) over UDP to HOST:PORT; null = off.' },
+        streamId: { kind: 'int', min: 0, max: 0xffffffff, doc: 'Stream id of the beam-audio frames.' },
+        streamPath: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'WebSocket path where beam-audio frames are pushed to subscribers.' },
+      },
+    },
     simulator: {
       kind: 'object',
       fields: {
@@ -127,6 +136,7 @@ export interface Config {
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number };
+  outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }
 

@@ -8,6 +8,7 @@ import { HttpError } from './errors.ts';
 import { beamsRoutes, type BeamsController } from './routes/beams.ts';
 import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
+import { recordingRoutes, type RecordingController } from './routes/recording.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
@@ -17,6 +18,8 @@ export interface AppDeps {
   processing?: ProcessingController;
   /** Channel levels and masking (`/api/channels`); absent without it. */
   channels?: ChannelsController;
+  /** Recording (`/api/recording`); absent without it. */
+  recording?: RecordingController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
@@ -80,6 +83,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
+  if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }
