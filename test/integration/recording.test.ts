@@ -13,7 +13,7 @@ import { afterEach, describe, expect, it } from 'vitest';
 import { openWav } from '../../server/io/wav.ts';
 import type { Service } from '../../server/service.ts';
 import { decodeFrame, encodeFrame } from '../../shared/frame.ts';
-import { collectBlocks, sleep, startTestService, waitFor } from '../helpers/service.ts';
+import { collectBlocks, FIXTURES, sleep, startTestService, waitFor } from '../helpers/service.ts';
 
 const BIN = fileURLToPath(new URL('../../bin/nullsteer.mjs', import.meta.url));
 let svc: Service | null = null;
@@ -23,6 +23,15 @@ afterEach(async () => {
   await svc?.close();
   svc = null;
 });
+
+function has(cmd: string, args: string[]): boolean {
+  try {
+    execFileSync(cmd, args, { stdio: 'ignore' });
+    return true;
+  } catch {
+    return false;
+  }
+}
 
 function hasPython(): boolean {
   try {
@@ -92,6 +101,17 @@ describe('recording and stream out', () => {
     const before = await raw.readFrames(149 * N, N);
     expect(before.some((b) => b !== 0)).toBe(true);
     await raw.close();
+    if (has('sox', ['--version'])) {
+      // sox --i (outside reader): channels, rate and length in samples per channel.
+      const info = (o: string) => execFileSync('sox', ['--i', o, join(dir, rawWav)], { encoding: 'utf8' }).trim();
+      expect([info('-c'), info('-r'), info('-s')]).toEqual(['4', '48000', String(total * N)]);
+    }
+    // The loop closes: analyze reads the raw capture.
+    let report = '';
+    const { analyzeCommand } = await import('../../server/tools/analyze.ts');
+    const code = await analyzeCommand([join(dir, rawWav), '--array', `${FIXTURES}arrays/square-4.json`, '--json', '--band', '500:3000'], { out: (t) => (report += t), err: () => {} });
+    expect(code).toBe(0);
+    expect(JSON.parse(report).frames).toBe(total * N);
     const side = JSON.parse(readFileSync(join(dir, rawWav.replace(/\.wav$/, '.json')), 'utf8'));
     expect(side.gaps).toEqual([expect.objectContaining({ sampleIndex: 150 * N, frames: 5 * N })]);
     expect(side.changes.length).toBeGreaterThanOrEqual(1);
