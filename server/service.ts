@@ -220,6 +220,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       list: () => eng.beams,
       add: (az, el, method) => eng.addBeam(az, el, method),
       remove: (id) => eng.removeBeam(id),
+      update: (id, patch) => eng.updateBeam(id, patch),
+      latencyS: () => eng.beamLatencyS,
     },
     channels: {
       channels,

@@ -54,11 +54,11 @@ export class BeamAudio {
    * Weights from one beam scan: beam `ids[i]`'s weights for worker w's bins start at
    * `results[base(w) + i·weightDoubles]`, bin by bin (2·M doubles each).
    */
-  setWeights(ids: number[], results: Float64Array, base: (w: number) => number, weightDoubles: number, ranges: WorkerRange[]): void {
+  setWeights(ids: number[], results: Float64Array, base: (w: number) => number, weightDoubles: number, ranges: WorkerRange[], due?: readonly number[]): void {
     const m2 = 2 * this.opts.channels;
     ids.forEach((id, i) => {
       const synth = this.#synths.get(id);
-      if (!synth) return;
+      if (!synth || (due && !due.includes(id))) return;
       const bw = this.#bandWeights;
       let any = false;
       ranges.forEach((r, w) => {
@@ -68,6 +68,19 @@ export class BeamAudio {
       });
       if (any) synth.setWeights(bw);
     });
+  }
+
+  /** Output gain (dB) and limiter of one beam. */
+  setOutput(id: number, gainDb: number, limiter: boolean): void {
+    const s = this.#synths.get(id);
+    if (!s) return;
+    s.setGain(Math.pow(10, gainDb / 20));
+    s.setLimiter(limiter);
+  }
+
+  /** Delay of beam audio behind the input: the WOLA latency N − hop, seconds. */
+  get latencyS(): number {
+    return this.opts.fftSize / 2 / this.opts.sampleRateHz;
   }
 
   /** One hop of every beam, or null without beams. */

@@ -15,6 +15,12 @@ export interface BeamState {
   azimuthDeg: number;
   elevationDeg: number;
   method: 'mvdr' | 'delay-and-sum';
+  /** Output gain of the beam's audio, dB. */
+  gainDb: number;
+  /** Peak limiter at −1 dBFS on the beam's audio. */
+  limiter: boolean;
+  /** New weights every this many spectrum rows (the audio glides between updates). */
+  updateEvery: number;
   /** Mean WNG over the band's bins, dB (null until first computed). */
   wngDb: number | null;
   /** Response |wᴴv(θ)|² averaged over the band, dB, per grid direction. */
@@ -50,9 +56,22 @@ export class BeamSet {
   /** @throws RangeError when MAX_BEAMS beams exist already */
   add(azimuthDeg: number, elevationDeg: number, method: 'mvdr' | 'delay-and-sum'): BeamState {
     if (this.#beams.length >= MAX_BEAMS) throw new RangeError(`at most ${MAX_BEAMS} beams`);
-    const b: BeamState = { id: this.#nextId++, azimuthDeg, elevationDeg, method, wngDb: null, responseDb: null, updatedAtMs: null };
+    const b: BeamState = { id: this.#nextId++, azimuthDeg, elevationDeg, method, gainDb: 0, limiter: true, updateEvery: BEAM_EVERY, wngDb: null, responseDb: null, updatedAtMs: null };
     this.#beams.push(b);
     return b;
+  }
+
+  /** Change a beam in place; returns it, or null for an unknown id. */
+  update(id: number, patch: Partial<Pick<BeamState, 'azimuthDeg' | 'elevationDeg' | 'method' | 'gainDb' | 'limiter' | 'updateEvery'>>): BeamState | null {
+    const b = this.#beams.find((x) => x.id === id);
+    if (!b) return null;
+    Object.assign(b, patch);
+    return b;
+  }
+
+  /** Beams whose weights are due on spectrum scan number `scan`. */
+  due(scan: number): number[] {
+    return this.#beams.filter((b) => scan % b.updateEvery === 0).map((b) => b.id);
   }
 
   remove(id: number): boolean {
@@ -71,12 +90,12 @@ export class BeamSet {
    * over the band's bins of the response (dB) and of the WNG.
    * @param base index in `results` of worker w's first beam share
    */
-  combine(ids: number[], results: Float64Array, base: (w: number) => number, workers: number, directions: number, bins: number): void {
+  combine(ids: number[], results: Float64Array, base: (w: number) => number, workers: number, directions: number, bins: number, due?: readonly number[]): void {
     const D = directions;
     const now = Date.now();
     ids.forEach((id, i) => {
       const beam = this.#beams.find((b) => b.id === id);
-      if (!beam) return;
+      if (!beam || (due && !due.includes(id))) return;
       const resp = new Float64Array(D);
       let wng = 0;
       for (let w = 0; w < workers; w++) {

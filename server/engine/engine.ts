@@ -16,7 +16,7 @@ import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
 import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
 import { type ProcessingParams, needsReplan } from './params.ts';
 import { BeamAudio, type BeamAudioHop } from './beam-audio.ts';
-import { BEAM_EVERY, BeamSet, type BeamState } from './beam-set.ts';
+import { BeamSet, type BeamState } from './beam-set.ts';
 import { BinPool, splitBins, type WorkerRange } from './pool.ts';
 import {
   CTRL_DONE,
@@ -118,7 +118,8 @@ export class Engine {
   #lastWindowMs = performance.now();
   #nextScanSample = -1;
   #scanSeq = 0;
-  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number; scanMs: number }>();
+  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number; scanMs: number; due: number[] }>();
+  #dueBeams: number[] = [];
   #pendingReset = false;
   #decimCounter = 0;
   #arrivalMs = 0;
@@ -270,6 +271,7 @@ export class Engine {
     // Beam audio follows the band and FFT size; weights arrive with the next beam scan.
     this.#audio = new BeamAudio({ channels: this.channels, fftSize: this.#stft.fftSize, band, sampleRateHz: fs });
     this.#audio.sync(this.#beams.list.map((b) => b.id));
+    for (const b of this.#beams.list) this.#audio.setOutput(b.id, b.gainDb, b.limiter);
     this.opts.onGrid?.(grid);
   }
 
@@ -311,7 +313,7 @@ export class Engine {
 
   #skip: 'full' | 'decimated' | null = null;
 
-  // ---- steered beams: weights and responses computed by the workers every BEAM_EVERY-th scan ----
+  // ---- steered beams: weights and responses computed by the workers on the scans they are due ----
   readonly #beams = new BeamSet();
   #beamScan = 0;
   #audio!: BeamAudio;
@@ -320,6 +322,7 @@ export class Engine {
   #sendBeams(): void {
     const p = this.#plan;
     this.#audio.sync(this.#beams.list.map((b) => b.id));
+    for (const b of this.#beams.list) this.#audio.setOutput(b.id, b.gainDb, b.limiter);
     const specs = this.#beams.specs(p.grid);
     this.#pool.updatePlans((pl) => (pl.beams = specs));
     this.#pool.broadcast({ type: 'beams', epoch: p.epoch, beams: specs });
@@ -330,6 +333,20 @@ export class Engine {
     const b = this.#beams.add(azimuthDeg, elevationDeg, method);
     this.#sendBeams();
     return b;
+  }
+
+  /** Change a beam live: look direction and method reach the workers at their next batch. */
+  updateBeam(id: number, patch: Parameters<BeamSet['update']>[1]): BeamState | null {
+    const b = this.#beams.update(id, patch);
+    if (!b) return null;
+    this.#sendBeams();
+    this.#audio.setOutput(id, b.gainDb, b.limiter);
+    return b;
+  }
+
+  /** Delay of the beam audio behind the input, seconds (WOLA latency). */
+  get beamLatencyS(): number {
+    return this.#audio.latencyS;
   }
 
   removeBeam(id: number): boolean {
@@ -373,12 +390,14 @@ export class Engine {
       if (params.methods.includes('conventional')) flags |= SCAN_CONVENTIONAL;
       if (params.methods.includes('mvdr')) flags |= SCAN_MVDR;
       if (params.normalise) flags |= SCAN_NORMALISE;
-      if (this.#beams.list.length > 0 && this.#beamScan++ % BEAM_EVERY === 0) flags |= FLAG_BEAMS;
+      const due = this.#beams.list.length > 0 ? this.#beams.due(this.#beamScan++) : [];
+      if (due.length > 0) flags |= FLAG_BEAMS;
+      this.#dueBeams = due;
       const period = fs / (params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
       this.#nextScanSample = Math.max(this.#nextScanSample + period, hopEnd + 1);
       const seq = this.#scanSeq++;
       p.meta[o + META_SCAN_SEQ] = seq;
-      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags, scanMs: 0 });
+      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags, scanMs: 0, due: this.#dueBeams });
     } else if (hopEnd >= this.#nextScanSample) {
       this.scansDeferred++;
     }
@@ -518,8 +537,8 @@ export class Engine {
     };
     if ((pend.flags & FLAG_BEAMS) !== 0) {
       const slotBase = (w: number) => (w * RESULT_SLOTS + r) * resultStride(R, p.weightDoubles);
-      this.#beams.combine(m.beams, p.results, (w) => slotBase(w) + 2 * R, W, D, p.bins);
-      this.#audio.setWeights(m.beams, p.results, (w) => slotBase(w) + 2 * R + MAX_BEAMS * (R + 1), p.weightDoubles, p.ranges);
+      this.#beams.combine(m.beams, p.results, (w) => slotBase(w) + 2 * R, W, D, p.bins, pend.due);
+      this.#audio.setWeights(m.beams, p.results, (w) => slotBase(w) + 2 * R + MAX_BEAMS * (R + 1), p.weightDoubles, p.ranges, pend.due);
     }
     const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? toDb(0) : null;
     const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? toDb(1) : null;

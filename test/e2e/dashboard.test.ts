@@ -2,13 +2,16 @@
  * The dashboard in a real browser (Debian's chromium driven by playwright-core, headless, loopback
  * only) against a real server fed by the simulator.
  */
-import { existsSync } from 'node:fs';
+import { existsSync, mkdtempSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { chromium, type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { loadConfig } from '../../server/config/load.ts';
 import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
 
 const CHROMIUM = '/usr/bin/chromium';
+const RECORDINGS = mkdtempSync(join(tmpdir(), 'nullsteer-e2e-rec-'));
 const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
 const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
 if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
@@ -20,7 +23,7 @@ let page: Page;
 const problems: string[] = [];
 
 async function start(httpPort: number): Promise<Service> {
-  const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort }, engine: { workers: 2 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 } }] });
+  const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort }, engine: { workers: 2 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 }, outputs: { dir: RECORDINGS } }] });
   return startService(loaded);
 }
 
@@ -113,6 +116,18 @@ describe.skipIf(!available)('dashboard in a browser', () => {
     await expect
       .poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/beams`)).json()) as any).beams.map((b: any) => b.azimuthDeg), { timeout: 3000 })
       .toEqual(expect.arrayContaining([expect.closeTo(target, 0)]));
+  });
+
+  it('records from the panel: Record starts a recording on the server, Stop ends it', async () => {
+    await page.getByTestId('record-toggle').click();
+    await expect.poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/recording`)).json()) as any).recording, { timeout: 3000 }).toBe(true);
+    await page.getByTestId('record-status').waitFor({ timeout: 3000 });
+    await page.waitForTimeout(600);
+    await page.getByTestId('record-toggle').click();
+    await expect.poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/recording`)).json()) as any).recording, { timeout: 3000 }).toBe(false);
+    const st: any = await (await fetch(`http://127.0.0.1:${port}/api/recording`)).json();
+    expect(st.files.length).toBeGreaterThanOrEqual(1);
+    expect(st.frames).toBeGreaterThan(0);
   });
 
   it('reconnects by itself after a server restart, showing offline meanwhile', { timeout: 60_000 }, async () => {

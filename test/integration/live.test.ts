@@ -129,6 +129,15 @@ describe('live server', () => {
     // (band-averaged response; the τ = 0.03 s memory set above keeps the estimate noisy).
     const cart = Math.min(...got.responseDb.slice(50, 100));
     expect(cart).toBeLessThan(-6);
+    // Changed live: gain, limiter and weight update rate; look direction too.
+    const patch = await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'PATCH', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ gainDb: -6, limiter: false, updateEvery: 2, azimuthDeg: 38 }) });
+    expect(patch.status).toBe(200);
+    expect(await patch.json()).toMatchObject({ id: beam.id, azimuthDeg: 38, gainDb: -6, limiter: false, updateEvery: 2 });
+    const list: any = await (await fetch(`${svc.url}/api/beams`)).json();
+    expect(list.audioLatencyS).toBeCloseTo(256 / 48000, 12); // WOLA latency N − hop (Allen & Rabiner 1977)
+    const badPatch = await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'PATCH', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ gainDb: 99 }) });
+    expect(badPatch.status).toBe(400);
+    expect(((await badPatch.json()) as any).error.message).toBe('gainDb: 99 out of range; allowed a number -60–40');
     const bad = await fetch(`${svc.url}/api/beams`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ azimuthDeg: 'north' }) });
     expect(bad.status).toBe(400);
     expect(((await bad.json()) as any).error.message).toMatch(/^azimuthDeg: "north" out of range/);

@@ -76,5 +76,20 @@ export const getStatus = (): Promise<ApiResult<Record<string, unknown>>> => requ
 export const getBeams = (): Promise<ApiResult<{ beams: Beam[] }>> => request('GET', '/api/beams');
 export const addBeam = (beam: NewBeam): Promise<ApiResult<Beam>> => request('POST', '/api/beams', beam);
 /** `PUT /api/channels/mask`: exclude these channels from processing (`[]` uses all). */
+export interface RecordingStatus {
+  recording: boolean;
+  frames: number;
+  bytes: number;
+  files: { track: string; wav: string; frames: number; closed: boolean }[];
+  error: { code: string; message: string } | null;
+}
+export interface RecordingRequest {
+  raw?: boolean;
+  beams?: boolean;
+  encoding?: 'int16' | 'int24' | 'float32';
+}
+export const getRecording = (): Promise<ApiResult<RecordingStatus>> => request('GET', '/api/recording');
+export const startRecording = (r: RecordingRequest): Promise<ApiResult<RecordingStatus>> => request('POST', '/api/recording', r);
+export const stopRecording = (): Promise<ApiResult<RecordingStatus>> => request('DELETE', '/api/recording');
 export const setChannelMask = (masked: number[]): Promise<ApiResult<{ channels: unknown[] }>> => request('PUT', '/api/channels/mask', { masked });
 export const removeBeam = (id: Beam['id']): Promise<ApiResult<void>> => request('DELETE', `/api/beams/${encodeURIComponent(String(id))}`);
