@@ -242,6 +242,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
           prefix: 'nullsteer',
           encoding: r.encoding,
           rotateSeconds: r.rotateSeconds ?? undefined,
+          rotateBytes: r.rotateBytes ?? undefined,
           meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind } },
         });
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });

@@ -68,6 +68,9 @@ describe('recording and stream out', () => {
     const bad = await json(`${base}/api/recording`, { method: 'POST', body: JSON.stringify({ encoding: 'int8' }) });
     expect(bad.status).toBe(400);
     expect(bad.body.error.message).toMatch(/^encoding: "int8" not allowed/);
+    const badRot = await json(`${base}/api/recording`, { method: 'POST', body: JSON.stringify({ rotateBytes: 10 }) });
+    expect(badRot.status).toBe(400);
+    expect(badRot.body.error.message).toMatch(/^rotateBytes: 10 out of range/);
 
     const udp = createSocket('udp4');
     sockets.push(udp);

@@ -1,6 +1,6 @@
 /**
  * Recording: `GET /api/recording` (status), `POST /api/recording` { raw?, beams?, encoding?,
- * rotateSeconds? } starts one, `DELETE /api/recording` stops it and answers the final status. The
+ * rotateSeconds?, rotateBytes? } starts one, `DELETE /api/recording` stops it and answers the final status. The
  * folder is the configured `outputs.dir`; a request cannot choose another.
  */
 import type { FastifyPluginAsync } from 'fastify';
@@ -11,6 +11,7 @@ export interface RecordingRequest {
   beams: boolean;
   encoding: 'int16' | 'int24' | 'float32';
   rotateSeconds: number | null;
+  rotateBytes: number | null;
 }
 
 export interface RecordingController {
@@ -24,7 +25,7 @@ const bad = (d: string) => new HttpError('ERR_HTTP_VALIDATION', { detail: d });
 export function parseRecordingRequest(body: unknown): RecordingRequest {
   const o = (body ?? {}) as Record<string, unknown>;
   if (typeof o !== 'object' || Array.isArray(o)) throw bad('(body): must be a JSON object');
-  for (const k of Object.keys(o)) if (!['raw', 'beams', 'encoding', 'rotateSeconds'].includes(k)) throw bad(`${k}: unknown field; known: raw, beams, encoding, rotateSeconds`);
+  for (const k of Object.keys(o)) if (!['raw', 'beams', 'encoding', 'rotateSeconds', 'rotateBytes'].includes(k)) throw bad(`${k}: unknown field; known: raw, beams, encoding, rotateSeconds, rotateBytes`);
   const raw = o.raw ?? true;
   const beams = o.beams ?? true;
   const encoding = o.encoding ?? 'float32';
@@ -34,7 +35,11 @@ export function parseRecordingRequest(body: unknown): RecordingRequest {
   if (!raw && !beams) throw bad('raw, beams: at least one must be true');
   if (encoding !== 'int16' && encoding !== 'int24' && encoding !== 'float32') throw bad(`encoding: ${JSON.stringify(encoding)} not allowed; allowed int16, int24, float32`);
   if (rotateSeconds !== null && (typeof rotateSeconds !== 'number' || !(rotateSeconds >= 1 && rotateSeconds <= 86400))) throw bad(`rotateSeconds: ${JSON.stringify(rotateSeconds)} out of range; allowed 1–86400 or null`);
-  return { raw, beams, encoding, rotateSeconds: rotateSeconds as number | null };
+  const rotateBytes = o.rotateBytes ?? null;
+  if (rotateBytes !== null && (typeof rotateBytes !== 'number' || !Number.isInteger(rotateBytes) || rotateBytes < 1 << 20 || rotateBytes > 0xffffffff - 4096)) {
+    throw bad(`rotateBytes: ${JSON.stringify(rotateBytes)} out of range; allowed an integer 1048576–${0xffffffff - 4096} or null`);
+  }
+  return { raw, beams, encoding, rotateSeconds: rotateSeconds as number | null, rotateBytes: rotateBytes as number | null };
 }
 
 export function recordingRoutes(c: RecordingController): FastifyPluginAsync {
