@@ -205,6 +205,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     status,
     logger: opts.logger,
     token: config.server.token,
+    openStatus: config.access.openStatus,
+    rateLimit: config.access.controlRatePerS > 0 ? { perS: config.access.controlRatePerS, burst: config.access.controlBurst } : null,
     processing: {
       get: () => eng.params,
       apply: async (next) => {

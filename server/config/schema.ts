@@ -26,6 +26,14 @@ export const CONFIG_SCHEMA: FieldSpec = {
         token: { kind: 'string', nullable: true, maxLength: 256, pattern: /^[\x21-\x7e]{16,}$/, patternDoc: 'at least 16 printable ASCII characters, no spaces', doc: 'Access token for changing anything; required when host is not loopback.' },
       },
     },
+    access: {
+      kind: 'object',
+      fields: {
+        openStatus: { kind: 'bool', doc: 'With server.token set: true = read-only GETs under /api stay open; false = they need the token too (the dashboard page and /assets stay open).' },
+        controlRatePerS: { kind: 'number', min: 0, max: 100000, doc: 'Mutating REST requests per second allowed per client IP (token bucket); more get 429 with Retry-After. 0 = no limit.' },
+        controlBurst: { kind: 'int', min: 1, max: 100000, doc: 'Mutating REST requests a client IP may send at once before the rate applies (bucket size).' },
+      },
+    },
     source: {
       kind: 'object',
       fields: {
@@ -122,6 +130,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
 /** The validated configuration. */
 export interface Config {
   server: { host: string; httpPort: number; token: string | null };
+  access: { openStatus: boolean; controlRatePerS: number; controlBurst: number };
   source: { kind: 'simulator' | 'network' };
   array: { file: string };
   input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null };

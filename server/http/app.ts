@@ -29,6 +29,18 @@ export interface AppDeps {
    * `Authorization: Bearer <token>`, else 401 ERR_HTTP_UNAUTHORIZED. null/absent: no check.
    */
   token?: string | null;
+  /**
+   * Only with a token: true (default) leaves GET/HEAD under /api open; false makes them need the
+   * token too. The dashboard page (`/`) and `/assets` stay open either way. (The WebSocket
+   * upgrades do not pass through fastify and are not covered by this check.)
+   */
+  openStatus?: boolean;
+  /**
+   * Token bucket per client IP on mutating requests: `perS` refill, `burst` size; beyond it 429
+   * ERR_HTTP_RATE_LIMITED with Retry-After. Default 20/s, burst 40; null or perS 0: no limit.
+   * `now` (ms clock) is for tests.
+   */
+  rateLimit?: { perS: number; burst: number; now?: () => number } | null;
   /** fastify logger setting; false in tests. */
   logger?: boolean | object;
 }
@@ -43,17 +55,79 @@ function tokenMatches(header: string | undefined, digest: Buffer): boolean {
 }
 
 export const BODY_LIMIT_BYTES = 65536;
+export const DEFAULT_RATE_LIMIT = { perS: 20, burst: 40 } as const;
+/** Buckets kept at most; beyond it, refilled buckets are dropped first, then the oldest. */
+const MAX_BUCKETS = 4096;
+
+/** A token bucket per key (client IP). `take` answers 0 when allowed, else the seconds to wait. */
+export function tokenBuckets(perS: number, burst: number, now: () => number) {
+  const buckets = new Map<string, { tokens: number; t: number }>();
+  const refill = (b: { tokens: number; t: number }, t: number) => {
+    b.tokens = Math.min(burst, b.tokens + ((t - b.t) / 1000) * perS);
+    b.t = t;
+  };
+  return {
+    get size() {
+      return buckets.size;
+    },
+    take(key: string): number {
+      const t = now();
+      let b = buckets.get(key);
+      if (!b) {
+        if (buckets.size >= MAX_BUCKETS) {
+          for (const [k, v] of buckets) {
+            refill(v, t);
+            if (v.tokens >= burst) buckets.delete(k);
+          }
+          for (const k of buckets.keys()) {
+            if (buckets.size < MAX_BUCKETS / 2) break;
+            buckets.delete(k);
+          }
+        }
+        b = { tokens: burst, t };
+        buckets.set(key, b);
+      } else refill(b, t);
+      if (b.tokens >= 1) {
+        b.tokens -= 1;
+        return 0;
+      }
+      return (1 - b.tokens) / perS;
+    },
+  };
+}
 
 export function buildApp(deps: AppDeps): FastifyInstance {
   // forceCloseConnections: close() must not wait for a browser's idle keep-alive sockets.
   const app = Fastify({ logger: deps.logger ?? false, bodyLimit: BODY_LIMIT_BYTES, forceCloseConnections: true });
 
+  // Rate limit first, so that guessing the token is limited too.
+  const rl = deps.rateLimit === undefined ? DEFAULT_RATE_LIMIT : deps.rateLimit;
+  if (rl && rl.perS > 0) {
+    if (!(rl.perS > 0 && Number.isFinite(rl.perS)) || !(Number.isInteger(rl.burst) && rl.burst >= 1)) throw new RangeError('rateLimit needs perS > 0 and an integer burst ≥ 1');
+    const buckets = tokenBuckets(rl.perS, rl.burst, 'now' in rl && rl.now ? rl.now : () => performance.now());
+    app.addHook('onRequest', async (req, reply) => {
+      if (READ_ONLY_METHODS.has(req.method)) return;
+      const waitS = buckets.take(req.ip);
+      if (waitS === 0) return;
+      const retryS = Math.max(1, Math.ceil(waitS));
+      void reply.header('Retry-After', String(retryS));
+      throw new HttpError('ERR_HTTP_RATE_LIMITED', { perS: rl.perS, burst: rl.burst, retryS });
+    });
+  }
+
   if (deps.token !== undefined && deps.token !== null) {
     if (typeof deps.token !== 'string' || deps.token.length === 0 || /\s/.test(deps.token)) throw new RangeError('token must be a non-empty string without whitespace');
     const digest = createHash('sha256').update(deps.token).digest();
+    const closedReads = deps.openStatus === false;
     // onRequest: refused before the body is read or parsed.
     app.addHook('onRequest', async (req, reply) => {
-      if (READ_ONLY_METHODS.has(req.method)) return;
+      if (READ_ONLY_METHODS.has(req.method)) {
+        // The matched route's pattern, not the raw URL (which may be percent-encoded); a request
+        // that matches no route counts as under /api.
+        const route = req.routeOptions.url;
+        const open = route !== undefined && route !== '/api' && !route.startsWith('/api/');
+        if (!closedReads || req.method === 'OPTIONS' || open) return;
+      }
       if (tokenMatches(req.headers.authorization, digest)) return;
       void reply.header('WWW-Authenticate', 'Bearer realm="nullsteer"');
       throw new HttpError('ERR_HTTP_UNAUTHORIZED', { method: req.method, url: req.url.split('?')[0] });
