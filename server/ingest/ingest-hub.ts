@@ -5,7 +5,9 @@
  *
  * Limits and policies: at most `maxStreams` stream ids are tracked; when full, a stream that never
  * had a frame accepted is forgotten to make room, otherwise the new id's frames are rejected
- * (`too_many_streams`). Only the selected stream (config input.streamId, or the first stream with
+ * (`too_many_streams`); the per-stream reject counts of a forgotten stream move to the hub-wide
+ * `rejected` counters under the same reasons, so every refused message stays counted exactly once.
+ * Only the selected stream (config input.streamId, or the first stream with
  * an accepted frame) feeds the block sink; the others are sequenced and counted so status shows them.
  */
 import { decodeFrame, decodeSamples, FRAME_REJECT_REASONS, type SampleEncoding } from '../../shared/frame.ts';
@@ -101,7 +103,8 @@ class StreamState {
 }
 
 export class IngestHub {
-  readonly rejected = zeroCounts(INGEST_REJECT_REASONS);
+  /** Messages refused before reaching a stream, plus the stream rejects of streams forgotten to make room. */
+  readonly rejected: Record<IngestRejectReason | StreamRejectReason, number> = { ...zeroCounts(INGEST_REJECT_REASONS), ...zeroCounts(STREAM_REJECT_REASONS) };
   lastRejected: RejectNote | null = null;
   messages = 0;
   readonly #opts: IngestHubOptions;
@@ -213,6 +216,8 @@ export class IngestHub {
       const idle = [...this.#streams.values()].find((s) => s.sequencer.counters.framesAccepted === 0 && s.sequencer.heldFrames === 0);
       if (!idle) return null;
       this.#streams.delete(idle.streamId);
+      // Keep its counts: the messages were refused and must stay counted once.
+      for (const r of STREAM_REJECT_REASONS) this.rejected[r] += r === 'out_of_range' ? idle.sequencer.counters.outOfRange : idle.rejected[r];
     }
     const st = new StreamState(id, transport, remote, () =>
       new Sequencer(id, this.#opts.sampleRateHz, this.#opts.channels, this.#opts.sequencer, (block) => {

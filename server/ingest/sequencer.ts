@@ -99,6 +99,8 @@ export class Sequencer {
   #nextSeq = 0;
   /** Highest sequence number seen so far (for out-of-order detection). */
   #maxSeq = 0;
+  /** End (exclusive) of the furthest frame position seen so far (−∞ before the first frame). */
+  #maxEnd = -Infinity;
   #held: Held[] = [];
   #pendingDiscontinuity = false;
   #resyncCandidate: SequencedFrame | null = null;
@@ -160,9 +162,12 @@ export class Sequencer {
       c.framesDuplicated++;
       return;
     }
-    // Reordered: its sequence number is below one seen before it (the RFC 4737 sense).
-    if (seqDiff(frame.sequence, this.#maxSeq) < 0) c.framesReordered++;
+    // Reordered: its sequence number is below one seen before it (the RFC 4737 sense). A frame that
+    // lands beyond every position seen so far is in order whatever its number: a sequence that went
+    // backwards there is a sender that reset its counter (placement is by sample index).
+    if (seqDiff(frame.sequence, this.#maxSeq) < 0 && start < this.#maxEnd) c.framesReordered++;
     else this.#maxSeq = frame.sequence;
+    if (end > this.#maxEnd) this.#maxEnd = end;
     held.splice(i, 0, { ...frame, arrivedMs: nowMs });
     if (this.#next < 0) {
       if (held.length > this.#opts.reorderWindowFrames) this.#start();
@@ -173,11 +178,43 @@ export class Sequencer {
   }
 
   #start(): void {
+    this.#keepOpeningRun();
     const head = this.#held[0];
     this.#next = head.firstSample;
     this.#nextSeq = head.sequence;
     this.#drain();
     while (this.#held.length > this.#opts.reorderWindowFrames) this.#fillToHead();
+  }
+
+  /**
+   * The opening frames were held without a clock to check them against. Split them (sorted by
+   * position) where consecutive positions are more than maxGapSamples apart and keep the run with
+   * the most frames (on a tie, the one holding the first arrival); the others are far-off frames,
+   * dropped as out_of_range. Without this one stray frame among the first would be zero-filled up to.
+   */
+  #keepOpeningRun(): void {
+    const held = this.#held;
+    if (held.length < 2) return;
+    let best = { from: 0, to: 0, first: Infinity };
+    let from = 0;
+    let first = held[0].arrivedMs;
+    for (let i = 1; i <= held.length; i++) {
+      if (i === held.length || held[i].firstSample - held[i - 1].firstSample > this.#opts.maxGapSamples) {
+        const len = i - from;
+        const bestLen = best.to - best.from;
+        if (len > bestLen || (len === bestLen && first < best.first)) best = { from, to: i, first };
+        from = i;
+        if (i < held.length) first = held[i].arrivedMs;
+      } else if (held[i].arrivedMs < first) first = held[i].arrivedMs;
+    }
+    const dropped = held.length - (best.to - best.from);
+    if (dropped === 0) return;
+    this.counters.outOfRange += dropped;
+    held.splice(best.to);
+    held.splice(0, best.from);
+    const last = held[held.length - 1];
+    this.#maxSeq = last.sequence;
+    this.#maxEnd = last.firstSample + last.frames;
   }
 
   /** Release frames that waited longer than the hold time. Call periodically. */
@@ -211,6 +248,7 @@ export class Sequencer {
       this.#next = cand.firstSample;
       this.#nextSeq = cand.sequence;
       this.#maxSeq = frame.sequence;
+      this.#maxEnd = frame.firstSample + frame.frames;
       this.#pendingDiscontinuity = true;
       this.#resyncCandidate = null;
       this.#held.push({ ...cand, arrivedMs: nowMs }, { ...frame, arrivedMs: nowMs });
@@ -252,7 +290,13 @@ export class Sequencer {
   #fillToHead(): void {
     const head = this.#held[0];
     const missing = head.firstSample - this.#next;
-    if (missing > 0) {
+    if (missing > this.#opts.maxGapSamples) {
+      // Never zero-fill a jump beyond maxGapSamples (it could be up to 2^53 samples): treat it as a
+      // resynchronisation instead. The checks in push() and #keepOpeningRun() keep this from happening.
+      this.counters.resyncs++;
+      this.#pendingDiscontinuity = true;
+      this.#next = head.firstSample;
+    } else if (missing > 0) {
       const c = this.counters;
       c.gaps++;
       c.gapSamples += missing;

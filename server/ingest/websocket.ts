@@ -24,7 +24,9 @@ export interface WebSocketIngest {
 }
 
 export function createWebSocketIngest(hub: IngestHub, opts: WebSocketIngestOptions): WebSocketIngest {
-  const wss = new WebSocketServer({ noServer: true, maxPayload: opts.maxMessageBytes, perMessageDeflate: false });
+  // skipUTF8Validation: a text message is refused as not_binary whatever its bytes; validating them
+  // would close the connection (1007) on invalid UTF-8 without counting the message.
+  const wss = new WebSocketServer({ noServer: true, maxPayload: opts.maxMessageBytes, perMessageDeflate: false, skipUTF8Validation: true });
   const open = new Set<WebSocket>();
   wss.on('connection', (ws: WebSocket, req: IncomingMessage) => {
     open.add(ws);
