@@ -5,57 +5,15 @@
  * test/fixtures/dsp/README.md). Acceptance tolerance: 1e-6 relative on linear powers, weights, WNG
  * and δ; peak positions 1e-6°, peak levels 1e-6 dB. Measured worst errors are noted beside the checks.
  */
-import { readFileSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
 import { CovarianceBank } from '../../server/dsp/covariance.ts';
 import { PeakFinder, type Peak } from '../../server/dsp/peaks.ts';
 import { SpectrumScanner, combineBroadband, powerToDb } from '../../server/dsp/spectrum.ts';
 import { SteeringTable, directionGrid } from '../../server/dsp/steering.ts';
 import { BeamWeights, beamResponse, createWeightResult } from '../../server/dsp/weights.ts';
+import { loadDspFixture, type PeakKey } from '../helpers/dsp-fixture.ts';
 
-interface FixtureGrid {
-  nAz: number;
-  nEl: number;
-  azimuthStartDeg: number;
-  azimuthStepDeg: number;
-  elevationStartDeg: number;
-  elevationStepDeg: number;
-  circularAzimuth: boolean;
-  azimuthDeg: number[];
-  elevationDeg: number[];
-}
-interface BroadbandSpectra {
-  linear: number[];
-  db: number[];
-  normalisedLinear: number[];
-  normalisedDb: number[];
-}
-type PeakKey = 'conventional' | 'mvdr' | 'conventionalNormalised' | 'mvdrNormalised';
-interface FixtureScenario {
-  name: string;
-  covarianceKind: 'model' | 'sample';
-  positionsM: [number, number, number][];
-  speedOfSoundMPerS: number;
-  freqsHz: number[];
-  grid: FixtureGrid;
-  loadingRatio: number;
-  loading: number[];
-  covariance: number[][];
-  conventional: number[][];
-  mvdr: number[][];
-  broadband: { conventional: BroadbandSpectra; mvdr: BroadbandSpectra };
-  look: { azimuthDeg: number; elevationDeg: number };
-  weights: number[][];
-  wng: { linear: number[]; db: number[] };
-  beamResponse: { linear: number[][]; db: number[][] };
-  peaks: { thresholdDb: number; maxPeaks: number } & Record<PeakKey, Peak[]>;
-}
-interface Fixture {
-  note: string;
-  scenarios: FixtureScenario[];
-}
-
-const fixture = JSON.parse(readFileSync(new URL('../fixtures/dsp/spectra.json', import.meta.url), 'utf8')) as Fixture;
+const fixture = loadDspFixture();
 
 /** Acceptance tolerance, relative, on linear quantities. */
 const REL_TOL = 1e-6;

@@ -10,46 +10,11 @@ import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, describe, expect, it } from 'vitest';
 import { PeakFinder, type Peak, type PeakFinderOptions } from '../../server/dsp/peaks.ts';
+import { DSP_FIXTURE_DIR, loadDspFixture } from '../helpers/dsp-fixture.ts';
 
-const FIXTURES = fileURLToPath(new URL('../fixtures/dsp/', import.meta.url));
+const FIXTURES = fileURLToPath(DSP_FIXTURE_DIR);
 
-type FixturePeak = Peak;
-interface FixtureGrid {
-  nAz: number;
-  nEl: number;
-  azimuthStartDeg: number;
-  azimuthStepDeg: number;
-  elevationStartDeg: number;
-  elevationStepDeg: number;
-  circularAzimuth: boolean;
-  azimuthDeg: number[];
-  elevationDeg: number[];
-}
-interface BroadbandSpectra {
-  linear: number[];
-  db: number[];
-  normalisedLinear: number[];
-  normalisedDb: number[];
-}
-interface FixtureScenario {
-  name: string;
-  grid: FixtureGrid;
-  broadband: { conventional: BroadbandSpectra; mvdr: BroadbandSpectra };
-  peaks: {
-    thresholdDb: number;
-    maxPeaks: number;
-    conventional: FixturePeak[];
-    mvdr: FixturePeak[];
-    conventionalNormalised: FixturePeak[];
-    mvdrNormalised: FixturePeak[];
-  };
-}
-interface Fixture {
-  note: string;
-  scenarios: FixtureScenario[];
-}
-
-const fixture = JSON.parse(readFileSync(join(FIXTURES, 'spectra.json'), 'utf8')) as Fixture;
+const fixture = loadDspFixture();
 
 /** A 1-D azimuth grid 0…(nAz−1)·step, with overrides. */
 function line(nAz: number, over: Partial<PeakFinderOptions> = {}): PeakFinder {
