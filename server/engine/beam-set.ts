@@ -7,7 +7,7 @@
 import type { DirectionGrid } from '../dsp/steering.ts';
 import { MAX_BEAMS, type BeamSpec } from './protocol.ts';
 
-/** Beams are recomputed on every BEAM_EVERY-th spectrum scan (their weights change slowly). */
+/** Default `updateEvery`: a beam gets new weights every BEAM_EVERY-th spectrum row (weights change slowly). */
 export const BEAM_EVERY = 4;
 
 export interface BeamState {

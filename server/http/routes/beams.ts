@@ -4,20 +4,11 @@
  * nearest direction of the scan grid.
  */
 import type { FastifyPluginAsync } from 'fastify';
+import type { BeamState } from '../../engine/beam-set.ts';
 import { HttpError } from '../errors.ts';
 
-export interface BeamView {
-  id: number;
-  azimuthDeg: number;
-  elevationDeg: number;
-  method: 'mvdr' | 'delay-and-sum';
-  gainDb: number;
-  limiter: boolean;
-  updateEvery: number;
-  wngDb: number | null;
-  responseDb: number[] | null;
-  updatedAtMs: number | null;
-}
+/** A beam as the API shows it: the engine's own record (engine/beam-set.ts). */
+export type BeamView = BeamState;
 
 export interface BeamsController {
   list(): readonly BeamView[];
