@@ -80,3 +80,16 @@ export function frameScheduler(fn: () => void): { request: () => void; cancel: (
     },
   };
 }
+
+/**
+ * Call `onResize` whenever `el` changes size; the returned cleanup stops watching and calls
+ * `onStop` (e.g. cancel a pending frame). Meant as the return value of a Svelte `$effect`.
+ */
+export function watchResize(el: Element, onResize: () => void, onStop: () => void): () => void {
+  const ro = new ResizeObserver(onResize);
+  ro.observe(el);
+  return () => {
+    ro.disconnect();
+    onStop();
+  };
+}
