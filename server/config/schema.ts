@@ -104,7 +104,9 @@ export const CONFIG_SCHEMA: FieldSpec = {
       fields: {
         path: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'WebSocket path of the live rows.' },
         maxClients: { kind: 'int', min: 1, max: 1024, doc: 'Dashboard connections at once; more get HTTP 503.' },
-        maxBufferedBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Per-client send backlog above which rows to that client are dropped (counted).' },
+        maxBufferedBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Per-client socket backlog above which rows to that client wait in its queue instead.' },
+        queueRows: { kind: 'int', min: 1, max: 4096, doc: 'Rows a backlogged client may have waiting; beyond it its oldest are dropped (counted for it).' },
+        slowClientTimeoutMs: { kind: 'int', min: 100, max: 600000, doc: 'A client backlogged this long without draining is closed with 1013.' },
       },
     },
     outputs: {
@@ -144,7 +146,7 @@ export interface Config {
   };
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
-  hub: { path: string; maxClients: number; maxBufferedBytes: number };
+  hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }

@@ -6,12 +6,15 @@
  * Limits and what happens when one is hit (every one counted in stats()):
  * - `maxClients` (32): a further upgrade is answered with HTTP 503 and no socket is opened.
  *   Connections still closing count until their socket has closed.
- * - `maxBufferedBytes` (1 MiB, the soft limit): while a client's `bufferedAmount` is above it, rows
- *   for that client are dropped (counted per client and in total). Others are unaffected: a send
- *   never waits. JSON messages are still sent, because they carry state (params, grid) that a
- *   dropped row does not.
+ * - `maxBufferedBytes` (1 MiB, the soft limit): while a client's socket `bufferedAmount` is above
+ *   it, what is sent to that client waits in its own queue instead of the socket. The queue holds
+ *   at most `queueRows` (64) rows: beyond that its oldest row is dropped (counted per client and in
+ *   total), so a client that catches up gets the newest rows, in order. JSON messages wait in the
+ *   same queue (order kept) and are not dropped for the row limit, because they carry state
+ *   (params, grid) that a dropped row does not; at most `queueRows` of them wait, beyond that the
+ *   oldest is dropped (counted). Others are unaffected: a send never waits.
  * - `maxBufferedBytes × 8` (the hard limit): above it, JSON messages are dropped too, so no client
- *   can hold more than that (plus one message) in server memory.
+ *   can hold more than that plus its queue in server memory.
  * - `slowClientTimeoutMs` (5000): a client above the soft limit continuously for longer than this
  *   is not slow but stalled; it is closed with 1013 ("try again later"). (The soft limit and not the
  *   hard one starts the clock: rows stop once the soft limit is passed, so a stalled client would
@@ -41,6 +44,7 @@ export const LIVE_DEFAULTS = {
   path: '/api/live',
   maxClients: 32,
   maxBufferedBytes: 1 << 20,
+  queueRows: 64,
   slowClientTimeoutMs: 5000,
   maxIncomingBytes: 4096,
   /** close(): how long clients get to answer the 1001 close frame before their sockets are destroyed. */
@@ -54,6 +58,7 @@ export interface LiveHubOptions {
   path?: string;
   maxClients?: number;
   maxBufferedBytes?: number;
+  queueRows?: number;
   slowClientTimeoutMs?: number;
   maxIncomingBytes?: number;
   closeGraceMs?: number;
@@ -79,6 +84,8 @@ export interface LiveClientStats {
   messagesDropped: number;
   bytesSent: number;
   bufferedBytes: number;
+  /** Rows and JSON messages waiting in this client's queue. */
+  queued: number;
 }
 
 export interface LiveHubStats {
@@ -86,7 +93,7 @@ export interface LiveHubStats {
   clients: number;
   /** Rows delivered (one per client per row). */
   rowsSent: number;
-  /** Rows not delivered to a client above the soft limit (one per client per row). */
+  /** Rows dropped from a backlogged client's full queue, oldest first (one per client per row). */
   rowsDropped: number;
   /** Payload bytes handed to sockets, rows and JSON. */
   bytesSent: number;
@@ -102,8 +109,14 @@ export interface LiveHubStats {
   closedProtocol: number;
 }
 
-interface Client extends Omit<LiveClientStats, 'bufferedBytes'> {
+/** What waits for a backlogged client: a row (binary) or a JSON message (text). */
+type Queued = Uint8Array | string;
+
+interface Client extends Omit<LiveClientStats, 'bufferedBytes' | 'queued'> {
   ws: WebSocket;
+  /** Waiting messages, oldest first; rows and texts each at most queueRows. */
+  queue: Queued[];
+  queuedRows: number;
   /** performance.now() when first seen above the soft limit in the current run, else -1. */
   overSinceMs: number;
   handle: LiveClient;
@@ -119,6 +132,7 @@ export class LiveHub {
   readonly maxClients: number;
   readonly maxBufferedBytes: number;
   readonly hardBufferedBytes: number;
+  readonly queueRows: number;
   readonly slowClientTimeoutMs: number;
   readonly maxIncomingBytes: number;
   readonly closeGraceMs: number;
@@ -141,6 +155,7 @@ export class LiveHub {
     this.maxClients = positiveInt('maxClients', opts.maxClients ?? LIVE_DEFAULTS.maxClients);
     this.maxBufferedBytes = positiveInt('maxBufferedBytes', opts.maxBufferedBytes ?? LIVE_DEFAULTS.maxBufferedBytes);
     this.hardBufferedBytes = this.maxBufferedBytes * HARD_LIMIT_FACTOR;
+    this.queueRows = positiveInt('queueRows', opts.queueRows ?? LIVE_DEFAULTS.queueRows);
     this.slowClientTimeoutMs = positiveInt('slowClientTimeoutMs', opts.slowClientTimeoutMs ?? LIVE_DEFAULTS.slowClientTimeoutMs);
     this.maxIncomingBytes = positiveInt('maxIncomingBytes', opts.maxIncomingBytes ?? LIVE_DEFAULTS.maxIncomingBytes);
     this.closeGraceMs = opts.closeGraceMs ?? LIVE_DEFAULTS.closeGraceMs;
@@ -181,6 +196,8 @@ export class LiveHub {
       messagesSent: 0,
       messagesDropped: 0,
       bytesSent: 0,
+      queue: [],
+      queuedRows: 0,
       overSinceMs: -1,
       handle: { id, remote, sendJson: (msg) => this.#sendText(c, stringifyServerMessage(msg)) },
     };
@@ -209,9 +226,11 @@ export class LiveHub {
     }
   }
 
-  /** Stop sending to `c` and close it with the catalogue's close code. */
+  /** Stop sending to `c` (its queue is let go) and close it with the catalogue's close code. */
   #drop(c: Client, code: Exclude<LiveErrorCode, 'ERR_LIVE_FULL'>): void {
     this.#clients.delete(c);
+    c.queue.length = 0;
+    c.queuedRows = 0;
     const e = LIVE_ERRORS[code];
     c.ws.close(e.closeCode, e.reason);
   }
@@ -232,11 +251,22 @@ export class LiveHub {
   }
 
   #checkStalled(now: number): void {
-    for (const c of this.#clients) this.#watch(c, c.ws.bufferedAmount, now);
+    for (const c of this.#clients) if (this.#watch(c, c.ws.bufferedAmount, now)) this.#flush(c);
   }
 
-  #sendText(c: Client, text: string): void {
-    if (c.ws.readyState !== c.ws.OPEN) return;
+  /** Hand queued messages to the socket, oldest first, while it is below the soft limit. */
+  #flush(c: Client): void {
+    while (c.queue.length > 0 && c.ws.readyState === c.ws.OPEN && c.ws.bufferedAmount <= this.maxBufferedBytes) {
+      const m = c.queue.shift()!;
+      if (typeof m === 'string') this.#write(c, m);
+      else {
+        c.queuedRows--;
+        this.#writeRow(c, m);
+      }
+    }
+  }
+
+  #write(c: Client, text: string): void {
     if (c.ws.bufferedAmount > this.hardBufferedBytes) {
       c.messagesDropped++;
       this.#totals.messagesDropped++;
@@ -250,6 +280,50 @@ export class LiveHub {
     this.#totals.bytesSent += n;
   }
 
+  #writeRow(c: Client, bytes: Uint8Array): void {
+    c.ws.send(bytes, { binary: true });
+    c.rowsSent++;
+    c.bytesSent += bytes.byteLength;
+    this.#totals.rowsSent++;
+    this.#totals.bytesSent += bytes.byteLength;
+  }
+
+  /** Drop the oldest queued message of the kind given (a row: `true`). */
+  #dropOldest(c: Client, row: boolean): void {
+    const i = c.queue.findIndex((m) => (typeof m !== 'string') === row);
+    if (i < 0) return;
+    c.queue.splice(i, 1);
+    if (row) {
+      c.queuedRows--;
+      c.rowsDropped++;
+      this.#totals.rowsDropped++;
+    } else {
+      c.messagesDropped++;
+      this.#totals.messagesDropped++;
+    }
+  }
+
+  /** Send now if nothing waits and the socket is below the soft limit; else queue (bounded). */
+  #offer(c: Client, m: Queued, now: number): void {
+    if (c.ws.readyState !== c.ws.OPEN) return;
+    const buffered = c.ws.bufferedAmount;
+    if (!this.#watch(c, buffered, now)) return;
+    if (c.queue.length > 0) this.#flush(c);
+    if (c.queue.length === 0 && c.ws.bufferedAmount <= this.maxBufferedBytes) {
+      if (typeof m === 'string') this.#write(c, m);
+      else this.#writeRow(c, m);
+      return;
+    }
+    const row = typeof m !== 'string';
+    if (row ? c.queuedRows >= this.queueRows : c.queue.length - c.queuedRows >= this.queueRows) this.#dropOldest(c, row);
+    c.queue.push(m);
+    if (row) c.queuedRows++;
+  }
+
+  #sendText(c: Client, text: string): void {
+    this.#offer(c, text, performance.now());
+  }
+
   /** Encode `row` once and send the same bytes to every client below the soft limit. */
   broadcastRow(row: SpectrumRowInput): void {
     this.#totals.rowsBroadcast++;
@@ -258,7 +332,7 @@ export class LiveHub {
 
   /**
    * Send an already encoded row (from shared/messages.ts encodeRow/encodeRowInto). The bytes are
-   * handed to every socket as they are: the caller must not overwrite them afterwards.
+   * handed to every socket (or client queue) as they are: the caller must not overwrite them afterwards.
    */
   broadcastRowBytes(bytes: Uint8Array): void {
     this.#totals.rowsBroadcast++;
@@ -267,22 +341,7 @@ export class LiveHub {
 
   #sendRow(bytes: Uint8Array): void {
     const now = performance.now();
-    const n = bytes.byteLength;
-    for (const c of this.#clients) {
-      if (c.ws.readyState !== c.ws.OPEN) continue;
-      const buffered = c.ws.bufferedAmount;
-      if (!this.#watch(c, buffered, now)) continue;
-      if (buffered > this.maxBufferedBytes) {
-        c.rowsDropped++;
-        this.#totals.rowsDropped++;
-        continue;
-      }
-      c.ws.send(bytes, { binary: true });
-      c.rowsSent++;
-      c.bytesSent += n;
-      this.#totals.rowsSent++;
-      this.#totals.bytesSent += n;
-    }
+    for (const c of this.#clients) this.#offer(c, bytes, now);
   }
 
   /** Stringify `msg` once and send it to every client (dropped only for those above the hard limit). */
@@ -307,6 +366,7 @@ export class LiveHub {
       messagesDropped: c.messagesDropped,
       bytesSent: c.bytesSent,
       bufferedBytes: c.ws.bufferedAmount,
+      queued: c.queue.length,
     }));
   }
 

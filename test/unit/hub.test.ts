@@ -109,7 +109,7 @@ describe('LiveHub', () => {
     expect(LIVE_ERRORS.ERR_LIVE_SLOW_CLIENT.closeCode).toBe(1013);
     const hub = new LiveHub();
     cleanups.push(() => hub.close());
-    expect([hub.path, hub.maxClients, hub.maxBufferedBytes, hub.hardBufferedBytes, hub.slowClientTimeoutMs]).toEqual(['/api/live', 32, 1 << 20, (1 << 20) * HARD_LIMIT_FACTOR, 5000]);
+    expect([hub.path, hub.maxClients, hub.maxBufferedBytes, hub.hardBufferedBytes, hub.queueRows, hub.slowClientTimeoutMs]).toEqual(['/api/live', 32, 1 << 20, (1 << 20) * HARD_LIMIT_FACTOR, 64, 5000]);
     expect(LIVE_DEFAULTS.path).toBe('/api/live');
     expect(() => new LiveHub({ maxClients: 0 })).toThrow(RangeError);
   });
@@ -161,7 +161,7 @@ describe('LiveHub', () => {
   });
 
   it('drops rows for a client that stops reading, never for a fast one, and closes the stalled one with 1013', async () => {
-    const { hub, url } = await setup({ maxBufferedBytes: 256 * 1024, slowClientTimeoutMs: 300 });
+    const { hub, url } = await setup({ maxBufferedBytes: 256 * 1024, queueRows: 4, slowClientTimeoutMs: 300 });
     const fast = await connect(url);
     const slow = await connect(url);
     await until(() => hub.stats().clients === 2);
@@ -187,7 +187,12 @@ describe('LiveHub', () => {
     expect(fastStats).toMatchObject({ rowsSent: sent, rowsDropped: 0 });
     const total = hub.stats();
     expect(total.rowsDropped).toBeGreaterThanOrEqual(5);
-    expect(total.rowsSent + total.rowsDropped).toBe(2 * sent);
+    // Every row offered to the slow one was sent, is waiting in its queue, or was dropped from it.
+    const slowNow = hub.clientStats().find((c) => c.id === slowId);
+    if (slowNow) {
+      expect(slowNow.queued).toBe(4); // queueRows, full: each further row pushes out the oldest
+      expect(total.rowsSent + total.rowsDropped + slowNow.queued).toBe(2 * sent);
+    }
 
     // Paused for longer than slowClientTimeoutMs: closed. The close frame is queued behind the
     // buffered rows, so the client sees it once it reads again.
@@ -204,6 +209,39 @@ describe('LiveHub', () => {
     await got;
     expect(fast.binary.length).toBe(sent + 1);
     expect(fast.ws.readyState).toBe(WebSocket.OPEN);
+  });
+
+  it('a backlogged client that catches up gets the newest rows in order: the oldest queued were dropped, JSON kept in place', async () => {
+    const { hub, url } = await setup({ maxBufferedBytes: 64 * 1024, queueRows: 3, slowClientTimeoutMs: 4000 });
+    const fast = await connect(url);
+    const slow = await connect(url);
+    await until(() => hub.stats().clients === 2);
+    const slowId = hub.clientStats()[1].id;
+    const sock = (slow.ws as unknown as { _socket: Socket })._socket;
+    sock.pause();
+    let sent = 0;
+    const queued = () => hub.clientStats().find((c) => c.id === slowId)!.queued;
+    while (queued() === 0) {
+      if (sent > 400) throw new Error('the paused client never queued');
+      const got = fast.next();
+      hub.broadcastRow(row(sent++, 10000, 2));
+      await got;
+    }
+    const direct = sent - 1; // rows 0 … direct-1 went to its socket; row `direct` is the first queued
+    for (let k = 0; k < 3; k++) hub.broadcastRow(row(sent++, 10000, 2));
+    hub.broadcastJson({ type: 'status', emittedAtMs: 7, status: { marker: true } });
+    for (let k = 0; k < 4; k++) hub.broadcastRow(row(sent++, 10000, 2));
+    const st = hub.clientStats().find((c) => c.id === slowId)!;
+    expect(st.queued).toBe(4); // 3 rows (the newest) and the JSON message
+    expect(st.rowsDropped).toBe(5); // 8 rows queued, 3 kept
+    sock.resume();
+    await until(() => slow.binary.length === direct + 3, 5000, 'the queue to be flushed');
+    const seqs = slow.binary.map((b) => b.readUInt32LE(8));
+    expect(seqs).toEqual([...Array.from({ length: direct }, (_, i) => i), sent - 3, sent - 2, sent - 1]);
+    expect(slow.text.map((t) => JSON.parse(t).emittedAtMs)).toEqual([7]);
+    expect(fast.binary.length).toBe(sent);
+    expect(hub.clientStats().find((c) => c.id === slowId)).toMatchObject({ queued: 0, rowsDropped: 5 });
+    expect(hub.stats()).toMatchObject({ rowsDropped: 5, closedSlow: 0 });
   });
 
   it('answers an upgrade beyond maxClients with HTTP 503, and admits again once one leaves', async () => {
