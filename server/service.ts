@@ -17,9 +17,10 @@ import { Engine } from './engine/engine.ts';
 import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
+import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { Recorder } from './outputs/recorder.ts';
 import { BeamStreamOut } from './outputs/stream-out.ts';
-import { resolve as resolvePath } from 'node:path';
+import { basename, resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
 import { IngestHub, RateMeter, type StreamStatus } from './ingest/ingest-hub.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
@@ -135,7 +136,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
   let recordBeams = false;
   const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
-  const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, onConnect: (c) => c.sendJson(hello()) });
+  const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, queueRows: config.hub.queueRows, slowClientTimeoutMs: config.hub.slowClientTimeoutMs, onConnect: (c) => c.sendJson(hello()) });
   const engineErrors: string[] = [];
   engine = await Engine.create({
     geometry,
@@ -184,7 +185,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       version: VERSION,
       uptimeS: (now - startedMs) / 1000,
       source: { kind: config.source.kind, ...(scene ? { scenario: scene.describe() } : {}) },
-      array: { name: geometry.name, file: arrayPath, channels },
+      // The file's name only: status may be open to anyone who can reach the port.
+      array: { name: geometry.name, file: basename(arrayPath), channels },
       input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
       listeners: {
         http: { host: config.server.host, port: httpPort },
@@ -197,10 +199,16 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       engine: { ...eng.status(), recentErrors: [...engineErrors] },
       channels: meters.levels(),
       live: live.stats(),
+      upgradesRefused: upgradeAuth.refused(),
       recording: { recording: recorder.recording, streamOut: streamOut.stats() },
     };
   };
 
+  const upgradeAuth = createUpgradeAuth({
+    token: config.server.token,
+    openStatus: config.access.openStatus,
+    paths: { [config.ingest.websocket.path]: 'control', [config.outputs.streamPath]: 'listen', [config.hub.path]: 'read' },
+  });
   const app = buildApp({
     status,
     logger: opts.logger,
@@ -263,7 +271,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   if (hub && config.ingest.websocket.enabled) {
     wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
   }
-  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, streamOut] : [live, streamOut]);
+  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, streamOut] : [live, streamOut], upgradeAuth.check);
 
   let httpPort = 0;
   try {

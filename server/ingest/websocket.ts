@@ -68,10 +68,18 @@ export function createWebSocketIngest(hub: IngestHub, opts: WebSocketIngestOptio
   };
 }
 
-/** Route HTTP upgrades to the handlers that claim them; others are refused with 404. */
-export function attachUpgrades(server: Server, handlers: { handleUpgrade(req: IncomingMessage, socket: Duplex, head: Buffer): boolean }[]): void {
+/**
+ * Route HTTP upgrades to the handlers that claim them; others are refused with 404. `admit`, when
+ * given, sees every upgrade first and answers the ones it refuses itself (http/upgrade-auth.ts).
+ */
+export function attachUpgrades(
+  server: Server,
+  handlers: { handleUpgrade(req: IncomingMessage, socket: Duplex, head: Buffer): boolean }[],
+  admit?: (req: IncomingMessage, socket: Duplex) => boolean,
+): void {
   server.on('upgrade', (req, socket, head) => {
     socket.on('error', () => socket.destroy());
+    if (admit && !admit(req, socket)) return;
     for (const h of handlers) if (h.handleUpgrade(req, socket, head)) return;
     socket.end('HTTP/1.1 404 Not Found\r\nConnection: close\r\nContent-Length: 0\r\n\r\n');
   });

@@ -6,9 +6,10 @@
 import { spawn } from 'node:child_process';
 import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import WebSocket from 'ws';
 import { buildApp } from '../../server/http/app.ts';
 import { CLIENT_DIST, type Service } from '../../server/service.ts';
-import { startTestService } from '../helpers/service.ts';
+import { getStatus, startTestService } from '../helpers/service.ts';
 
 const BIN = fileURLToPath(new URL('../../bin/nullsteer.mjs', import.meta.url));
 const ROOT = fileURLToPath(new URL('../../', import.meta.url));
@@ -18,7 +19,7 @@ const JSON_AUTH = { ...AUTH, 'content-type': 'application/json' };
 
 /**
  * Every error answer (status ≥ 400) seen here; checked at the end for stack frames and file paths.
- * (Successful reads are not checked: /api/status reports the array file's configured path.)
+ * (Status names the array file without its folder; checked on its own below.)
  */
 const seen: string[] = [];
 function noLeaks(text: string): void {
@@ -223,6 +224,71 @@ describe('access.openStatus false', () => {
     expect((await dflt.inject({ method: 'GET', url: '/api/status' })).statusCode).toBe(200);
     expect((await dflt.inject({ method: 'POST', url: '/api/status' })).statusCode).toBe(401);
     await dflt.close();
+  });
+});
+
+/** Open a WebSocket to `path`; resolves 'open' (then closes it) or the HTTP status of a refused upgrade. */
+function upgrade(svc: Service, path: string, headers: Record<string, string> = {}): Promise<number | 'open'> {
+  const ws = new WebSocket(`${svc.url.replace(/^http/, 'ws')}${path}`, { headers });
+  ws.on('error', () => undefined);
+  return new Promise((resolve) => {
+    ws.on('open', () => {
+      ws.terminate();
+      resolve('open');
+    });
+    ws.on('unexpected-response', (req, res) => {
+      resolve(res.statusCode ?? 0);
+      res.resume();
+      req.destroy();
+    });
+  });
+}
+
+describe('WebSocket upgrades with a token', () => {
+  it('ingest and beam audio always need it; the live rows only when status is closed; header or ?token= both work', async () => {
+    // Ingest changes what is processed and recorded; beam audio can carry speech: token always.
+    const open = await startTestService({ server: { token: TOKEN } });
+    try {
+      for (const path of ['/ingest', '/api/beams/audio']) {
+        expect(await upgrade(open, path), path).toBe(401);
+        expect(await upgrade(open, `${path}?token=wrong`), path).toBe(401);
+        expect(await upgrade(open, path, { authorization: 'Bearer wrong' }), path).toBe(401);
+        expect(await upgrade(open, `${path}?token=${TOKEN}`), path).toBe('open');
+        expect(await upgrade(open, path, AUTH), path).toBe('open');
+      }
+      expect(await upgrade(open, '/api/live')).toBe('open'); // openStatus (default true): like GET /api/status
+      expect(await upgrade(open, '/elsewhere')).toBe(404);
+      expect((await getStatus(open)).upgradesRefused).toEqual({ '/ingest': 3, '/api/beams/audio': 3 });
+    } finally {
+      await open.close();
+    }
+    const closed = await startTestService({ server: { token: TOKEN }, access: { openStatus: false } });
+    try {
+      expect(await upgrade(closed, '/api/live')).toBe(401);
+      expect(await upgrade(closed, '/api/live?token=nope')).toBe(401);
+      expect(await upgrade(closed, `/api/live?token=${encodeURIComponent(TOKEN)}`)).toBe('open'); // what the dashboard sends
+      expect(await upgrade(closed, '/api/live', AUTH)).toBe('open');
+    } finally {
+      await closed.close();
+    }
+    // No token configured (loopback only): nothing is checked.
+    const none = await startTestService();
+    try {
+      for (const path of ['/ingest', '/api/beams/audio', '/api/live']) expect(await upgrade(none, path), path).toBe('open');
+    } finally {
+      await none.close();
+    }
+  });
+
+  it('status names the array file without its folder', async () => {
+    const svc = await startTestService();
+    try {
+      const st = await getStatus(svc);
+      expect(st.array.file).toBe('square-4.json');
+      expect(JSON.stringify(st)).not.toContain(ROOT);
+    } finally {
+      await svc.close();
+    }
   });
 });
 

@@ -36,15 +36,20 @@ export interface NewBeam {
 
 let bearerToken: string | null = null;
 
-/** Token sent as `Authorization: Bearer …` with changes (servers bound beyond loopback need one). */
+/** Token sent as `Authorization: Bearer …` with every call (servers bound beyond loopback need one for changes, and for reads when status is closed). */
 export function setApiToken(token: string | null): void {
   bearerToken = token && token.length > 0 ? token : null;
+}
+
+/** The token set by setApiToken (the live socket carries it as `?token=`: browsers cannot set its headers). */
+export function apiToken(): string | null {
+  return bearerToken;
 }
 
 async function request<T>(method: string, path: string, body?: unknown): Promise<ApiResult<T>> {
   const headers: Record<string, string> = { accept: 'application/json' };
   if (body !== undefined) headers['content-type'] = 'application/json';
-  if (bearerToken && method !== 'GET') headers.authorization = `Bearer ${bearerToken}`;
+  if (bearerToken) headers.authorization = `Bearer ${bearerToken}`;
   let res: Response;
   try {
     res = await fetch(path, { method, headers, body: body === undefined ? undefined : JSON.stringify(body), cache: 'no-store' });

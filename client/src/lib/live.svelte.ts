@@ -19,7 +19,7 @@ import {
   type SpectrumRow,
   type StatusMessage,
 } from '../../../shared/messages.ts';
-import { getProcessing, type ProcessingState } from './api.ts';
+import { apiToken, getProcessing, type ProcessingState } from './api.ts';
 import { RowHistory } from './history.ts';
 
 export type ConnectionState = 'connecting' | 'online' | 'offline';
@@ -30,9 +30,10 @@ const RATE_WINDOW_MS = 1000;
 /** A row this much later than the quickest delivery seen is counted late (clock-offset free). */
 const LATE_MS = 500;
 
-/** ws:// or wss:// URL of `path` on the page's own origin. */
-export function liveUrl(path = '/api/live', loc: Location = location): string {
-  return `${loc.protocol === 'https:' ? 'wss:' : 'ws:'}//${loc.host}${path}`;
+/** ws:// or wss:// URL of `path` on the page's own origin, with `?token=` when a token is given. */
+export function liveUrl(path = '/api/live', loc: Location = location, token: string | null = apiToken()): string {
+  const q = token ? `?token=${encodeURIComponent(token)}` : '';
+  return `${loc.protocol === 'https:' ? 'wss:' : 'ws:'}//${loc.host}${path}${q}`;
 }
 
 function sameAxis(a: ArrayLike<number>, b: ArrayLike<number>): boolean {
