@@ -45,6 +45,18 @@ import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from '.
 
 export const RING_SLOTS = 64;
 const LATENCY_HISTORY = 2048;
+/** How many covariance restarts status() lists. */
+const RESTART_LOG = 16;
+
+/** One replaced worker's bins, restarted from an empty covariance at `sampleIndex` (status). */
+export interface CovarianceRestart {
+  worker: number;
+  firstBin: number;
+  bins: number;
+  /** One past the last sample of the latest hop published before the restart (-1: none yet). */
+  sampleIndex: number;
+  at: string;
+}
 /**
  * A row as the engine emits it: the dashboard's SpectrumRow (shared/messages.ts) with the dB spectra
  * as float32, plus the linear float64 powers and the latency.
@@ -140,6 +152,11 @@ export class Engine {
   readonly #scanWall = new Float64Array(LATENCY_HISTORY);
   #latencyCount = 0;
   #expected: number | null = null;
+  /** One past the last sample of the latest published hop (-1 before the first). */
+  #lastHopEnd = -1;
+  /** Bins whose covariance started over because their worker was replaced (most recent last). */
+  #restartLog: CovarianceRestart[] = [];
+  covarianceRestarts = 0;
 
   private constructor(opts: EngineOptions) {
     this.opts = opts;
@@ -147,11 +164,12 @@ export class Engine {
     this.#params = opts.params;
     this.#stft = new MultiChannelStft(this.channels, opts.params.fftSize);
     this.#active = Array(this.channels).fill(true);
-    this.#shedder = new LoadShedder(opts.shedPolicy ?? DEFAULT_SHED_POLICY);
+    this.#shedder = new LoadShedder(opts.shedPolicy ?? DEFAULT_SHED_POLICY, () => this.#lastHopEnd);
     const size = Math.max(1, Math.min(opts.workers, this.#bandBins(opts.params).count));
     this.#pool = new BinPool(size, {
       onScanned: (m) => this.#onScanned(m),
       onError: (i, message, replaced) => {
+        if (replaced) this.#noteRestart(i);
         opts.onError?.(`bin worker ${i} ${replaced ? 'failed and was replaced' : 'reported an error'}: ${message.split('\n')[0]}`);
       },
     });
@@ -376,6 +394,7 @@ export class Engine {
     const params = this.#params;
     const fs = this.opts.sampleRateHz;
     const hopEnd = hopStart + this.#stft.fftSize; // one past the frame's last sample
+    this.#lastHopEnd = hopEnd;
     const slot = p.writeSeq % RING_SLOTS;
     const o = slot * META_STRIDE;
     const dec = shedEffect(this.#shedder.step).covarianceDecimation;
@@ -628,6 +647,21 @@ export class Engine {
     this.#pool.broadcast({ type: 'mask', epoch: p.epoch, active: [...active] });
   }
 
+  /** A replaced worker's bins start from an empty covariance: keep which bins and from which sample. */
+  #noteRestart(i: number): void {
+    const p = this.#plan;
+    const r = p?.ranges[i];
+    if (!r) return;
+    this.covarianceRestarts++;
+    this.#restartLog.push({ worker: i, firstBin: p.startBin + r.start, bins: r.count, sampleIndex: this.#lastHopEnd, at: new Date().toISOString() });
+    if (this.#restartLog.length > RESTART_LOG) this.#restartLog.shift();
+  }
+
+  /** Test hook: end worker i's thread from outside (a crash, not a reported error). */
+  killWorker(i: number): void {
+    this.#pool.kill(i);
+  }
+
   /** Test hook: make worker i throw at its next hop (to prove replacement). */
   injectWorkerFault(i: number): void {
     this.#pool.send(i, { type: 'fault', message: `injected fault in worker ${i}` });
@@ -666,8 +700,9 @@ export class Engine {
       workerRestarts: this.#pool.restarts,
       workerErrors: this.#pool.errors,
       lastWorkerError: this.#pool.lastError,
+      covarianceRestarts: { count: this.covarianceRestarts, recent: [...this.#restartLog] },
       load: this.#shedder.load,
-      shed: { step: this.#shedder.step, changes: this.#shedder.changes, spectrumRateHz: this.#params.spectrumRateHz / eff.rateDivisor, gridCoarsening: eff.gridCoarsening, covarianceDecimation: eff.covarianceDecimation },
+      shed: { step: this.#shedder.step, changes: this.#shedder.changes, history: [...this.#shedder.history], spectrumRateHz: this.#params.spectrumRateHz / eff.rateDivisor, gridCoarsening: eff.gridCoarsening, covarianceDecimation: eff.covarianceDecimation },
       hops: this.hops,
       hopsSkipped: this.hopsSkipped,
       hopsDecimated: this.hopsDecimated,

@@ -117,6 +117,11 @@ export class BinPool {
     this.#plans.forEach(f);
   }
 
+  /** Test hook: end worker i's thread from outside, as a crash would (the exit handler replaces it). */
+  kill(i: number): void {
+    void this.#workers[i]?.terminate();
+  }
+
   send(i: number, m: ToWorker): void {
     this.#workers[i]?.postMessage(m);
   }

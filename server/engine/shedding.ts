@@ -35,6 +35,18 @@ export function shedEffect(step: number): ShedEffect {
   };
 }
 
+/** One change of step, for status: when (stream sample and wall clock), to what, and the load that caused it. */
+export interface ShedChange {
+  step: number;
+  from: number;
+  load: number;
+  sampleIndex: number;
+  at: string;
+}
+
+/** How many changes the history keeps (most recent last). */
+export const SHED_HISTORY = 32;
+
 export class LoadShedder {
   step = 0;
   load = 0;
@@ -43,9 +55,20 @@ export class LoadShedder {
   readonly policy: ShedPolicy;
   /** Changes of step so far (for status). */
   changes = 0;
+  /** The last SHED_HISTORY changes. */
+  readonly history: ShedChange[] = [];
+  readonly #sampleNow: () => number;
 
-  constructor(policy: ShedPolicy = DEFAULT_SHED_POLICY) {
+  /** `sampleNow` gives the stream position recorded with each change (default: -1, unknown). */
+  constructor(policy: ShedPolicy = DEFAULT_SHED_POLICY, sampleNow: () => number = () => -1) {
     this.policy = policy;
+    this.#sampleNow = sampleNow;
+  }
+
+  #record(from: number): void {
+    this.changes++;
+    this.history.push({ step: this.step, from, load: this.load, sampleIndex: this.#sampleNow(), at: new Date().toISOString() });
+    if (this.history.length > SHED_HISTORY) this.history.shift();
   }
 
   /** Feed one window's load (0…1+); returns true when the step changed. */
@@ -57,7 +80,7 @@ export class LoadShedder {
       if (++this.#above >= 2 && this.step < MAX_SHED_STEP) {
         this.step++;
         this.#above = 0;
-        this.changes++;
+        this.#record(this.step - 1);
         return true;
       }
     } else if (load < p.lowLoad) {
@@ -65,7 +88,7 @@ export class LoadShedder {
       if (++this.#below >= p.recoverWindows && this.step > 0) {
         this.step--;
         this.#below = 0;
-        this.changes++;
+        this.#record(this.step + 1);
         return true;
       }
     } else {
