@@ -3,6 +3,7 @@
  * listeners. main.ts starts one from the command line; integration tests start one in-process on
  * free loopback ports.
  */
+import { writeFileSync } from 'node:fs';
 import type { FastifyInstance } from 'fastify';
 import type { Server } from 'node:http';
 import { availableParallelism } from 'node:os';
@@ -18,6 +19,11 @@ import type { ProcessingParams } from './engine/params.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
+import { currentActor } from './http/actor.ts';
+import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
+import { PresetStore } from './session/presets.ts';
+import type { SessionController } from './http/routes/session.ts';
+import { patchParams } from './engine/params.ts';
 import { Recorder } from './outputs/recorder.ts';
 import { BeamStreamOut } from './outputs/stream-out.ts';
 import { basename, resolve as resolvePath } from 'node:path';
@@ -134,6 +140,17 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     };
   };
   const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
+  // The session's journal and presets, in the data folder (both survive a restart).
+  const dataDir = resolvePath(config.data.dir);
+  const journal = new ParameterJournal(dataDir);
+  if (journal.corruptLines > 0) process.emitWarning(`journal: ${journal.corruptLines} unreadable line(s) in ${config.data.dir}/journal.jsonl skipped`);
+  const presets = new PresetStore(resolvePath(dataDir, 'presets'), (p) => {
+    // A preset holds the full parameter set: checked like a PUT /api/processing body.
+    if (typeof p !== 'object' || p === null || Array.isArray(p)) throw new Error('params: not a JSON object');
+    return patchParams(engine!.params, p, { sampleRateHz: fs, hop: engine!.hop });
+  });
+  const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
+  let recordingStartSeq = 0;
   let recordBeams = false;
   const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
   const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, queueRows: config.hub.queueRows, slowClientTimeoutMs: config.hub.slowClientTimeoutMs, onConnect: (c) => c.sendJson(hello()) });
@@ -200,10 +217,57 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       channels: meters.levels(),
       live: live.stats(),
       upgradesRefused: upgradeAuth.refused(),
+      journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: recorder.recording, streamOut: streamOut.stats() },
     };
   };
 
+  /** Apply validated parameters: engine, recording sidecar, dashboards, journal. */
+  const applyParams = async (next: ProcessingParams, kind: JournalKind, label?: string): Promise<ProcessingParams> => {
+    const before = eng.params;
+    const applied = await eng.setParams(next);
+    if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
+    live.broadcastJson({ type: 'params', params: applied, derived: derived() });
+    const d = diffSummary(before, applied);
+    journalNote(kind, before, applied, label ? `${label}: ${d}` : d);
+    return applied;
+  };
+  /** Beside a finished recording: the journal entries of its span, `<prefix>-<time>-journal.json`. */
+  const exportJournal = (wavs: string[], fromSeq: number, toSeq: number): void => {
+    if (wavs.length === 0) return;
+    const name = wavs[0].replace(/-(raw|beams)-\d+\.wav$/, '-journal.json');
+    if (name === wavs[0]) return;
+    const entries = journal.query({ afterSeq: fromSeq - 1 }).filter((e) => e.seq <= toSeq);
+    try {
+      writeFileSync(resolvePath(config.outputs.dir, name), `${JSON.stringify({ session: journal.session, files: wavs, entries }, null, 2)}\n`);
+    } catch (e) {
+      process.emitWarning(`recording: journal export failed: ${(e as Error).message}`);
+    }
+  };
+  const session: SessionController = {
+    journal: ({ afterSeq, limit, all }) => ({
+      session: { id: journal.session, startedAt: journal.startedAt },
+      total: journal.total,
+      corruptLines: journal.corruptLines,
+      entries: journal.query({ afterSeq, limit, session: all ? undefined : journal.session }),
+    }),
+    listPresets: () => presets.list(),
+    getPreset: (name) => presets.get(name),
+    savePreset: (name, params) => {
+      const p = presets.save(name, params ?? eng.params);
+      journalNote('preset-save', null, { name }, `preset ${name} saved`);
+      return p;
+    },
+    applyPreset: async (name) => {
+      const p = presets.get(name);
+      const applied = await applyParams(p.params, 'preset-apply', `preset ${name}`);
+      return { params: applied, derived: derived() };
+    },
+    deletePreset: (name) => {
+      presets.delete(name);
+      journalNote('preset-delete', { name }, null, `preset ${name} deleted`);
+    },
+  };
   const upgradeAuth = createUpgradeAuth({
     token: config.server.token,
     openStatus: config.access.openStatus,
@@ -217,20 +281,32 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     rateLimit: config.access.controlRatePerS > 0 ? { perS: config.access.controlRatePerS, burst: config.access.controlBurst } : null,
     processing: {
       get: () => eng.params,
-      apply: async (next) => {
-        const applied = await eng.setParams(next);
-        if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
-        live.broadcastJson({ type: 'params', params: applied, derived: derived() });
-        return applied;
-      },
+      apply: (next) => applyParams(next, 'processing'),
       derived,
-      reset: () => eng.resetCovariance(),
+      reset: () => {
+        eng.resetCovariance();
+        journalNote('reset', null, null, 'covariance emptied');
+      },
     },
     beams: {
       list: () => eng.beams,
-      add: (az, el, method) => eng.addBeam(az, el, method),
-      remove: (id) => eng.removeBeam(id),
-      update: (id, patch) => eng.updateBeam(id, patch),
+      add: (az, el, method) => {
+        const b = eng.addBeam(az, el, method);
+        journalNote('beam-add', null, b, `beam ${b.id} at ${az}° (${method})`);
+        return b;
+      },
+      remove: (id) => {
+        const before = eng.beams.find((b) => b.id === id) ?? null;
+        const r = eng.removeBeam(id);
+        if (before) journalNote('beam-remove', before, null, `beam ${id} removed`);
+        return r;
+      },
+      update: (id, patch) => {
+        const before = eng.beams.find((b) => b.id === id) ?? null;
+        const after = eng.updateBeam(id, patch);
+        journalNote('beam-update', before ? { ...before } : null, after, `beam ${id}: ${diffSummary(before, after)}`);
+        return after;
+      },
       latencyS: () => eng.beamLatencyS,
     },
     channels: {
@@ -238,8 +314,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       levels: () => meters.levels(),
       setMasked: (masked) => {
         const active = Array.from({ length: channels }, (_, c) => !masked.includes(c));
+        const before = meters.masked.flatMap((m, c) => (m ? [c] : []));
         eng.setMask(active);
         meters.masked = active.map((a) => !a);
+        journalNote('mask', { masked: before }, { masked: [...masked].sort((a, b) => a - b) });
       },
     },
     recording: {
@@ -256,15 +334,19 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
           meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind } },
         });
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
+        recordingStartSeq = journalNote('recording-start', null, { raw: r.raw, beams: r.beams, encoding: r.encoding }, `recording started (${r.encoding})`).seq;
         return { ...st, raw: recordRaw, beams: recordBeams };
       },
       stop: async () => {
         const st = await recorder.stop();
         recordRaw = false;
         recordBeams = false;
+        const end = journalNote('recording-stop', null, { files: st.files.map((f) => f.wav) }, 'recording stopped');
+        exportJournal(st.files.map((f) => f.wav), recordingStartSeq, end.seq);
         return st;
       },
     },
+    session,
     staticDir: CLIENT_DIST,
   });
   await app.ready();

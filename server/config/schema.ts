@@ -118,6 +118,12 @@ export const CONFIG_SCHEMA: FieldSpec = {
         streamPath: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'WebSocket path where beam-audio frames are pushed to subscribers.' },
       },
     },
+    data: {
+      kind: 'object',
+      fields: {
+        dir: { kind: 'string', maxLength: 4096, doc: 'Folder for the parameter journal (journal.jsonl) and presets (presets/NAME.json); relative: to the working directory.' },
+      },
+    },
     simulator: {
       kind: 'object',
       fields: {
@@ -148,6 +154,7 @@ export interface Config {
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };
+  data: { dir: string };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }
 

@@ -9,6 +9,8 @@ import { beamsRoutes, type BeamsController } from './routes/beams.ts';
 import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
 import { recordingRoutes, type RecordingController } from './routes/recording.ts';
+import { sessionRoutes, type SessionController } from './routes/session.ts';
+import { actorOf, runAs } from './actor.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
@@ -20,6 +22,8 @@ export interface AppDeps {
   channels?: ChannelsController;
   /** Recording (`/api/recording`); absent without it. */
   recording?: RecordingController;
+  /** Parameter journal and presets (`/api/journal`, `/api/presets`); absent without it. */
+  session?: SessionController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
@@ -153,7 +157,11 @@ export function buildApp(deps: AppDeps): FastifyInstance {
     void reply.code(e.statusCode).send(e.toJSON());
   });
 
+  // Every request runs as its client, so changes deep below the routes are journaled with who made them.
+  app.addHook('onRequest', (req, _reply, done) => runAs(actorOf(req.ip, req.headers['user-agent']), done));
+
   app.register(statusRoutes(deps.status), { prefix: '/api' });
+  if (deps.session) app.register(sessionRoutes(deps.session), { prefix: '/api' });
   if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });

@@ -8,6 +8,8 @@ export const HTTP_ERRORS = {
   ERR_HTTP_VALIDATION: { statusCode: 400, template: '{detail}' },
   ERR_HTTP_BAD_BODY: { statusCode: 400, template: 'request body is not valid JSON: {detail}' },
   ERR_HTTP_UNAUTHORIZED: { statusCode: 401, template: '{method} {url} needs the header Authorization: Bearer <token>' },
+  ERR_HTTP_PRESET_NOT_FOUND: { statusCode: 404, template: 'no preset named {name}' },
+  ERR_HTTP_PRESET_INVALID: { statusCode: 422, template: 'preset {name} cannot be used: {detail}' },
   ERR_HTTP_BODY_TOO_LARGE: { statusCode: 413, template: 'request body exceeds {limit} bytes' },
   ERR_HTTP_RATE_LIMITED: { statusCode: 429, template: 'too many control requests from this client (limit {perS}/s, burst {burst}); retry after {retryS} s' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },

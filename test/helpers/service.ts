@@ -1,4 +1,7 @@
 /** Start a real service on free loopback ports for integration tests. */
+import { mkdtempSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
@@ -15,6 +18,8 @@ export async function startTestService(layer: Record<string, unknown> = {}): Pro
         source: { kind: 'network' },
         array: { file: `${FIXTURES}arrays/square-4.json` },
         ingest: { udp: { port: 0 } },
+        // Journal and presets in a fresh folder per service unless the test names one.
+        data: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-data-')) },
       },
       layer,
     ],

@@ -1,0 +1,88 @@
+/**
+ * Session tools over REST:
+ *   GET    /api/journal?limit=N&afterSeq=S&session=current|all  → { session, total, corruptLines, entries }
+ *   GET    /api/presets                    → { presets: [{ name, savedAt, valid: true } | { name, valid: false, error }] }
+ *   GET    /api/presets/:name              → { name, savedAt, params }
+ *   PUT    /api/presets/:name  { params? } → the preset saved (absent params: the ones in force)
+ *   POST   /api/presets/:name/apply        → { params, derived } as applied (like PUT /api/processing)
+ *   DELETE /api/presets/:name              → 204
+ * A bad name is 400 ERR_HTTP_VALIDATION, a missing preset 404 ERR_HTTP_PRESET_NOT_FOUND, a preset
+ * file that does not validate 422 ERR_HTTP_PRESET_INVALID naming the reason.
+ */
+import type { FastifyPluginAsync } from 'fastify';
+import type { ProcessingParams } from '../../engine/params.ts';
+import type { JournalEntry } from '../../session/journal.ts';
+import { PresetError, type Preset, type PresetListing } from '../../session/presets.ts';
+import { HttpError } from '../errors.ts';
+import type { ProcessingDerived } from './processing.ts';
+
+export interface SessionController {
+  journal(q: { afterSeq?: number; limit: number; all: boolean }): { session: { id: string; startedAt: string }; total: number; corruptLines: number; entries: JournalEntry[] };
+  listPresets(): PresetListing[];
+  getPreset(name: string): Preset;
+  savePreset(name: string, params: unknown | undefined): Preset;
+  applyPreset(name: string): Promise<{ params: ProcessingParams; derived: ProcessingDerived }>;
+  deletePreset(name: string): void;
+}
+
+export const JOURNAL_LIMIT_MAX = 10_000;
+
+function toHttp(e: unknown): unknown {
+  if (!(e instanceof PresetError)) return e;
+  if (e.kind === 'bad-name') return new HttpError('ERR_HTTP_VALIDATION', { detail: e.message });
+  if (e.kind === 'not-found') return new HttpError('ERR_HTTP_PRESET_NOT_FOUND', { name: JSON.stringify(e.presetName) });
+  return new HttpError('ERR_HTTP_PRESET_INVALID', { name: JSON.stringify(e.presetName), detail: e.message });
+}
+
+function intQuery(q: Record<string, unknown>, key: string, min: number, max: number): number | undefined {
+  const v = q[key];
+  if (v === undefined) return undefined;
+  if (typeof v !== 'string' || !/^[0-9]{1,15}$/.test(v) || Number(v) < min || Number(v) > max) throw new HttpError('ERR_HTTP_VALIDATION', { detail: `${key}: ${JSON.stringify(v)} not allowed; an integer ${min}–${max}` });
+  return Number(v);
+}
+
+export function sessionRoutes(c: SessionController): FastifyPluginAsync {
+  return async (app) => {
+    app.get('/journal', async (req) => {
+      const q = (req.query ?? {}) as Record<string, unknown>;
+      for (const k of Object.keys(q)) if (!['limit', 'afterSeq', 'session'].includes(k)) throw new HttpError('ERR_HTTP_VALIDATION', { detail: `${k}: unknown query parameter; known: limit, afterSeq, session` });
+      const limit = intQuery(q, 'limit', 1, JOURNAL_LIMIT_MAX) ?? 200;
+      const afterSeq = intQuery(q, 'afterSeq', 0, Number.MAX_SAFE_INTEGER);
+      const which = q.session ?? 'current';
+      if (which !== 'current' && which !== 'all') throw new HttpError('ERR_HTTP_VALIDATION', { detail: `session: ${JSON.stringify(which)} not allowed; current or all` });
+      return c.journal({ limit, afterSeq, all: which === 'all' });
+    });
+    app.get('/presets', async () => ({ presets: c.listPresets() }));
+    app.get<{ Params: { name: string } }>('/presets/:name', async (req) => {
+      try {
+        return c.getPreset(req.params.name);
+      } catch (e) {
+        throw toHttp(e);
+      }
+    });
+    app.put<{ Params: { name: string } }>('/presets/:name', { schema: { body: { type: 'object' } } }, async (req) => {
+      const body = (req.body ?? {}) as Record<string, unknown>;
+      for (const k of Object.keys(body)) if (k !== 'params') throw new HttpError('ERR_HTTP_VALIDATION', { detail: `${k}: unknown field; known: params` });
+      try {
+        return c.savePreset(req.params.name, body.params);
+      } catch (e) {
+        throw toHttp(e);
+      }
+    });
+    app.post<{ Params: { name: string } }>('/presets/:name/apply', async (req) => {
+      try {
+        return await c.applyPreset(req.params.name);
+      } catch (e) {
+        throw toHttp(e);
+      }
+    });
+    app.delete<{ Params: { name: string } }>('/presets/:name', async (req, reply) => {
+      try {
+        c.deletePreset(req.params.name);
+      } catch (e) {
+        throw toHttp(e);
+      }
+      return reply.code(204).send();
+    });
+  };
+}

@@ -1,0 +1,128 @@
+/**
+ * Named parameter sets: one JSON file per preset, `<data dir>/presets/<name>.json`, holding
+ * `{ "name", "savedAt", "params" }` with the full ProcessingParams.
+ *
+ * Every read validates the file: it must parse, name itself as its file does, and its params must
+ * pass the same check as a REST change (patchParams, given as `validate`). A file that fails is
+ * listed with its error and cannot be applied; the others are unaffected. Writes go to a temporary
+ * file first and are renamed into place, so a preset is never half-written.
+ */
+import { mkdirSync, readdirSync, readFileSync, renameSync, rmSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import type { ProcessingParams } from '../engine/params.ts';
+
+/** Letters, digits, space, `_`, `-`, `.`; starting with a letter or digit; at most 64. */
+export const PRESET_NAME = /^[A-Za-z0-9][A-Za-z0-9 _.-]{0,63}$/;
+export const PRESET_NAME_TEXT = '1–64 characters: letters, digits, space, _ - . (starting with a letter or digit)';
+
+export interface Preset {
+  name: string;
+  savedAt: string;
+  params: ProcessingParams;
+}
+
+export type PresetListing = { name: string; savedAt: string; valid: true } | { name: string; valid: false; error: string };
+
+export class PresetError extends Error {
+  constructor(
+    readonly kind: 'bad-name' | 'not-found' | 'invalid',
+    readonly presetName: string,
+    message: string,
+  ) {
+    super(message);
+    this.name = 'PresetError';
+  }
+}
+
+export class PresetStore {
+  readonly dir: string;
+  readonly #validate: (params: unknown) => ProcessingParams;
+
+  /** @param validate throws (with a `<field>: <why>` message) when params are not acceptable */
+  constructor(dir: string, validate: (params: unknown) => ProcessingParams) {
+    this.dir = dir;
+    this.#validate = validate;
+    mkdirSync(dir, { recursive: true });
+  }
+
+  static checkName(name: string): void {
+    if (!PRESET_NAME.test(name) || name.endsWith('.') || name.endsWith(' ')) throw new PresetError('bad-name', name, `preset name ${JSON.stringify(name)} not allowed; ${PRESET_NAME_TEXT}`);
+  }
+
+  #file(name: string): string {
+    return join(this.dir, `${name}.json`);
+  }
+
+  /** Every preset file, sorted by name, valid or not. */
+  list(): PresetListing[] {
+    const names = readdirSync(this.dir)
+      .filter((f) => f.endsWith('.json'))
+      .map((f) => f.slice(0, -5))
+      .filter((n) => PRESET_NAME.test(n))
+      .sort();
+    return names.map((name) => {
+      try {
+        const p = this.get(name);
+        return { name, savedAt: p.savedAt, valid: true as const };
+      } catch (e) {
+        return { name, valid: false as const, error: (e as Error).message };
+      }
+    });
+  }
+
+  /** @throws PresetError not-found, bad-name or invalid (the reason named) */
+  get(name: string): Preset {
+    PresetStore.checkName(name);
+    let text: string;
+    try {
+      text = readFileSync(this.#file(name), 'utf8');
+    } catch (e) {
+      if ((e as NodeJS.ErrnoException).code === 'ENOENT') throw new PresetError('not-found', name, `no preset named ${name}`);
+      throw new PresetError('invalid', name, `cannot read: ${(e as NodeJS.ErrnoException).code ?? (e as Error).message}`);
+    }
+    let doc: unknown;
+    try {
+      doc = JSON.parse(text);
+    } catch (e) {
+      throw new PresetError('invalid', name, `not valid JSON (${(e as Error).message})`);
+    }
+    if (typeof doc !== 'object' || doc === null || Array.isArray(doc)) throw new PresetError('invalid', name, 'not a JSON object');
+    const d = doc as Record<string, unknown>;
+    if (d.name !== name) throw new PresetError('invalid', name, `names itself ${JSON.stringify(d.name)}, not ${JSON.stringify(name)}`);
+    if (typeof d.savedAt !== 'string' || Number.isNaN(Date.parse(d.savedAt))) throw new PresetError('invalid', name, 'savedAt: not a date');
+    let params: ProcessingParams;
+    try {
+      params = this.#validate(d.params);
+    } catch (e) {
+      throw new PresetError('invalid', name, (e as Error).message);
+    }
+    return { name, savedAt: d.savedAt, params };
+  }
+
+  /** Save (or replace) a preset; returns it as stored. @throws PresetError bad-name or invalid */
+  save(name: string, params: unknown): Preset {
+    PresetStore.checkName(name);
+    let checked: ProcessingParams;
+    try {
+      checked = this.#validate(params);
+    } catch (e) {
+      throw new PresetError('invalid', name, (e as Error).message);
+    }
+    const p: Preset = { name, savedAt: new Date().toISOString(), params: checked };
+    const tmp = `${this.#file(name)}.${process.pid}.tmp`;
+    writeFileSync(tmp, `${JSON.stringify(p, null, 2)}\n`);
+    renameSync(tmp, this.#file(name));
+    return p;
+  }
+
+  /** @throws PresetError not-found or bad-name */
+  delete(name: string): void {
+    PresetStore.checkName(name);
+    try {
+      rmSync(this.#file(name));
+    } catch (e) {
+      if ((e as NodeJS.ErrnoException).code === 'ENOENT') throw new PresetError('not-found', name, `no preset named ${name}`);
+      throw e;
+    }
+  }
+}
