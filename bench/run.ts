@@ -19,6 +19,8 @@ import { benchIngest } from './ingest.ts';
 import { interleaveInto, runNumpyPeer, writeRawFloat32, type PeerResult } from './peer.ts';
 import { benchSimulator } from './simulator.ts';
 import { peakRssMiB } from './util.ts';
+import { openRaw } from '../server/io/raw.ts';
+import { runTimeline } from '../server/tools/timeline.ts';
 
 const { values } = parseArgs({ options: { json: { type: 'boolean' }, workload: { type: 'string' }, quick: { type: 'boolean' }, workers: { type: 'string' } } });
 const workers = values.workers ? Number(values.workers) : availableParallelism();
@@ -48,6 +50,8 @@ interface WorkloadResult {
   ratio_spectrum?: number | null;
   ratio_chain?: number | null;
   beams_note: string;
+  /** `analyze --timeline` on the same signal from a file: seconds of signal per wall second. */
+  reanalysis_speed_x: number;
 }
 
 async function runWorkload(w: Workload, withMics: boolean): Promise<WorkloadResult> {
@@ -76,7 +80,8 @@ async function runWorkload(w: Workload, withMics: boolean): Promise<WorkloadResu
     shed_step_offline: off.shedStep,
     shed_step_paced: paced.shedStep,
     hops_skipped_paced: paced.hopsSkipped,
-    beams_note: `DESIGN.md lists ${w.beams} beam(s) for ${w.name}; beams are not part of the engine yet`,
+    beams_note: `DESIGN.md lists ${w.beams} beam(s) for ${w.name}; the workloads run without beams`,
+    reanalysis_speed_x: 0,
   };
   // The numpy peer on the same signal.
   const dir = mkdtempSync(join(tmpdir(), 'nullsteer-bench-'));
@@ -90,6 +95,15 @@ async function runWorkload(w: Workload, withMics: boolean): Promise<WorkloadResu
   }
   const raw = join(dir, `${w.name}.f32`);
   await writeRawFloat32(raw, x);
+  // Re-analysis of the same signal from a file, as `nullsteer analyze FILE --timeline DIR` runs it.
+  const reader = await openRaw(raw, { channels: M, sampleRateHz: FS, encoding: 'float32' });
+  try {
+    const t = await runTimeline(reader, { geometry: g, params: p, changes: [], startSampleIndex: 0, workers, speedOfSoundMps: 343.2 });
+    result.reanalysis_speed_x = t.frames / FS / t.wallS;
+    say(`  re-analysis from a file (analyze --timeline): ${result.reanalysis_speed_x.toFixed(1)}× real time, ${t.rows.length} rows`);
+  } finally {
+    await reader.close();
+  }
   const peer = await runNumpyPeer({ rawPath: raw, channels: M, sampleRateHz: FS, arrayPath: `${PROJECT_CONFIG_DIR}/arrays/${w.array}`, grid: p.grid, bandHz: p.bandHz, lambda: p.lambda, spectrumRateHz: w.spectrumRateHz, fftSize: FFT, loadingRatio: 0.01 });
   result.numpy = peer;
   if (peer) {

@@ -331,7 +331,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
           encoding: r.encoding,
           rotateSeconds: r.rotateSeconds ?? undefined,
           rotateBytes: r.rotateBytes ?? undefined,
-          meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind } },
+          meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind, speedOfSoundMps: config.engine.speedOfSoundMps } },
         });
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
         recordingStartSeq = journalNote('recording-start', null, { raw: r.raw, beams: r.beams, encoding: r.encoding }, `recording started (${r.encoding})`).seq;

@@ -240,8 +240,12 @@ function reportTable(rep: Record<string, any>): string {
 export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promise<number> {
   const out = io.out ?? ((s: string) => process.stdout.write(`${s}\n`));
   const err = io.err ?? ((s: string) => process.stderr.write(`${s}\n`));
+  if (argv.some((a) => a === '--timeline' || a.startsWith('--timeline='))) {
+    const { timelineCommand } = await import('./timeline.ts');
+    return timelineCommand(argv, io);
+  }
   if (argv.includes('--help') || argv.includes('-h')) {
-    out(ANALYZE_USAGE);
+    out(`${ANALYZE_USAGE}\n  Time-resolved through the live engine: nullsteer analyze FILE.wav --timeline DIR … (see --timeline --help)`);
     return 0;
   }
   let parsed: Parsed;
