@@ -22,6 +22,8 @@ import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { currentActor } from './http/actor.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
 import { PresetStore } from './session/presets.ts';
+import { CompareChain, compareParams, merged, ownOf } from './engine/compare-chain.ts';
+import type { CompareController, CompareState } from './http/routes/compare.ts';
 import type { SessionController } from './http/routes/session.ts';
 import { patchParams } from './engine/params.ts';
 import { Recorder } from './outputs/recorder.ts';
@@ -128,15 +130,15 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   };
   let engine: Engine | null = null;
   const derived = (): ProcessingDerived => ({ tauS: engine!.hop / (fs * (1 - engine!.params.lambda)), hopSamples: engine!.hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
-  const hello = (): HelloMessage => {
+  const hello = (params: ProcessingParams = engine!.params, d: ProcessingDerived = derived()): HelloMessage => {
     const g = engine!.grid;
     return {
       type: 'hello',
       version: 1,
       grid: { nAz: g.nAz, nEl: g.nEl, azimuthDeg: Array.from(g.azimuthDeg.subarray(0, g.nAz)), elevationDeg: Array.from({ length: g.nEl }, (_, i) => g.elevationDeg[i * g.nAz]) },
-      params: engine!.params,
+      params,
       array: { name: geometry.name, positions: geometry.positions },
-      derived: derived(),
+      derived: d,
     };
   };
   const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
@@ -185,6 +187,20 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     if (recordRaw && recorder.recording) recorder.push(b);
   });
   bus.subscribe((b) => eng.push(b));
+  // The comparison chain (off until PUT /api/compare): same blocks, its own engine and live path.
+  let chain: CompareChain | null = null;
+  const chainDerived = (c: CompareChain): ProcessingDerived => ({ ...derived(), tauS: eng.hop / (fs * (1 - c.params.lambda)) });
+  const compareLive = new LiveHub({
+    path: `${config.hub.path}/compare`,
+    maxClients: config.hub.maxClients,
+    maxBufferedBytes: config.hub.maxBufferedBytes,
+    queueRows: config.hub.queueRows,
+    slowClientTimeoutMs: config.hub.slowClientTimeoutMs,
+    onConnect: (c) => {
+      if (chain) c.sendJson(hello(chain.params, chainDerived(chain)));
+    },
+  });
+  bus.subscribe((b) => chain?.push(b));
 
   const simRate = new RateMeter();
   const status = (): Record<string, unknown> => {
@@ -216,6 +232,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       engine: { ...eng.status(), recentErrors: [...engineErrors] },
       channels: meters.levels(),
       live: live.stats(),
+      compare: chain ? { params: chain.params, livePath: compareLive.path, live: compareLive.stats(), engine: chain.engine.status() } : null,
       upgradesRefused: upgradeAuth.refused(),
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: recorder.recording, streamOut: streamOut.stats() },
@@ -230,7 +247,57 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     live.broadcastJson({ type: 'params', params: applied, derived: derived() });
     const d = diffSummary(before, applied);
     journalNote(kind, before, applied, label ? `${label}: ${d}` : d);
+    if (chain) {
+      // The comparison follows band, grid, FFT size, rate and normalisation; keeps its own λ, loading, methods.
+      await chain.set(applied);
+      compareLive.broadcastJson({ type: 'params', params: chain.params, derived: chainDerived(chain) });
+    }
     return applied;
+  };
+  const compareState = (): CompareState =>
+    chain ? { enabled: true, params: chain.params, derived: chainDerived(chain), status: { startedAt: chain.startedAt, livePath: compareLive.path, live: compareLive.stats(), ...chain.engine.status() } } : { enabled: false, params: null, derived: null, status: null };
+  const compare: CompareController = {
+    state: compareState,
+    set: async (body) => {
+      const next = compareParams(eng.params, chain?.own ?? null, body, { sampleRateHz: fs, hop: eng.hop });
+      if (!chain) {
+        chain = await CompareChain.create(next, { geometry, sampleRateHz: fs, workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers, speedOfSoundMps: config.engine.speedOfSoundMps, onRow: (row) => compareLive.broadcastRow(row), onError: (m) => process.emitWarning(`comparison chain: ${m}`) });
+        journalNote('compare-on', null, ownOf(next), `comparison on: ${diffSummary(ownOf(eng.params), ownOf(next))}`);
+        compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
+      } else {
+        const before = chain.own;
+        await chain.set(eng.params, ownOf(next));
+        journalNote('compare-set', before, chain.own);
+        compareLive.broadcastJson({ type: 'params', params: chain.params, derived: chainDerived(chain) });
+      }
+      return compareState();
+    },
+    off: async () => {
+      if (chain) {
+        const c = chain;
+        chain = null;
+        await c.close();
+        journalNote('compare-off', c.own, null, 'comparison off');
+      }
+      return compareState();
+    },
+    promote: async (side) => {
+      if (side === 'main') {
+        if (chain) {
+          const c = chain;
+          chain = null;
+          await c.close();
+          journalNote('compare-promote', c.own, null, 'main kept; comparison ended');
+        }
+      } else if (chain) {
+        const mainOwn = ownOf(eng.params);
+        const cmpOwn = chain.own;
+        await applyParams(merged(eng.params, cmpOwn), 'compare-promote', 'comparison promoted to main');
+        await chain.set(eng.params, mainOwn);
+        compareLive.broadcastJson({ type: 'params', params: chain.params, derived: chainDerived(chain) });
+      }
+      return { main: { params: eng.params, derived: derived() }, compare: compareState() };
+    },
   };
   /** Beside a finished recording: the journal entries of its span, `<prefix>-<time>-journal.json`. */
   const exportJournal = (wavs: string[], fromSeq: number, toSeq: number): void => {
@@ -271,7 +338,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const upgradeAuth = createUpgradeAuth({
     token: config.server.token,
     openStatus: config.access.openStatus,
-    paths: { [config.ingest.websocket.path]: 'control', [config.outputs.streamPath]: 'listen', [config.hub.path]: 'read' },
+    paths: { [config.ingest.websocket.path]: 'control', [config.outputs.streamPath]: 'listen', [config.hub.path]: 'read', [`${config.hub.path}/compare`]: 'read' },
   });
   const app = buildApp({
     status,
@@ -347,13 +414,14 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       },
     },
     session,
+    compare,
     staticDir: CLIENT_DIST,
   });
   await app.ready();
   if (hub && config.ingest.websocket.enabled) {
     wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
   }
-  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, streamOut] : [live, streamOut], upgradeAuth.check);
+  attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, compareLive, streamOut] : [live, compareLive, streamOut], upgradeAuth.check);
 
   let httpPort = 0;
   try {
@@ -397,8 +465,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (recorder.recording) await recorder.stop();
       await streamOut.close();
       await live.close();
+      await compareLive.close();
       await app.close();
       await eng.close();
+      await chain?.close();
     },
   };
 }

@@ -10,6 +10,7 @@ import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
 import { recordingRoutes, type RecordingController } from './routes/recording.ts';
 import { sessionRoutes, type SessionController } from './routes/session.ts';
+import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { actorOf, runAs } from './actor.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
@@ -24,6 +25,8 @@ export interface AppDeps {
   recording?: RecordingController;
   /** Parameter journal and presets (`/api/journal`, `/api/presets`); absent without it. */
   session?: SessionController;
+  /** The comparison chain (`/api/compare`); absent without it. */
+  compare?: CompareController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
@@ -162,6 +165,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
 
   app.register(statusRoutes(deps.status), { prefix: '/api' });
   if (deps.session) app.register(sessionRoutes(deps.session), { prefix: '/api' });
+  if (deps.compare) app.register(compareRoutes(deps.compare), { prefix: '/api' });
   if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });

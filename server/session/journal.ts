@@ -13,7 +13,7 @@
 import { appendFileSync, existsSync, mkdirSync, readFileSync } from 'node:fs';
 import { join } from 'node:path';
 
-export const JOURNAL_KINDS = ['processing', 'reset', 'beam-add', 'beam-update', 'beam-remove', 'mask', 'preset-apply', 'preset-save', 'preset-delete', 'recording-start', 'recording-stop'] as const;
+export const JOURNAL_KINDS = ['processing', 'reset', 'beam-add', 'beam-update', 'beam-remove', 'mask', 'preset-apply', 'preset-save', 'preset-delete', 'recording-start', 'recording-stop', 'compare-on', 'compare-set', 'compare-off', 'compare-promote'] as const;
 export type JournalKind = (typeof JOURNAL_KINDS)[number];
 
 /** Who made a change: the client's address and, when it sent one, its User-Agent (truncated). */
