@@ -98,3 +98,16 @@ export const startRecording = (r: RecordingRequest): Promise<ApiResult<Recording
 export const stopRecording = (): Promise<ApiResult<RecordingStatus>> => request('DELETE', '/api/recording');
 export const setChannelMask = (masked: number[]): Promise<ApiResult<{ channels: unknown[] }>> => request('PUT', '/api/channels/mask', { masked });
 export const removeBeam = (id: Beam['id']): Promise<ApiResult<void>> => request('DELETE', `/api/beams/${encodeURIComponent(String(id))}`);
+
+/** The comparison chain (GET/PUT/DELETE /api/compare, POST /api/compare/promote). */
+export interface CompareState {
+  enabled: boolean;
+  params: ProcessingParams | null;
+  derived: { tauS: number; hopSamples: number; sampleRateHz: number; directions: number; bins: number } | null;
+  status: { load?: number; rows?: number; shed?: { step: number }; stages?: { stftMsPerHop: number; workerMsPerHop: number[] } } | null;
+}
+export type CompareSettings = { tauS?: number; lambda?: number; loading?: ProcessingParams['loading']; methods?: ProcessingParams['methods'] };
+export const getCompare = (): Promise<ApiResult<CompareState>> => request('GET', '/api/compare');
+export const setCompare = (s: CompareSettings): Promise<ApiResult<CompareState>> => request('PUT', '/api/compare', s);
+export const stopCompare = (): Promise<ApiResult<CompareState>> => request('DELETE', '/api/compare');
+export const promoteCompare = (side: 'compare' | 'main'): Promise<ApiResult<{ main: ProcessingState; compare: CompareState }>> => request('POST', '/api/compare/promote', { side });

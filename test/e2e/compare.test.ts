@@ -1,0 +1,67 @@
+/**
+ * The comparison chain from the dashboard, in a real browser (Debian's chromium via playwright-core,
+ * headless, loopback only) against a server fed by the simulator: start it with its own τ, see its
+ * direction history fill, promote it, keep main.
+ */
+import { existsSync, mkdtempSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { chromium, type Browser, type Page } from 'playwright-core';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { loadConfig } from '../../server/config/load.ts';
+import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
+
+const CHROMIUM = '/usr/bin/chromium';
+const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
+const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
+if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
+
+let svc: Service | null = null;
+let browser: Browser;
+let page: Page;
+const problems: string[] = [];
+const api = async (path: string): Promise<any> => (await fetch(`${svc!.url}${path}`)).json();
+
+describe.skipIf(!available)('comparison chain in the dashboard', () => {
+  beforeAll(async () => {
+    const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort: 0 }, engine: { workers: 1 }, processing: { azimuthStepDeg: 2, bandLowHz: 1000 }, outputs: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-cmp-rec-')) }, data: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-cmp-data-')) } }] });
+    svc = await startService(loaded);
+    browser = await chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+    page = await browser.newPage({ viewport: { width: 1280, height: 900 } });
+    page.on('console', (m) => {
+      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
+    });
+    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
+    await page.goto(`${svc.url}/`);
+  }, 60_000);
+
+  afterAll(async () => {
+    await browser?.close();
+    await svc?.close();
+  });
+
+  it('starts a comparison with its own τ, draws its history, promotes it and keeps main', async () => {
+    await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 5000 });
+    expect(await page.getByTestId('compare-history').count()).toBe(0);
+    await page.getByTestId('compare-tauS').fill('0.1');
+    await page.getByTestId('compare-apply').click();
+    await page.getByTestId('compare-history').waitFor({ timeout: 5000 });
+    const canvas = page.getByTestId('compare-history').getByTestId('history-canvas');
+    await expect.poll(async () => Number(await canvas.getAttribute('data-rows')), { timeout: 8000 }).toBeGreaterThanOrEqual(10);
+    const st = await api('/api/compare');
+    expect(st.enabled).toBe(true);
+    expect(st.derived.tauS).toBeCloseTo(0.1, 9);
+    await page.getByTestId('compare-cost').waitFor({ timeout: 5000 });
+    expect(await page.getByTestId('compare-cost').textContent()).toMatch(/^cost: STFT [\d.]+ ms\/hop · workers [\d.]+ ms\/hop · load \d+ %$/);
+    const mainTau = (await api('/api/processing')).derived.tauS;
+
+    await page.getByTestId('compare-promote').click();
+    await expect.poll(async () => (await api('/api/processing')).derived.tauS, { timeout: 5000 }).toBeCloseTo(0.1, 9);
+    await expect.poll(async () => (await api('/api/compare')).derived?.tauS, { timeout: 5000 }).toBeCloseTo(mainTau, 9);
+
+    await page.getByTestId('compare-keep-main').click();
+    await page.getByTestId('compare-history').waitFor({ state: 'detached', timeout: 5000 });
+    expect((await api('/api/compare')).enabled).toBe(false);
+    expect(problems).toEqual([]);
+  }, 40_000);
+});
