@@ -475,6 +475,18 @@ export class Engine {
     const M = this.channels;
     const n = block.frames;
     const hop = this.hop;
+    // Fast path: the whole block fits (every hop finds a ring slot, every scan a result slot), so it
+    // goes in as it is, without a copy per hop. The rows are the same either way.
+    const p = this.#plan;
+    let slowest = Infinity;
+    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    const hops = Math.ceil(n / hop) + 1;
+    const period = this.opts.sampleRateHz / (this.#params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
+    const scans = Math.ceil(n / period) + 1;
+    if (!this.#replanning && RING_SLOTS - 1 - (p.writeSeq - slowest) > hops && this.#pending.size + scans < RESULT_SLOTS - 1) {
+      this.push(block);
+      return;
+    }
     for (let s = 0; s < n; s += hop) {
       await this.#waitForSlot();
       const k = Math.min(hop, n - s);

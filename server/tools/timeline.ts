@@ -84,7 +84,7 @@ export async function runTimeline(reader: FileSampleReader, o: TimelineOptions):
   const t0 = performance.now();
   const engine = await Engine.create({ geometry: o.geometry, sampleRateHz: info.sampleRateHz, params: o.params, workers: o.workers, speedOfSoundMps: o.speedOfSoundMps, onRow: (r) => rows.push(r), shedding: false });
   try {
-    const chunkFrames = 4096;
+    const chunkFrames = 8192;
     let done = 0;
     let next = 0; // index into o.changes
     const push = async (data: Float32Array, at: number, n: number) => {
