@@ -12,6 +12,7 @@ import { recordingRoutes, type RecordingController } from './routes/recording.ts
 import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { actorOf, runAs } from './actor.ts';
+import { createSerial } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
@@ -164,9 +165,12 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   app.addHook('onRequest', (req, _reply, done) => runAs(actorOf(req.ip, req.headers['user-agent']), done));
 
   app.register(statusRoutes(deps.status), { prefix: '/api' });
-  if (deps.session) app.register(sessionRoutes(deps.session), { prefix: '/api' });
-  if (deps.compare) app.register(compareRoutes(deps.compare), { prefix: '/api' });
-  if (deps.processing) app.register(processingRoutes(deps.processing), { prefix: '/api' });
+
+  // Parameter changes from any route (processing, presets, comparison) go through one queue.
+  const serial = createSerial();
+  if (deps.processing) app.register(processingRoutes(deps.processing, serial), { prefix: '/api' });
+  if (deps.session) app.register(sessionRoutes(deps.session, serial), { prefix: '/api' });
+  if (deps.compare) app.register(compareRoutes(deps.compare, serial), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });

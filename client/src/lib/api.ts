@@ -46,7 +46,8 @@ export function apiToken(): string | null {
   return bearerToken;
 }
 
-async function request<T>(method: string, path: string, body?: unknown): Promise<ApiResult<T>> {
+/** One REST call: resolves, never throws; the server's own error message on refusal. */
+export async function request<T>(method: string, path: string, body?: unknown): Promise<ApiResult<T>> {
   const headers: Record<string, string> = { accept: 'application/json' };
   if (body !== undefined) headers['content-type'] = 'application/json';
   if (bearerToken) headers.authorization = `Bearer ${bearerToken}`;

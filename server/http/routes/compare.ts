@@ -9,9 +9,10 @@
  * Its rows stream on the live path + `/compare` (same binary rows as the main path).
  */
 import type { FastifyPluginAsync } from 'fastify';
-import { ParamError, type ProcessingParams } from '../../engine/params.ts';
+import type { ProcessingParams } from '../../engine/params.ts';
 import { HttpError } from '../errors.ts';
-import type { ProcessingDerived } from './processing.ts';
+import { paramErrorToHttp, type ProcessingDerived } from './processing.ts';
+import { createSerial, type Serial } from '../serial.ts';
 
 export interface CompareState {
   enabled: boolean;
@@ -27,18 +28,11 @@ export interface CompareController {
   promote(side: 'compare' | 'main'): Promise<{ main: { params: ProcessingParams; derived: ProcessingDerived }; compare: CompareState }>;
 }
 
-function toHttp(e: unknown): unknown {
-  return e instanceof ParamError ? new HttpError('ERR_HTTP_VALIDATION', { detail: e.message }) : e;
-}
+const toHttp = paramErrorToHttp;
 
-export function compareRoutes(c: CompareController): FastifyPluginAsync {
+/** @param serial the queue shared with the other routes that change parameters (serial.ts) */
+export function compareRoutes(c: CompareController, serial: Serial = createSerial()): FastifyPluginAsync {
   return async (app) => {
-    let queue: Promise<unknown> = Promise.resolve();
-    const serial = <T>(fn: () => Promise<T>): Promise<T> => {
-      const p = queue.then(fn);
-      queue = p.catch(() => undefined);
-      return p;
-    };
     app.get('/compare', async () => c.state());
     app.put('/compare', { schema: { body: { type: 'object' } } }, async (req) =>
       serial(async () => {

@@ -15,6 +15,7 @@ import type { FastifyPluginAsync, FastifySchema } from 'fastify';
 import { ParamError, patchParams, type ProcessingParams } from '../../engine/params.ts';
 import type { ProcessingDerived } from '../../../shared/messages.ts';
 import { HttpError } from '../errors.ts';
+import { createSerial, type Serial } from '../serial.ts';
 
 export type { ProcessingDerived };
 
@@ -59,19 +60,15 @@ function schemaError(errors: AjvError[]): Error {
 const patchSchema: FastifySchema = { body: { type: 'object' } };
 const putSchema: FastifySchema = { body: { type: 'object', required: [...PROCESSING_FIELDS] } };
 
-function toHttp(e: unknown): unknown {
+/** A parameter refusal as the 400 every parameter route answers; other errors as they are. */
+export function paramErrorToHttp(e: unknown): unknown {
   return e instanceof ParamError ? new HttpError('ERR_HTTP_VALIDATION', { detail: e.message }) : e;
 }
+const toHttp = paramErrorToHttp;
 
-export function processingRoutes(controller: ProcessingController): FastifyPluginAsync {
+/** @param serial the queue shared with the other routes that change parameters (serial.ts) */
+export function processingRoutes(controller: ProcessingController, serial: Serial = createSerial()): FastifyPluginAsync {
   return async (app) => {
-    let queue: Promise<unknown> = Promise.resolve();
-    /** Run `fn` after every change queued before it; a failure does not block the ones after. */
-    const serial = <T>(fn: () => Promise<T>): Promise<T> => {
-      const p = queue.then(fn);
-      queue = p.catch(() => undefined);
-      return p;
-    };
     const answer = (params: ProcessingParams) => ({ params, derived: controller.derived() });
     const change = (body: unknown) =>
       serial(async () => {

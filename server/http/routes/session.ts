@@ -14,6 +14,7 @@ import type { ProcessingParams } from '../../engine/params.ts';
 import type { JournalEntry } from '../../session/journal.ts';
 import { PresetError, type Preset, type PresetListing } from '../../session/presets.ts';
 import { HttpError } from '../errors.ts';
+import { createSerial, type Serial } from '../serial.ts';
 import type { ProcessingDerived } from './processing.ts';
 
 export interface SessionController {
@@ -41,7 +42,8 @@ function intQuery(q: Record<string, unknown>, key: string, min: number, max: num
   return Number(v);
 }
 
-export function sessionRoutes(c: SessionController): FastifyPluginAsync {
+/** @param serial the queue shared with the other routes that change parameters (serial.ts) */
+export function sessionRoutes(c: SessionController, serial: Serial = createSerial()): FastifyPluginAsync {
   return async (app) => {
     app.get('/journal', async (req) => {
       const q = (req.query ?? {}) as Record<string, unknown>;
@@ -71,7 +73,7 @@ export function sessionRoutes(c: SessionController): FastifyPluginAsync {
     });
     app.post<{ Params: { name: string } }>('/presets/:name/apply', async (req) => {
       try {
-        return await c.applyPreset(req.params.name);
+        return await serial(() => c.applyPreset(req.params.name));
       } catch (e) {
         throw toHttp(e);
       }
