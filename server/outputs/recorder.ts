@@ -337,7 +337,8 @@ export class RecorderTrack {
         frames: 0,
         closed: false,
       },
-      { minIntervalMs: o.sidecarIntervalMs, onError },
+      // As current as the WAV header: after a kill both lag by at most the refresh interval.
+      { minIntervalMs: o.sidecarIntervalMs ?? o.headerRefreshMs ?? 500, onError },
     );
     const status: PartStatus = {
       track: this.name,
@@ -416,7 +417,7 @@ export interface RecorderStartOptions {
   rf64?: boolean;
   /** WAV header refresh, ms; default 500 (a kill loses at most this). */
   headerRefreshMs?: number;
-  /** Least time between sidecar rewrites, ms; default 1000. */
+  /** Least time between sidecar rewrites, ms; default the header refresh (500). */
   sidecarIntervalMs?: number;
   maxDataBytes?: number;
   meta: RecordingMeta;
