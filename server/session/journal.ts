@@ -13,29 +13,8 @@
 import { appendFileSync, existsSync, mkdirSync, readFileSync } from 'node:fs';
 import { join } from 'node:path';
 
-export const JOURNAL_KINDS = ['processing', 'reset', 'beam-add', 'beam-update', 'beam-remove', 'mask', 'preset-apply', 'preset-save', 'preset-delete', 'recording-start', 'recording-stop', 'compare-on', 'compare-set', 'compare-off', 'compare-promote'] as const;
-export type JournalKind = (typeof JOURNAL_KINDS)[number];
-
-/** Who made a change: the client's address and, when it sent one, its User-Agent (truncated). */
-export interface Actor {
-  remote: string;
-  agent: string | null;
-}
-
-export interface JournalEntry {
-  /** 1, 2, … over the journal file's whole life (continues across restarts). */
-  seq: number;
-  session: string;
-  at: string;
-  /** Next stream sample when the change was applied (null before any input). */
-  sampleIndex: number | null;
-  actor: Actor;
-  kind: JournalKind;
-  /** One line for people: what changed, e.g. "lambda 0.99 → 0.995". */
-  summary: string;
-  before: unknown;
-  after: unknown;
-}
+export { JOURNAL_KINDS, type Actor, type JournalEntry, type JournalKind } from '../../shared/session.ts';
+import type { Actor, JournalEntry, JournalKind } from '../../shared/session.ts';
 
 export const JOURNAL_FILE = 'journal.jsonl';
 export const JOURNAL_KEEP = 10_000;

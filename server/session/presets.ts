@@ -15,13 +15,8 @@ import type { ProcessingParams } from '../engine/params.ts';
 export const PRESET_NAME = /^[A-Za-z0-9][A-Za-z0-9 _.-]{0,63}$/;
 export const PRESET_NAME_TEXT = '1–64 characters: letters, digits, space, _ - . (starting with a letter or digit)';
 
-export interface Preset {
-  name: string;
-  savedAt: string;
-  params: ProcessingParams;
-}
-
-export type PresetListing = { name: string; savedAt: string; valid: true } | { name: string; valid: false; error: string };
+export type { Preset, PresetListing } from '../../shared/session.ts';
+import type { Preset, PresetListing } from '../../shared/session.ts';
 
 export class PresetError extends Error {
   constructor(

@@ -6,39 +6,8 @@
 import type { ProcessingDerived, ProcessingParams } from '../../../shared/messages.ts';
 import { request as call, type ApiResult } from './api.ts';
 
-export interface JournalActor {
-  remote: string;
-  agent: string | null;
-}
-
-export interface JournalEntry {
-  seq: number;
-  session: string;
-  /** ISO 8601 wall clock of the change. */
-  at: string;
-  /** Next stream sample when the change was applied (null before any input). */
-  sampleIndex: number | null;
-  actor: JournalActor;
-  kind: string;
-  summary: string;
-  before: unknown;
-  after: unknown;
-}
-
-export interface JournalPage {
-  session: { id: string; startedAt: string };
-  total: number;
-  /** Oldest first (newest last). */
-  entries: JournalEntry[];
-}
-
-export type PresetListing = { name: string; savedAt: string; valid: true } | { name: string; valid: false; error: string };
-
-export interface Preset {
-  name: string;
-  savedAt: string;
-  params: ProcessingParams;
-}
+export type { Actor as JournalActor, JournalEntry, JournalPage, Preset, PresetListing } from '../../../shared/session.ts';
+import type { JournalPage, Preset, PresetListing } from '../../../shared/session.ts';
 
 const presetPath = (name: string): string => `/api/presets/${encodeURIComponent(name)}`;
 

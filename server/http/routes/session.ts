@@ -11,14 +11,14 @@
  */
 import type { FastifyPluginAsync } from 'fastify';
 import type { ProcessingParams } from '../../engine/params.ts';
-import type { JournalEntry } from '../../session/journal.ts';
+import type { JournalPage } from '../../../shared/session.ts';
 import { PresetError, type Preset, type PresetListing } from '../../session/presets.ts';
 import { HttpError } from '../errors.ts';
 import { createSerial, type Serial } from '../serial.ts';
 import type { ProcessingDerived } from './processing.ts';
 
 export interface SessionController {
-  journal(q: { afterSeq?: number; limit: number; all: boolean }): { session: { id: string; startedAt: string }; total: number; corruptLines: number; entries: JournalEntry[] };
+  journal(q: { afterSeq?: number; limit: number; all: boolean }): JournalPage;
   listPresets(): PresetListing[];
   getPreset(name: string): Preset;
   savePreset(name: string, params: unknown | undefined): Preset;
