@@ -3,18 +3,15 @@
  * headless, loopback only) against a server fed by the simulator: start it with its own τ, see its
  * direction history fill, promote it, keep main.
  */
-import { existsSync, mkdtempSync } from 'node:fs';
+import { mkdtempSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { chromium, type Browser, type Page } from 'playwright-core';
+import { type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
-import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
+import { startService, type Service } from '../../server/service.ts';
 
-const CHROMIUM = '/usr/bin/chromium';
-const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
-const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
-if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
 
 let svc: Service | null = null;
 let browser: Browser;
@@ -22,11 +19,11 @@ let page: Page;
 const problems: string[] = [];
 const api = async (path: string): Promise<any> => (await fetch(`${svc!.url}${path}`)).json();
 
-describe.skipIf(!available)('comparison chain in the dashboard', () => {
+describe.skipIf(!browserAvailable)('comparison chain in the dashboard', () => {
   beforeAll(async () => {
     const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort: 0 }, engine: { workers: 1 }, processing: { azimuthStepDeg: 2, bandLowHz: 1000 }, outputs: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-cmp-rec-')) }, data: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-cmp-data-')) } }] });
     svc = await startService(loaded);
-    browser = await chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+    browser = await launchBrowser();
     page = await browser.newPage({ viewport: { width: 1280, height: 900 } });
     page.on('console', (m) => {
       if (m.type() === 'error') problems.push(`console: ${m.text()}`);

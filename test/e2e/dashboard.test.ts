@@ -2,19 +2,16 @@
  * The dashboard in a real browser (Debian's chromium driven by playwright-core, headless, loopback
  * only) against a real server fed by the simulator.
  */
-import { existsSync, mkdtempSync } from 'node:fs';
+import { mkdtempSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { chromium, type Browser, type Page } from 'playwright-core';
+import { type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
-import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
+import { startService, type Service } from '../../server/service.ts';
 
-const CHROMIUM = '/usr/bin/chromium';
 const RECORDINGS = mkdtempSync(join(tmpdir(), 'nullsteer-e2e-rec-'));
-const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
-const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
-if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
 
 let svc: Service | null = null;
 let port = 0;
@@ -38,11 +35,11 @@ async function historyHash(): Promise<string> {
   });
 }
 
-describe.skipIf(!available)('dashboard in a browser', () => {
+describe.skipIf(!browserAvailable)('dashboard in a browser', () => {
   beforeAll(async () => {
     svc = await start(0);
     port = svc.httpPort;
-    browser = await chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+    browser = await launchBrowser();
     page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
     page.on('console', (m) => {
       if (m.type() === 'error') problems.push(`console: ${m.text()}`);

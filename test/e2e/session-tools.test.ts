@@ -3,20 +3,17 @@
  * headless, loopback only) against a real server fed by the simulator: spectrum CSV and history PNG
  * downloads, the presets panel and the journal panel.
  */
-import { existsSync, mkdirSync, mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { chromium, type Browser, type Download, type Page } from 'playwright-core';
+import { type Browser, type Download, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
-import { CLIENT_DIST, startService, type Service } from '../../server/service.ts';
+import { startService, type Service } from '../../server/service.ts';
 
-const CHROMIUM = '/usr/bin/chromium';
 const RECORDINGS = mkdtempSync(join(tmpdir(), 'nullsteer-e2e-rec-'));
 const DATA = mkdtempSync(join(tmpdir(), 'nullsteer-e2e-data-'));
-const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
-const available = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
-if (!available && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
 
 let svc: Service | null = null;
 let port = 0;
@@ -43,11 +40,11 @@ async function downloadBytes(d: Download): Promise<Buffer> {
   return readFileSync(path);
 }
 
-describe.skipIf(!available)('session tools in a browser', () => {
+describe.skipIf(!browserAvailable)('session tools in a browser', () => {
   beforeAll(async () => {
     svc = await start(0);
     port = svc.httpPort;
-    browser = await chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+    browser = await launchBrowser();
     page = await browser.newPage({ viewport: { width: 1280, height: 900 }, acceptDownloads: true });
     page.on('console', (m) => {
       if (m.type() === 'error') problems.push(`console: ${m.text()}`);

@@ -1,0 +1,18 @@
+/**
+ * The browser for the end-to-end tests: Debian's chromium driven by playwright-core, headless,
+ * never a downloaded browser. In CI a missing browser or client build is an error, not a skip.
+ */
+import { existsSync } from 'node:fs';
+import { chromium, type Browser } from 'playwright-core';
+import { CLIENT_DIST } from '../../server/service.ts';
+
+export const CHROMIUM = '/usr/bin/chromium';
+const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'];
+
+/** Chromium and the built dashboard are both there. */
+export const browserAvailable = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
+if (!browserAvailable && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
+
+export function launchBrowser(): Promise<Browser> {
+  return chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+}
