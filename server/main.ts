@@ -70,9 +70,13 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
     return 0;
   }
   let service;
+  let stopped: Promise<number>;
   try {
     const loaded = await loadConfig({ configFile: args.configFile, overrides: args.overrides, env: io.env });
     service = await startService(loaded, { logger: { level: io.env.NULLSTEER_LOG_LEVEL ?? 'warn' } });
+    // The signal handlers go in before anything is printed: stdout to a pipe is synchronous on
+    // Linux, so a supervisor may read the first line and signal before this function goes on.
+    stopped = waitForStopSignal(service, io);
     const c = loaded.config;
     io.out(`nullsteer ${VERSION}: ${loaded.geometry.name} (${loaded.geometry.positions.length} channels) at ${c.input.sampleRateHz} Hz`);
     if (c.source.kind === 'simulator') io.out('source: built-in simulated scenario (set --source network for live frames)');
@@ -97,9 +101,15 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
     io.err(`nullsteer serve: ${err.stack ?? String(e)}`);
     return 1;
   }
-  const svc = service;
+  return stopped;
+}
+
+/** Resolves with the exit code once SIGINT or SIGTERM has shut the service down. */
+function waitForStopSignal(svc: { close(): Promise<void> }, io: CliIo): Promise<number> {
   return new Promise<number>((resolve) => {
     const stop = (sig: string) => {
+      process.off('SIGINT', onInt);
+      process.off('SIGTERM', onTerm);
       io.out(`${sig}: shutting down`);
       svc.close().then(
         () => resolve(0),
@@ -109,7 +119,9 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
         },
       );
     };
-    process.once('SIGINT', () => stop('SIGINT'));
-    process.once('SIGTERM', () => stop('SIGTERM'));
+    const onInt = () => stop('SIGINT');
+    const onTerm = () => stop('SIGTERM');
+    process.once('SIGINT', onInt);
+    process.once('SIGTERM', onTerm);
   });
 }
