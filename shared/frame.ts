@@ -137,6 +137,9 @@ export function decodeSamples(frame: DecodedFrame, out: Float32Array): boolean {
   return decodeInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out);
 }
 
+/** True when this machine stores numbers little-endian (typed arrays use the host's order). */
+const LITTLE_ENDIAN_HOST = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
+
 /**
  * Interleaved little-endian samples (wire payload or WAV data, which share the layout) to planar
  * float32 full-scale units.
@@ -148,6 +151,24 @@ export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: n
   const m = channels;
   const n = frames;
   const payload = bytes;
+  // Typed-array views read the little-endian samples directly when the host is little-endian and
+  // the payload is aligned; otherwise the DataView reads below.
+  if (LITTLE_ENDIAN_HOST && encoding === 'float32' && payload.byteOffset % 4 === 0) {
+    const f = new Float32Array(payload.buffer, payload.byteOffset, m * n);
+    for (let i = 0, p = 0; i < n; i++) {
+      for (let c = 0; c < m; c++, p++) {
+        const v = f[p];
+        if (v - v !== 0) return false; // NaN or ±Infinity
+        out[c * n + i] = v;
+      }
+    }
+    return true;
+  }
+  if (LITTLE_ENDIAN_HOST && encoding === 'int16' && payload.byteOffset % 2 === 0) {
+    const q = new Int16Array(payload.buffer, payload.byteOffset, m * n);
+    for (let i = 0, p = 0; i < n; i++) for (let c = 0; c < m; c++, p++) out[c * n + i] = q[p] / 32768;
+    return true;
+  }
   const dv = new DataView(payload.buffer, payload.byteOffset, payload.byteLength);
   let p = 0;
   switch (encoding) {

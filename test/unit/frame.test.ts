@@ -2,6 +2,7 @@ import { readFileSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
 import {
   decodeFrame,
+  decodeInterleaved,
   decodeSamples,
   encodeFrame,
   encodeFrameRaw,
@@ -55,6 +56,38 @@ describe('frame codec', () => {
       expect(out[0]).toBe(-1);
     });
   }
+
+  it('decodes the same from aligned and unaligned payloads, and finds NaN/Inf in both', () => {
+    // The aligned case reads through typed-array views, the unaligned one through DataView.
+    const m = 5;
+    const n = 33;
+    const f = new Float32Array(m * n);
+    for (let k = 0; k < f.length; k++) f[k] = Math.cos(k * 1.3) * 0.9;
+    const q = new Int16Array(m * n);
+    for (let k = 0; k < q.length; k++) q[k] = Math.round(Math.sin(k * 0.7) * 32767);
+    for (const [enc, src] of [['float32', new Uint8Array(f.buffer)], ['int16', new Uint8Array(q.buffer)]] as const) {
+      const aligned = new Uint8Array(src.byteLength + 8);
+      aligned.set(src, 4);
+      const unaligned = new Uint8Array(src.byteLength + 8);
+      unaligned.set(src, 1);
+      const a = new Float32Array(m * n);
+      const b = new Float32Array(m * n);
+      expect(decodeInterleaved(aligned.subarray(4, 4 + src.byteLength), m, n, enc, a)).toBe(true);
+      expect(decodeInterleaved(unaligned.subarray(1, 1 + src.byteLength), m, n, enc, b)).toBe(true);
+      expect(b).toEqual(a);
+      const ref = enc === 'float32' ? f : Float32Array.from(q, (v) => v / 32768);
+      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++) expect(a[c * n + i]).toBe(ref[i * m + c]);
+    }
+    for (const bad of [Number.NaN, Number.POSITIVE_INFINITY, Number.NEGATIVE_INFINITY]) {
+      const g = f.slice();
+      g[m * n - 2] = bad;
+      const bytes = new Uint8Array(g.buffer);
+      const unaligned = new Uint8Array(bytes.byteLength + 1);
+      unaligned.set(bytes, 1);
+      expect(decodeInterleaved(bytes, m, n, 'float32', new Float32Array(m * n))).toBe(false);
+      expect(decodeInterleaved(unaligned.subarray(1), m, n, 'float32', new Float32Array(m * n))).toBe(false);
+    }
+  });
 
   it('sign-extends int24 and clips out-of-range input to the encoding range', () => {
     const f = decoded(encodeFrame({ ...H, channels: 1, samplesPerChannel: 4, encoding: 'int24' }, [-1 / 8388608, 2, -2, 0.5]));
