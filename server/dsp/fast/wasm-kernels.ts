@@ -18,26 +18,11 @@
  *      y_d = Σ_{j<m} w_j · v_d[row j],   p[d] ← keep·p[d] + scale·|y_d|²
  *    (the conventional tracker's recursion with w = conj(x)).
  */
-import wabtInit from 'wabt';
+import { assembleWat, instantiateWat, type WasmMemory } from './wasm-assemble.ts';
 
 /** Directions per block supported by the generator (K/2 f64x2 vectors of each part). */
 export const WASM_BLOCK_SIZES = [2, 4, 6, 8] as const;
 export type WasmBlockSize = (typeof WASM_BLOCK_SIZES)[number];
-
-/**
- * The slice of the WebAssembly JS API used here (WebAssembly JavaScript Interface spec). Declared
- * locally because the project's TypeScript libs (ES2022 + @types/node, no DOM) do not type it.
- */
-interface WasmMemory {
-  readonly buffer: ArrayBuffer;
-  grow(deltaPages: number): number;
-}
-type WasmModule = object;
-interface WasmApi {
-  compile(bytes: Uint8Array): Promise<WasmModule>;
-  instantiate(module: WasmModule, imports: object): Promise<{ exports: object }>;
-}
-const wasmApi = (globalThis as unknown as { WebAssembly?: WasmApi }).WebAssembly;
 
 export interface WasmKernelExports {
   memory: WasmMemory;
@@ -138,41 +123,16 @@ export function kernelWat(k: WasmBlockSize): string {
 )`;
 }
 
-const compiled = new Map<WasmBlockSize, Promise<WasmModule>>();
-
 /**
  * The compiled kernel module for block size k, assembled once per thread and cached (each scanner
  * instantiates it with its own memory).
  * @throws (rejects) when this runtime lacks WebAssembly SIMD or the text fails to assemble
  */
-export function compileKernels(k: WasmBlockSize): Promise<WasmModule> {
-  let p = compiled.get(k);
-  if (p === undefined) {
-    p = (async () => {
-      if (wasmApi === undefined) throw new Error('WebAssembly is not available in this runtime');
-      const wabt = await wabtInit();
-      const mod = wabt.parseWat(`nullsteer-fast-k${k}.wat`, kernelWat(k), { simd: true });
-      try {
-        mod.validate();
-        const { buffer } = mod.toBinary({});
-        return await wasmApi.compile(buffer);
-      } finally {
-        mod.destroy();
-      }
-    })();
-    compiled.set(k, p);
-    p.catch(() => compiled.delete(k));
-  }
-  return p;
+export function compileKernels(k: WasmBlockSize): Promise<object> {
+  return assembleWat(`nullsteer-fast-k${k}`, () => kernelWat(k));
 }
 
 /** A fresh instance (own memory of `bytes`, rounded up to 64 KiB pages) of the kernels for k. */
-export async function instantiateKernels(k: WasmBlockSize, bytes: number): Promise<WasmKernelExports> {
-  const module = await compileKernels(k);
-  const instance = await (wasmApi as WasmApi).instantiate(module, {});
-  const exp = instance.exports as unknown as WasmKernelExports;
-  const pages = Math.ceil(bytes / 65536);
-  const have = exp.memory.buffer.byteLength / 65536;
-  if (pages > have) exp.memory.grow(pages - have);
-  return exp;
+export function instantiateKernels(k: WasmBlockSize, bytes: number): Promise<WasmKernelExports> {
+  return instantiateWat<WasmKernelExports>(`nullsteer-fast-k${k}`, () => kernelWat(k), bytes);
 }
