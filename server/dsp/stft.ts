@@ -13,9 +13,11 @@
  *   s(t − τ) gives X(f) ≈ S(f)·e^{−j2πfτ}.
  * - Complex data interleaved [re, im, re, im, …] in Float64Array.
  *
- * The FFT itself is fft.js (radix-4, planned once per size).
+ * The FFT itself is fft.js (radix-4, planned once per size); MultiChannelStft.accelerate() switches
+ * the streaming analysis to the WebAssembly SIMD transform of dsp/fast/wasm-fft.ts.
  */
 import FFT from 'fft.js';
+import { PairFft } from './fast/wasm-fft.ts';
 
 /** Smallest FFT size accepted. */
 export const MIN_FFT_SIZE = 256;
@@ -225,6 +227,10 @@ export class MultiChannelStft {
   #frameStartSample = 0;
   #out: Float64Array | null = null;
   #slot: ((hopStartSample: number) => number) | null = null;
+  /** Bins written into `#out` (setOutput); the internal snapshot always gets all bins. */
+  #outBins: { startBin: number; count: number };
+  /** The WebAssembly transform once accelerate() succeeded; it then holds the frames. */
+  #fast: PairFft | null = null;
 
   /** @param channels M, integer 1…1024 @param fftSize N, a power of two in 256…4096 */
   constructor(channels: number, fftSize: number) {
@@ -239,18 +245,54 @@ export class MultiChannelStft {
     this.snapshotLength = 2 * this.bins * channels;
     this.#buffer = new Float64Array(channels * fftSize);
     this.#snapshot = new Float64Array(this.snapshotLength);
+    this.#outBins = { startBin: 0, count: this.bins };
     this.reset();
+  }
+
+  /**
+   * Switch to the WebAssembly SIMD transform (same spectra to rounding, several times faster), keeping
+   * the buffered samples. Resolves false, staying on fft.js, where WebAssembly SIMD is missing.
+   */
+  async accelerate(): Promise<boolean> {
+    if (this.#fast) return true;
+    let fast: PairFft;
+    try {
+      fast = await PairFft.create(this.fftSize, this.channels);
+    } catch {
+      return false;
+    }
+    if (this.#fast) return true; // a concurrent call got there first
+    const n = this.fftSize;
+    const fr = fast.frames;
+    for (let c = 0; c < this.channels; c++) {
+      const base = (c >> 1) * 2 * n + (c & 1);
+      for (let i = 0; i < n; i++) fr[base + 2 * i] = this.#buffer[c * n + i];
+    }
+    this.#fast = fast;
+    return true;
+  }
+
+  /** True once {@link accelerate} has switched to the WebAssembly transform. */
+  get accelerated(): boolean {
+    return this.#fast !== null;
   }
 
   /**
    * Write each snapshot into `out` at the offset `slot(hopStartSample)` returns (e.g. a slot of a
    * shared ring) instead of the internal buffer; onHop then receives `out` itself. `null` restores
    * the internal buffer. Saves the per-hop copy when another thread consumes the snapshots.
+   * With `bins`, only those bins need to be formed (the processing band): the accelerated path
+   * writes just them into `out`, and the others keep what they held.
    */
-  setOutput(out: Float64Array | null, slot: ((hopStartSample: number) => number) | null = null): void {
+  setOutput(out: Float64Array | null, slot: ((hopStartSample: number) => number) | null = null, bins?: BinRange): void {
     if ((out === null) !== (slot === null)) throw new TypeError('setOutput needs both out and slot, or neither');
+    const b = bins ?? { startBin: 0, count: this.bins };
+    if (!Number.isInteger(b.startBin) || !Number.isInteger(b.count) || b.startBin < 0 || b.count < 0 || b.startBin + b.count > this.bins) {
+      throw new RangeError(`bins ${b.startBin}+${b.count} outside 0…${this.bins - 1}`);
+    }
     this.#out = out;
     this.#slot = slot;
+    this.#outBins = out === null ? { startBin: 0, count: this.bins } : { startBin: b.startBin, count: b.count };
   }
 
   /** Sample index the next push() must start at, or null before the first push after reset(). */
@@ -261,6 +303,7 @@ export class MultiChannelStft {
   /** Forget all buffered samples and the stream position; the next push() starts a new stream. */
   reset(): void {
     this.#buffer.fill(0);
+    this.#fast?.frames.fill(0);
     this.#snapshot.fill(0);
     this.#filled = this.fftSize - this.hop;
     this.#nextSample = null;
@@ -292,19 +335,28 @@ export class MultiChannelStft {
    * @param onHop receives the snapshot (length 2·bins·M, layout above) and the sample index of
    *   the first sample of its analysis frame (the first frame after reset starts N − hop samples
    *   before the stream's first sample)
+   * @param channelStride samples between the starts of consecutive channels in `block`, default
+   *   `frames`; with `startFrame`, a run of frames inside a longer planar block is pushed without
+   *   a copy: channel c sample i is read at block[c·channelStride + startFrame + i]
+   * @param startFrame index inside each channel of the first frame to push, default 0
    */
   push(
     block: Samples,
     frames: number,
     firstSampleIndex: number,
     onHop: (snapshot: Float64Array, hopStartSample: number) => void,
+    channelStride = frames,
+    startFrame = 0,
   ): void {
     const m = this.channels;
     const n = this.fftSize;
     const hop = this.hop;
     if (!Number.isInteger(frames) || frames < 0) throw new RangeError(`frames must be an integer ≥ 0, got ${frames}`);
-    if (block.length < m * frames) {
-      throw new RangeError(`block must have length ≥ channels·frames = ${m * frames}, got ${block.length}`);
+    if (!Number.isInteger(startFrame) || startFrame < 0 || !Number.isInteger(channelStride) || channelStride < startFrame + frames) {
+      throw new RangeError(`startFrame ${startFrame} + frames ${frames} must fit in channelStride ${channelStride}`);
+    }
+    if (frames > 0 && block.length < (m - 1) * channelStride + startFrame + frames) {
+      throw new RangeError(`block must have length ≥ (channels − 1)·channelStride + startFrame + frames = ${(m - 1) * channelStride + startFrame + frames}, got ${block.length}`);
     }
     if (!Number.isSafeInteger(firstSampleIndex)) {
       throw new RangeError(`firstSampleIndex must be a safe integer, got ${firstSampleIndex}`);
@@ -317,17 +369,22 @@ export class MultiChannelStft {
         `firstSampleIndex must continue the stream at ${this.#nextSample}, got ${firstSampleIndex} (reset() to start a new stream)`,
       );
     }
-    const buf = this.#buffer;
+    const fast = this.#fast;
+    const buf = fast === null ? this.#buffer : fast.frames;
     const snap = this.#snapshot;
     const stft = this.#stft;
+    // Where channel c's frame lives and how far apart its samples are: planar (fft.js path) or
+    // pair-interleaved (WebAssembly path, see PairFft.frames).
+    const step = fast === null ? 1 : 2;
+    const frameAt = (c: number) => (fast === null ? c * n : (c >> 1) * 2 * n + (c & 1));
     let pos = 0;
     while (pos < frames) {
       const filled = this.#filled;
       const take = Math.min(n - filled, frames - pos);
       for (let c = 0; c < m; c++) {
-        const dst = c * n + filled;
-        const src = c * frames + pos;
-        for (let i = 0; i < take; i++) buf[dst + i] = block[src + i];
+        let dst = frameAt(c) + step * filled;
+        const src = c * channelStride + startFrame + pos;
+        for (let i = 0; i < take; i++, dst += step) buf[dst] = block[src + i];
       }
       pos += take;
       this.#nextSample += take;
@@ -338,9 +395,15 @@ export class MultiChannelStft {
       const hopStartSample = this.#frameStartSample;
       const out = this.#out ?? snap;
       const base = this.#slot === null ? 0 : this.#slot(hopStartSample);
-      for (let c = 0; c < m; c++) stft.analyzeStrided(out, base + 2 * c, 2 * m, buf, c * n);
-      // Advance the state before the callback so that it is consistent even if onHop throws.
-      for (let c = 0; c < m; c++) buf.copyWithin(c * n, c * n + hop, c * n + n);
+      const { startBin, count } = this.#outBins;
+      if (fast !== null) {
+        out.set(fast.analyze(startBin, count), base + 2 * m * startBin);
+        // Advance the state before the callback so that it is consistent even if onHop throws.
+        for (let p = 0; p < fast.pairs; p++) buf.copyWithin(2 * p * n, 2 * (p * n + hop), 2 * (p + 1) * n);
+      } else {
+        for (let c = 0; c < m; c++) stft.analyzeStrided(out, base + 2 * c, 2 * m, buf, c * n);
+        for (let c = 0; c < m; c++) buf.copyWithin(c * n, c * n + hop, c * n + n);
+      }
       this.#filled = n - hop;
       this.#frameStartSample += hop;
       onHop(out, hopStartSample);

@@ -236,3 +236,114 @@ describe('MultiChannelStft → WolaSynthesizer round trip', () => {
     expect(() => new MultiChannelStft(0, 256)).toThrow(RangeError);
   });
 });
+
+describe('MultiChannelStft on the WebAssembly SIMD transform (dsp/fast/wasm-fft.ts)', () => {
+  /** Each hop's snapshot of an analyser fed `block` (planar, `frames` per channel) in pieces. */
+  function snapshots(a: MultiChannelStft, block: Float32Array, frames: number, pieces: number[], accelerateAfter = -1): Promise<{ start: number; snap: Float64Array }[]> {
+    const out: { start: number; snap: Float64Array }[] = [];
+    return (async () => {
+      let at = 0;
+      for (let i = 0; at < frames; i++) {
+        const k = Math.min(pieces[i % pieces.length], frames - at);
+        a.push(block, k, at, (snap, start) => out.push({ start, snap: snap.slice() }), frames, at);
+        at += k;
+        if (i === accelerateAfter) expect(await a.accelerate()).toBe(true);
+      }
+      return out;
+    })();
+  }
+
+  for (const n of SIZES) {
+    it(`N = ${n}, 5 channels (one lane left over): every channel's bins match a direct DFT to 1e-12`, async () => {
+      const m = 5;
+      const frames = 3 * n;
+      const r = prng(n + 5);
+      const block = new Float32Array(m * frames).map(() => r());
+      const a = new MultiChannelStft(m, n);
+      expect(await a.accelerate()).toBe(true);
+      expect(a.accelerated).toBe(true);
+      const snaps = await snapshots(a, block, frames, [n / 2 + 3, 17]);
+      let worst = 0;
+      let checked = 0;
+      for (const { start, snap } of snaps) {
+        if (start < 0) continue;
+        for (let c = 0; c < m; c++) {
+          const x = Float64Array.from(block.subarray(c * frames + start, c * frames + start + n));
+          const ref = directDft(x, n);
+          const got = new Float64Array(ref.length);
+          for (let k = 0; k < n / 2 + 1; k++) {
+            got[2 * k] = snap[(k * m + c) * 2];
+            got[2 * k + 1] = snap[(k * m + c) * 2 + 1];
+          }
+          worst = Math.max(worst, maxRelativeError(got, ref));
+          checked++;
+        }
+      }
+      expect(checked).toBe(5 * 5); // frames at 0, N/2, N, 3N/2, 2N per channel
+      expect(worst).toBeLessThan(1e-12);
+    });
+  }
+
+  it('gives the fft.js path\'s snapshots when switched mid-stream, through a reset, in odd blocks', async () => {
+    const n = 512;
+    const m = 7;
+    const frames = 6000;
+    const r = prng(3);
+    const block = new Float32Array(m * frames).map(() => r());
+    const plain = await snapshots(new MultiChannelStft(m, n), block, frames, [37, 500, 1000]);
+    const fast = new MultiChannelStft(m, n);
+    const got = await snapshots(fast, block, frames, [37, 500, 1000], 1); // after 537 frames
+    expect(got.map((s) => s.start)).toEqual(plain.map((s) => s.start));
+    let worst = 0;
+    got.forEach((s, i) => (worst = Math.max(worst, maxRelativeError(s.snap, plain[i].snap))));
+    expect(worst).toBeLessThan(1e-12);
+    fast.reset();
+    const again = await snapshots(fast, block, frames, [1000]);
+    const plainAgain = await snapshots(new MultiChannelStft(m, n), block, frames, [1000]);
+    again.forEach((s, i) => expect(maxRelativeError(s.snap, plainAgain[i].snap)).toBeLessThan(1e-12));
+  });
+
+  it('writes only the requested bins into an output ring, the same values as the full snapshot', async () => {
+    const n = 256;
+    const m = 4;
+    const frames = 1024;
+    const r = prng(11);
+    const block = new Float32Array(m * frames).map(() => r());
+    const full = await snapshots(new MultiChannelStft(m, n), block, frames, [frames]);
+    const a = new MultiChannelStft(m, n);
+    await a.accelerate();
+    const slot = 2 * m * a.bins;
+    const ring = new Float64Array(2 * slot).fill(-7);
+    let hop = 0;
+    a.setOutput(ring, () => (hop++ % 2) * slot, { startBin: 10, stopBin: 29, count: 20 });
+    const seen: Float64Array[] = [];
+    a.push(block, frames, 0, (out, _start) => seen.push(out.slice(((hop - 1) % 2) * slot, ((hop - 1) % 2) * slot + slot)));
+    expect(seen).toHaveLength(full.length);
+    seen.forEach((s, i) => {
+      for (let k = 0; k < a.bins; k++) {
+        for (let q = 0; q < 2 * m; q++) {
+          const v = s[2 * m * k + q];
+          if (k >= 10 && k < 30) expect(v).toBeCloseTo(full[i].snap[2 * m * k + q], 12);
+          else expect(v).toBe(-7);
+        }
+      }
+    });
+    expect(() => a.setOutput(ring, () => 0, { startBin: 120, stopBin: 129, count: 10 })).toThrow(/outside 0…128/);
+  });
+
+  it('pushes a run of frames from inside a longer planar block without a copy', () => {
+    const n = 256;
+    const m = 3;
+    const frames = 1000;
+    const r = prng(21);
+    const block = new Float32Array(m * frames).map(() => r());
+    const sub = new Float32Array(m * 600);
+    for (let c = 0; c < m; c++) sub.set(block.subarray(c * frames + 300, c * frames + 900), c * 600);
+    const a: Float64Array[] = [];
+    const b: Float64Array[] = [];
+    new MultiChannelStft(m, n).push(sub, 600, 300, (s) => a.push(s.slice()));
+    new MultiChannelStft(m, n).push(block, 600, 300, (s) => b.push(s.slice()), frames, 300);
+    expect(b).toEqual(a);
+    expect(() => new MultiChannelStft(m, n).push(block, 600, 0, () => {}, frames, 500)).toThrow(/must fit in channelStride/);
+  });
+});
