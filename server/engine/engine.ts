@@ -136,6 +136,8 @@ export class Engine {
   #decimCounter = 0;
   #arrivalMs = 0;
   #replanning: Promise<void> | null = null;
+  /** pushAsync waiting for a result slot: called when a row is collected. */
+  #resultWaiters: (() => void)[] = [];
   #closed = false;
   // Figures for status.
   hops = 0;
@@ -219,6 +221,8 @@ export class Engine {
     }
     const band = this.#bandBins(p);
     if (band.count < 1) throw new RangeError(`band ${p.bandHz[0]}–${p.bandHz[1]} Hz holds no FFT bin`);
+    // The WebAssembly transform where the runtime has it (fft.js otherwise); the same spectra.
+    if (!this.#stft.accelerated) await this.#stft.accelerate();
     const M = this.channels;
     const baseGrid = directionGrid(p.grid);
     const grid = directionGrid(coarser(p.grid, shedEffect(this.#shedder.step).gridCoarsening));
@@ -285,7 +289,8 @@ export class Engine {
     this.#params = p;
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
-    this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)));
+    // Workers and beams read only the band's bins of a slot: only those are formed.
+    this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)), band);
     // Beam audio follows the band and FFT size; weights arrive with the next beam scan.
     this.#audio = new BeamAudio({ channels: this.channels, fftSize: this.#stft.fftSize, band, sampleRateHz: fs });
     this.#audio.sync(this.#beams.list.map((b) => b.id));
@@ -454,65 +459,89 @@ export class Engine {
 
   /** Feed one block of the stream (live: never waits; a full ring skips hops and counts them). */
   push(block: Block): void {
+    this.#pushFrames(block, 0, block.frames);
+  }
+
+  /** Frames [from, from + k) of a block (planar, block.frames per channel) into the STFT. */
+  #pushFrames(block: Block, from: number, k: number): void {
     if (this.#closed) return;
     if (block.channels !== this.channels) throw new RangeError(`block has ${block.channels} channels, the engine ${this.channels}`);
-    if (block.discontinuity || (this.#expected !== null && block.sampleIndex !== this.#expected)) {
+    const first = block.sampleIndex + from;
+    if ((block.discontinuity && from === 0) || (this.#expected !== null && first !== this.#expected)) {
       this.#stft.reset();
       this.#nextScanSample = -1;
     }
-    this.#expected = block.sampleIndex + block.frames;
+    this.#expected = first + k;
     this.#arrivalMs = performance.now();
     const t0 = this.#arrivalMs;
-    this.#stft.push(block.data, block.frames, block.sampleIndex, this.#onHop);
+    this.#stft.push(block.data, k, first, this.#onHop, block.frames, from);
     this.#stftMs += performance.now() - t0;
   }
 
   /**
-   * Feed a block and wait while the ring is full (offline runs and benchmarks: no hop is skipped).
-   * The block is pushed one hop at a time so no hop ever finds the ring full.
+   * Feed a block and wait while the ring or the result slots are full (offline runs and
+   * benchmarks: no hop is skipped, no scan delayed). The block goes in as runs of frames that are
+   * sure to find room: at most (free ring slots − 2) hops and (free result slots − 2) scan periods
+   * each, read in place from the block. The rows are the same as for live pushes with room.
    */
   async pushAsync(block: Block): Promise<void> {
-    const M = this.channels;
     const n = block.frames;
-    const hop = this.hop;
-    // Fast path: the whole block fits (every hop finds a ring slot, every scan a result slot), so it
-    // goes in as it is, without a copy per hop. The rows are the same either way.
-    const p = this.#plan;
-    let slowest = Infinity;
-    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
-    const hops = Math.ceil(n / hop) + 1;
-    const period = this.opts.sampleRateHz / (this.#params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
-    const scans = Math.ceil(n / period) + 1;
-    if (!this.#replanning && RING_SLOTS - 1 - (p.writeSeq - slowest) > hops && this.#pending.size + scans < RESULT_SLOTS - 1) {
-      this.push(block);
-      return;
-    }
-    for (let s = 0; s < n; s += hop) {
-      await this.#waitForSlot();
-      const k = Math.min(hop, n - s);
-      const data = new Float32Array(M * k);
-      for (let c = 0; c < M; c++) data.set(block.data.subarray(c * n + s, c * n + s + k), c * k);
-      this.push({ ...block, sampleIndex: block.sampleIndex + s, frames: k, data, discontinuity: block.discontinuity && s === 0 });
+    let s = 0;
+    while (s < n) {
+      const k = Math.min(n - s, await this.#roomFrames(n - s));
+      this.#pushFrames(block, s, k);
+      s += k;
     }
   }
 
-  async #waitForSlot(): Promise<void> {
+  /** Frames that can be pushed now without a hop finding the ring full or a scan no result slot. */
+  #framesThatFit(): { frames: number; ringLimited: boolean; inFlight: boolean } {
+    const p = this.#plan;
+    let slowest = Infinity;
+    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    // k frames complete at most ⌈k/hop⌉ hops and request at most ⌈k/period⌉ + 1 scans.
+    const ringFrames = (RING_SLOTS - 3 - (p.writeSeq - slowest)) * this.hop;
+    const period = this.opts.sampleRateHz / (this.#params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
+    const resultFrames = Math.floor((RESULT_SLOTS - 3 - this.#pending.size) * period);
+    return { frames: Math.max(0, Math.min(ringFrames, resultFrames)), ringLimited: ringFrames <= resultFrames, inFlight: slowest < p.writeSeq };
+  }
+
+  /** Wait until at least `want` frames fit (see #framesThatFit); resolves with how many fit. */
+  async #roomFrames(atMost: number): Promise<number> {
     for (;;) {
-      const p = this.#plan;
-      let slowest = Infinity;
-      let who = 0;
-      for (let w = 0; w < p.ranges.length; w++) {
-        const d = Atomics.load(p.ctrl, CTRL_DONE + w);
-        if (d < slowest) [slowest, who] = [d, w];
-      }
-      if (this.#pending.size >= RESULT_SLOTS - 1) {
-        // Results are read on this thread's event loop: let it turn.
-        await new Promise((r) => setTimeout(r, 0));
+      if (this.#closed) return atMost; // the push is a no-op
+      // Never more than half the ring or all the result slots can take, so the wait ends.
+      const period = this.opts.sampleRateHz / (this.#params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
+      const want = Math.max(1, Math.min(atMost, (RING_SLOTS / 2) * this.hop, Math.floor((RESULT_SLOTS - 3) * period)));
+      if (this.#replanning) {
+        await this.#replanning.catch(() => {});
         continue;
       }
-      if (p.writeSeq - slowest < RING_SLOTS - 1) return;
-      const r = Atomics.waitAsync(p.ctrl, CTRL_DONE + who, slowest, 100);
-      if (r.async) await r.value;
+      const fit = this.#framesThatFit();
+      if (fit.frames >= want) return fit.frames;
+      if (fit.ringLimited) {
+        // Hops are in flight (the ring is not empty): wait for the slowest worker to finish one.
+        const p = this.#plan;
+        let slowest = Infinity;
+        let who = 0;
+        for (let w = 0; w < p.ranges.length; w++) {
+          const d = Atomics.load(p.ctrl, CTRL_DONE + w);
+          if (d < slowest) [slowest, who] = [d, w];
+        }
+        const r = Atomics.waitAsync(p.ctrl, CTRL_DONE + who, slowest, 100);
+        if (r.async) await r.value;
+        continue;
+      }
+      // Results are read on this thread's event loop: let it turn until one is collected.
+      const got = await new Promise<boolean>((resolve) => {
+        const t = setTimeout(() => resolve(false), 50);
+        this.#resultWaiters.push(() => {
+          clearTimeout(t);
+          resolve(true);
+        });
+      });
+      // Scans orphaned by a worker restart never complete: with nothing in flight, go on.
+      if (!got && !this.#framesThatFit().inFlight) return Math.max(fit.frames, Math.min(want, this.hop));
     }
   }
 
@@ -537,6 +566,7 @@ export class Engine {
     pend.scanMs = Math.max(pend.scanMs, m.scanMs);
     if (++pend.count < p.ranges.length) return;
     this.#pending.delete(m.scanSeq);
+    for (const r of this.#resultWaiters.splice(0)) r();
     // Older scans still waiting will never complete in order: drop them.
     for (const k of [...this.#pending.keys()]) {
       if (k < m.scanSeq) {
@@ -727,6 +757,7 @@ export class Engine {
       directions: p.grid.count,
       stages: {
         stftMsPerHop: this.hops ? this.#stftMs / this.hops : 0,
+        stftTransform: this.#stft.accelerated ? 'wasm-simd' : 'fft.js',
         workerMsPerHop: workers.map((w) => (w.hops ? w.busyMs / w.hops : 0)),
         lastScanMs: workers.map((w) => w.lastScanMs),
         combineMsPerRow: this.rows ? this.#combineMs / this.rows : 0,

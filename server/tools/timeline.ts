@@ -91,9 +91,14 @@ export async function runTimeline(reader: FileSampleReader, o: TimelineOptions):
       const block: Block = { streamId: 0, sampleIndex: o.startSampleIndex + at, sampleRateHz: info.sampleRateHz, channels: M, frames: n, data, gap: false, discontinuity: false };
       await engine.pushAsync(block);
     };
-    for await (const bytes of reader.chunks(chunkFrames)) {
+    // One read buffer and one planar buffer for every chunk: the engine has consumed a block when
+    // pushAsync resolves.
+    const raw = new Uint8Array(chunkFrames * info.blockAlignBytes);
+    const planar = new Float32Array(M * chunkFrames);
+    while (done < info.frames) {
+      const bytes = await reader.readFrames(done, chunkFrames, raw);
       const n = bytes.byteLength / info.blockAlignBytes;
-      const data = new Float32Array(M * n);
+      const data = planar.subarray(0, M * n);
       if (!decodeInterleaved(bytes, M, n, info.encoding, data)) throw new RangeError(`the file holds NaN or infinite samples between frames ${done} and ${done + n}`);
       // Split at each change inside this chunk, so it applies from its exact sample on.
       let from = 0;
