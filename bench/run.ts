@@ -164,6 +164,6 @@ if (values.workload) {
   for (const r of ingest) say(`  ${r.name.padEnd(24)} ${String(r.samplesPerFrame).padStart(3)} samples/frame  ${r.framesPerS.toFixed(0).padStart(7)} frames/s  rtf ${r.rtf.toFixed(4)}`);
   say('\nbuilt-in scene generator, 48 kHz, one thread');
   for (const r of simulator) say(`  ${r.name.padEnd(24)} ${String(r.channels).padStart(3)} ch  rtf ${r.rtf.toFixed(4)}`);
-  say(`\nsingle-thread plain kernels, W32: MVDR update ${dsp.mvdrUpdateMs.toFixed(2)} ms, conventional ${dsp.conventionalUpdateMs.toFixed(2)} ms, STFT ${dsp.stftHopMs.toFixed(3)} ms/hop, covariance ${dsp.covarianceHopMs.toFixed(3)} ms/hop`);
+  say(`\nsingle-thread plain kernels, W32: MVDR update ${dsp.mvdrUpdateMs.toFixed(2)} ms, conventional ${dsp.conventionalUpdateMs.toFixed(2)} ms, STFT ${dsp.stftHopMs.toFixed(3)} ms/hop (fft.js; ${dsp.stftFastHopMs.toFixed(3)} ms/hop as the engine runs it, WebAssembly, band only), covariance ${dsp.covarianceHopMs.toFixed(3)} ms/hop`);
   if (values.json) console.log(JSON.stringify({ node: process.version, workloads: results, ingest, simulator, dsp }));
 }
