@@ -134,6 +134,8 @@ export class Engine {
   #dueBeams: number[] = [];
   #pendingReset = false;
   #decimCounter = 0;
+  /** Value of `hops` when a hop was last published to the workers; −1 before the first. */
+  #lastPublishedHop = -1;
   #arrivalMs = 0;
   #replanning: Promise<void> | null = null;
   /** pushAsync waiting for a result slot: called when a row is collected. */
@@ -328,7 +330,8 @@ export class Engine {
     }
     let slowest = Infinity;
     for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
-    if (p.writeSeq - slowest >= RING_SLOTS) {
+    if (p.writeSeq - slowest >= RING_SLOTS || this.#forcedSkips > 0) {
+      if (this.#forcedSkips > 0) this.#forcedSkips--;
       this.#skip = 'full';
       return RING_SLOTS * p.slotDoubles;
     }
@@ -337,6 +340,12 @@ export class Engine {
   }
 
   #skip: 'full' | 'decimated' | null = null;
+  #forcedSkips = 0;
+
+  /** Test hook: the next n hops find the ring full, as under overload (they are skipped). */
+  skipHopsAsIfFull(n: number): void {
+    this.#forcedSkips = n;
+  }
 
   // ---- steered beams: weights and responses computed by the workers on the scans they are due ----
   readonly #beams = new BeamSet();
@@ -404,7 +413,6 @@ export class Engine {
     this.#lastHopEnd = hopEnd;
     const slot = p.writeSeq % RING_SLOTS;
     const o = slot * META_STRIDE;
-    const dec = shedEffect(this.#shedder.step).covarianceDecimation;
     let flags = 0;
     if (this.#pendingReset) {
       flags |= FLAG_RESET;
@@ -428,8 +436,12 @@ export class Engine {
       this.scansDeferred++;
     }
     p.meta[o + META_SAMPLE] = hopStart;
-    // Decimated updates keep the time constant: λ per published hop becomes λ^k.
-    p.meta[o + META_LAMBDA] = dec === 1 ? params.lambda : Math.pow(params.lambda, dec);
+    // Hops left out (decimated, or the ring full) keep the time constant: λ per published hop
+    // becomes λ^k, k the hops since the last published one. The floor keeps λ in (0, 1) after a
+    // long stall (the memory is then effectively restarted).
+    const k = this.#lastPublishedHop < 0 ? 1 : this.hops - this.#lastPublishedHop;
+    this.#lastPublishedHop = this.hops;
+    p.meta[o + META_LAMBDA] = k === 1 ? params.lambda : Math.max(1e-12, Math.pow(params.lambda, k));
     p.meta[o + META_FLAGS] = flags;
     const l = params.loading;
     const mean = 1; // relative modes are scale-free; fixed δ is in scaled units already

@@ -61,8 +61,12 @@ async function scene(frames = 32768) {
   return { g, blocks };
 }
 
-/** The single-thread float64 reference: every hop into one BinProcessor; scans at the given hops. */
-function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p: ProcessingParams, scanAt: Set<number>, active?: boolean[]) {
+/**
+ * The single-thread float64 reference: every hop into one BinProcessor; scans at the given hops.
+ * Hops whose index is in `skip` are left out, and the next hop kept stands for them: λ^k, k the
+ * hops since the last one kept (the exponentially weighted mean keeps its time constant).
+ */
+function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p: ProcessingParams, scanAt: Set<number>, active?: boolean[], skip?: { from: number; count: number; compensate: boolean }) {
   const M = g.positions.length;
   const stft = new MultiChannelStft(M, N);
   const band = stft.bandBins(p.bandHz[0], p.bandHz[1], FS);
@@ -71,9 +75,17 @@ function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p
   const proc = new BinProcessor({ positions: g.positions, freqsHz: freqs, grid, speedOfSoundMps: 343.2, snapshotScale: 2 / N });
   if (active) proc.setMask(active);
   const out = new Map<number, { conv: Float64Array; mvdr: Float64Array }>();
+  let hop = 0;
+  let k = 1;
   for (const b of blocks) {
     stft.push(b.data, b.frames, b.sampleIndex, (snap, hopStart) => {
-      proc.hop(snap.slice(2 * M * band.startBin, 2 * M * (band.stopBin + 1)), p.lambda);
+      const h = hop++;
+      if (skip && h >= skip.from && h < skip.from + skip.count) {
+        k++;
+        return;
+      }
+      proc.hop(snap.slice(2 * M * band.startBin, 2 * M * (band.stopBin + 1)), skip?.compensate ? Math.pow(p.lambda, k) : p.lambda);
+      k = 1;
       const last = hopStart + N - 1;
       if (scanAt.has(last)) {
         const conv = new Float64Array(grid.count);
@@ -147,6 +159,35 @@ describe('live engine', () => {
     const st = engine.status() as any;
     expect(st.workerRestarts).toBe(1);
     expect(st.lastWorkerError).toMatch(/injected fault/);
+  });
+
+  it('hops skipped with the ring full keep the time constant: the next hop kept is weighted λ^k', async () => {
+    const { g, blocks } = await scene();
+    const rows: EngineRow[] = [];
+    const p = params();
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
+    for (const b of blocks.slice(0, 10)) await engine.pushAsync(b);
+    await engine.drain();
+    // 10 000 samples complete the hops whose frames end by then: starts −256, 0, …, 9472 (39).
+    expect(engine.hops).toBe(39);
+    engine.skipHopsAsIfFull(20);
+    for (const b of blocks.slice(10)) await engine.pushAsync(b);
+    await engine.drain();
+    expect(engine.status()).toMatchObject({ hopsSkipped: 20 });
+    const at = new Set(rows.map((r) => r.sampleIndex));
+    const kept = reference(g, blocks, p, at, undefined, { from: 39, count: 20, compensate: true });
+    const plain = reference(g, blocks, p, at, undefined, { from: 39, count: 20, compensate: false });
+    let worst = 0;
+    let apart = 0;
+    for (const r of rows) {
+      const e = kept.get(r.sampleIndex)!;
+      expect(e, `reference scan at ${r.sampleIndex}`).toBeDefined();
+      worst = Math.max(worst, maxRel(r.mvdrPower!, e.mvdr), maxRel(r.conventionalPower!, e.conv));
+      apart = Math.max(apart, maxRel(r.conventionalPower!, plain.get(r.sampleIndex)!.conv));
+    }
+    expect(worst).toBeLessThan(1e-9);
+    // Without the compensation the rows after the gap would differ (λ instead of λ^21 = 0.654).
+    expect(apart).toBeGreaterThan(1e-3);
   });
 
   it('a λ change applies from the next hop; band and grid changes re-plan', async () => {
