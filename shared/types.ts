@@ -8,6 +8,18 @@ export interface ArrayGeometry {
   description?: string;
   /** positions[m] = [x, y, z] of sensor m, metres. */
   positions: [number, number, number][];
+  /** Measured per-channel response, corrected in the front end (absent: all channels nominal). */
+  calibration?: ChannelCalibration;
+}
+
+/**
+ * How each channel departs from nominal, as measured (e.g. against a reference microphone):
+ * gainDb[m] its gain relative to nominal (+1 = reads 1 dB hot), delayUs[m] its extra delay in
+ * microseconds (cable, converter). The front end divides by the gain and advances by the delay.
+ */
+export interface ChannelCalibration {
+  gainDb: number[];
+  delayUs: number[];
 }
 
 /**

@@ -1,9 +1,10 @@
 /**
- * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres; more fields allowed
+ * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres, optionally
+ * `"calibration": { "gainDb": […], "delayUs": […] }` (one entry per position); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
-import type { ArrayGeometry } from '../../shared/types.ts';
+import type { ArrayGeometry, ChannelCalibration } from '../../shared/types.ts';
 import { ConfigError, type ConfigIssue } from './validate.ts';
 
 export const MAX_SENSORS = 1024;
@@ -45,8 +46,42 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
       }
     }
   }
+  const calibration = o.calibration === undefined ? undefined : validateCalibration(o.calibration, pos.length, add);
   if (issues.length > 0) throw new ConfigError(issues);
-  return { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
+  const g: ArrayGeometry = { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
+  if (calibration) g.calibration = calibration;
+  return g;
+}
+
+/** Largest calibration gain accepted, ±dB: beyond it the channel is faulty, not mismatched. */
+export const MAX_CALIBRATION_GAIN_DB = 40;
+/**
+ * Largest calibration delay accepted, ±µs. The correction is a phase ramp on each STFT frame, exact
+ * only for delays much shorter than the frame (N/fs ≥ 5.3 ms at 48 kHz); 1 ms covers cables and
+ * converters.
+ */
+export const MAX_CALIBRATION_DELAY_US = 1000;
+
+function validateCalibration(value: unknown, m: number, add: (path: string, v: unknown, msg: string) => void): ChannelCalibration | undefined {
+  if (typeof value !== 'object' || value === null || Array.isArray(value)) {
+    add('calibration', value, 'must be an object { "gainDb": [...], "delayUs": [...] }');
+    return undefined;
+  }
+  const c = value as Record<string, unknown>;
+  for (const k of Object.keys(c)) if (k !== 'gainDb' && k !== 'delayUs') add(`calibration.${k}`, c[k], 'is not a calibration field (gainDb, delayUs)');
+  const list = (key: 'gainDb' | 'delayUs', limit: number, unit: string): number[] => {
+    const v = c[key];
+    if (v === undefined) return Array(m).fill(0);
+    if (!Array.isArray(v) || v.length !== m) {
+      add(`calibration.${key}`, Array.isArray(v) ? `${v.length} entries` : v, `must list one number (${unit}) per position, ${m} in all`);
+      return [];
+    }
+    v.forEach((x, i) => {
+      if (typeof x !== 'number' || !Number.isFinite(x) || Math.abs(x) > limit) add(`calibration.${key}[${i}]`, x, `must be a number within ±${limit} ${unit}`);
+    });
+    return v as number[];
+  };
+  return { gainDb: list('gainDb', MAX_CALIBRATION_GAIN_DB, 'dB'), delayUs: list('delayUs', MAX_CALIBRATION_DELAY_US, 'µs') };
 }
 
 /** Read and validate a geometry file. */

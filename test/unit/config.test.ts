@@ -100,4 +100,25 @@ describe('configuration', () => {
     const msgs = await issuesOf(loadConfig({ env: {}, overrides: [['array.file', file('geo.json', { positions: [[0, 0, 'x']] })]] }));
     expect(msgs[0]).toMatch(/geo\.json: positions\[0\] must be/);
   });
+
+  it('validates the optional per-channel calibration of an array file', () => {
+    const two = [[0, 0, 0], [0.1, 0, 0]];
+    expect(validateGeometry({ positions: two }, 'a.json').calibration).toBeUndefined();
+    expect(validateGeometry({ positions: two, calibration: { gainDb: [0.5, -1] } }, 'a.json').calibration).toEqual({ gainDb: [0.5, -1], delayUs: [0, 0] });
+    expect(validateGeometry({ positions: two, calibration: { delayUs: [3, -12.5] } }, 'a.json').calibration).toEqual({ gainDb: [0, 0], delayUs: [3, -12.5] });
+    const bad = (c: unknown) => {
+      try {
+        validateGeometry({ positions: two, calibration: c }, 'g.json');
+      } catch (e) {
+        return (e as ConfigError).issues.map((i) => i.message);
+      }
+      return [];
+    };
+    expect(bad({ gainDb: [1] })).toEqual(['g.json: calibration.gainDb must list one number (dB) per position, 2 in all']);
+    expect(bad({ gainDb: [0, 41] })).toEqual(['g.json: calibration.gainDb[1] must be a number within ±40 dB']);
+    expect(bad({ delayUs: [0, 'x'] })).toEqual(['g.json: calibration.delayUs[1] must be a number within ±1000 µs']);
+    expect(bad({ delayUs: [1001, 0] })).toEqual(['g.json: calibration.delayUs[0] must be a number within ±1000 µs']);
+    expect(bad({ gain: [0, 0] })).toEqual(['g.json: calibration.gain is not a calibration field (gainDb, delayUs)']);
+    expect(bad([0, 0])).toEqual(['g.json: calibration must be an object { "gainDb": [...], "delayUs": [...] }']);
+  });
 });
