@@ -1,0 +1,60 @@
+/**
+ * Per-channel calibration in the front end: each channel's measured gain and extra delay
+ * (ChannelCalibration, from the array file) are undone on its STFT bins.
+ *
+ * A channel that reads g dB hot and lags by d seconds gives, under this project's STFT sign
+ * (dsp/stft.ts: s(t − τ) ↦ S(f)·e^{−j2πfτ}), X_m(f) = 10^{g/20} · e^{−j2πfd} · X⁰_m(f). The
+ * correction multiplies bin f of channel m by c_m(f) = 10^{−g/20} · e^{+j2πfd}.
+ *
+ * The delay part is a phase ramp on each frame, so it is exact for a component at the bin's centre
+ * frequency and approximate in between; the error grows with d/(N/fs), which is why array files
+ * limit d to 1 ms (common practice: frequency-domain delay compensation is used for small
+ * inter-channel delays, long ones belong before the analysis).
+ */
+import type { ChannelCalibration } from '../../shared/types.ts';
+
+/**
+ * Correction factors for the given bins, interleaved complex and bin-major like a snapshot band:
+ * c_m(f_b) at [(b·M + m)·2]. Null when every channel is nominal (nothing to do).
+ * @param cal the array's calibration, or undefined
+ * @param channels M
+ * @param freqsHz centre frequency of each bin, Hz
+ */
+export function correctionFactors(cal: ChannelCalibration | undefined, channels: number, freqsHz: ArrayLike<number>): Float64Array | null {
+  if (!cal) return null;
+  if (cal.gainDb.length !== channels || cal.delayUs.length !== channels) {
+    throw new RangeError(`calibration lists ${cal.gainDb.length} gains and ${cal.delayUs.length} delays for ${channels} channels`);
+  }
+  if (cal.gainDb.every((g) => g === 0) && cal.delayUs.every((d) => d === 0)) return null;
+  const out = new Float64Array(2 * channels * freqsHz.length);
+  for (let b = 0; b < freqsHz.length; b++) {
+    for (let m = 0; m < channels; m++) {
+      const a = Math.pow(10, -cal.gainDb[m] / 20);
+      const phi = 2 * Math.PI * freqsHz[b] * cal.delayUs[m] * 1e-6;
+      out[2 * (b * channels + m)] = a * Math.cos(phi);
+      out[2 * (b * channels + m) + 1] = a * Math.sin(phi);
+    }
+  }
+  return out;
+}
+
+/**
+ * Multiply a band of a snapshot by the factors, in place: x[offset + i] ← x[offset + i]·c[i] for
+ * each complex entry of `factors` (factors.length doubles from `offset`).
+ */
+export function applyCorrection(snapshot: Float64Array, offset: number, factors: Float64Array): void {
+  for (let i = 0, o = offset; i < factors.length; i += 2, o += 2) {
+    const xr = snapshot[o];
+    const xi = snapshot[o + 1];
+    const cr = factors[i];
+    const ci = factors[i + 1];
+    snapshot[o] = xr * cr - xi * ci;
+    snapshot[o + 1] = xr * ci + xi * cr;
+  }
+}
+
+/** A short description for status and logs: the largest gain and delay corrected. */
+export function describeCalibration(cal: ChannelCalibration | undefined): { gainDbMax: number; delayUsMax: number } | null {
+  if (!cal) return null;
+  return { gainDbMax: Math.max(0, ...cal.gainDb.map(Math.abs)), delayUsMax: Math.max(0, ...cal.delayUs.map(Math.abs)) };
+}
