@@ -12,6 +12,7 @@ import type { HelloMessage, ProcessingDerived } from '../shared/messages.ts';
 import type { Block, BlockSink } from '../shared/types.ts';
 import type { LoadedConfig } from './config/load.ts';
 import { ConfigError } from './config/validate.ts';
+import { describeCalibration } from './dsp/calibration.ts';
 import { defaultGrid } from './dsp/scan-pipeline.ts';
 import { ChannelMeters } from './engine/channel-meters.ts';
 import { Engine } from './engine/engine.ts';
@@ -219,7 +220,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       uptimeS: (now - startedMs) / 1000,
       source: { kind: config.source.kind, ...(scene ? { scenario: scene.describe() } : {}) },
       // The file's name only: status may be open to anyone who can reach the port.
-      array: { name: geometry.name, file: basename(arrayPath), channels },
+      array: { name: geometry.name, file: basename(arrayPath), channels, calibration: describeCalibration(geometry.calibration) },
       input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
       listeners: {
         http: { host: config.server.host, port: httpPort },
@@ -398,7 +399,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
           encoding: r.encoding,
           rotateSeconds: r.rotateSeconds ?? undefined,
           rotateBytes: r.rotateBytes ?? undefined,
-          meta: { array: { name: geometry.name, positions: geometry.positions }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind, speedOfSoundMps: config.engine.speedOfSoundMps } },
+          meta: { array: { name: geometry.name, positions: geometry.positions, ...(geometry.calibration ? { calibration: geometry.calibration } : {}) }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind, speedOfSoundMps: config.engine.speedOfSoundMps } },
         });
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
         recordingStartSeq = journalNote('recording-start', null, { raw: r.raw, beams: r.beams, encoding: r.encoding }, `recording started (${r.encoding})`).seq;

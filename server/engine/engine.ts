@@ -10,6 +10,7 @@
  */
 import type { RowPeak, SpectrumRow } from '../../shared/messages.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
+import { applyCorrection, correctionFactors } from '../dsp/calibration.ts';
 import { PeakFinder } from '../dsp/peaks.ts';
 import { MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
@@ -291,6 +292,10 @@ export class Engine {
     this.#params = p;
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
+    // Per-channel calibration, undone on the band's bins of each slot before anyone reads them.
+    const bandFreqs = Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * fs) / this.#stft.fftSize);
+    this.#correction = correctionFactors(this.opts.geometry.calibration, M, bandFreqs);
+    this.#correctionOffset = 2 * M * band.startBin;
     // Workers and beams read only the band's bins of a slot: only those are formed.
     this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)), band);
     // Beam audio follows the band and FFT size; weights arrive with the next beam scan.
@@ -340,6 +345,9 @@ export class Engine {
   }
 
   #skip: 'full' | 'decimated' | null = null;
+  /** Calibration factors of the band's bins (dsp/calibration.ts), null when all channels are nominal. */
+  #correction: Float64Array | null = null;
+  #correctionOffset = 0;
   #forcedSkips = 0;
 
   /** Test hook: the next n hops find the ring full, as under overload (they are skipped). */
@@ -395,6 +403,7 @@ export class Engine {
 
   #onHop = (out: Float64Array, hopStart: number): void => {
     this.hops++;
+    if (this.#correction) applyCorrection(out, this.#slotOffset + this.#correctionOffset, this.#correction);
     // Beam audio first, from the snapshot as written (before any worker scales its bins in place).
     const audio = this.#audio.process(out, this.#slotOffset, hopStart);
     if (audio) this.opts.onBeamAudio?.(audio);

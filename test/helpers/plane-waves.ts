@@ -3,7 +3,8 @@
  * delayed to every sensor in the frequency domain over the whole (power-of-two) signal, so every
  * delay is exact (a circular delay of a periodic signal). Written from the convention in
  * ../shared/DESIGN.md §3, not with the project's steering code: τ_m = −(p_m·u)/c, sensor m hears
- * s(t − τ_m), u = (cos el cos az, cos el sin az, sin el) toward the source.
+ * s(t − τ_m), u = (cos el cos az, cos el sin az, sin el) toward the source. Optional per-channel
+ * gain and delay errors stand for an uncalibrated array.
  */
 import FFT from 'fft.js';
 import { mulberry32 } from './random.ts';
@@ -28,6 +29,10 @@ export interface PlaneWaveScene {
   /** Uncorrelated white noise per sensor, rms. */
   noiseRms: number;
   noiseSeed: number;
+  /** Channel m's gain error in dB, applied to all it hears (sources and noise); default 0. */
+  channelGainDb?: number[];
+  /** Channel m's extra delay in seconds, applied to the sources (exact, circular); default 0. */
+  channelDelayS?: number[];
 }
 
 function gaussian(rand: () => number): number {
@@ -63,7 +68,7 @@ export function renderPlaneWaves(scene: PlaneWaveScene): Float32Array {
     const u = [Math.cos(el) * Math.cos(az), Math.cos(el) * Math.sin(az), Math.sin(el)];
     for (let m = 0; m < M; m++) {
       const p = positions[m];
-      const tau = -(p[0] * u[0] + p[1] * u[1] + p[2] * u[2]) / c;
+      const tau = -(p[0] * u[0] + p[1] * u[1] + p[2] * u[2]) / c + (scene.channelDelayS?.[m] ?? 0);
       for (let k = 0; k < L; k++) {
         // Signed frequency of bin k; the delay multiplies by exp(−j2πfτ).
         const f = ((k <= L / 2 ? k : k - L) * fs) / L;
@@ -82,5 +87,11 @@ export function renderPlaneWaves(scene: PlaneWaveScene): Float32Array {
   const rand = mulberry32(scene.noiseSeed);
   const x = new Float32Array(L * M);
   for (let i = 0; i < x.length; i++) x[i] = out[i] + scene.noiseRms * gaussian(rand);
+  if (scene.channelGainDb) {
+    for (let m = 0; m < M; m++) {
+      const g = Math.pow(10, scene.channelGainDb[m] / 20);
+      for (let n = 0; n < L; n++) x[n * M + m] *= g;
+    }
+  }
   return x;
 }

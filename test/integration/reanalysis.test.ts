@@ -37,8 +37,11 @@ describe('re-analysis of a capture', () => {
     const dir = mkdtempSync(join(tmpdir(), 'nullsteer-reanalysis-'));
     const positions = Array.from({ length: M }, (_, m) => [0.1 * Math.cos((2 * Math.PI * m) / M), 0.1 * Math.sin((2 * Math.PI * m) / M), 0] as [number, number, number]);
     const arrayFile = join(dir, 'reanalysis-ring-8.json');
-    writeFileSync(arrayFile, JSON.stringify({ name: 'reanalysis ring, 8 sensors', positions }));
-    const x = renderPlaneWaves({ positions, sampleRateHz: FS, frames: 1 << 18, speedOfSoundMps: 343.2, sources: [{ azimuthDeg: 60, rms: 0.1, loHz: 400, hiHz: 1800, seed: 5 }, { azimuthDeg: 200, rms: 0.05, loHz: 400, hiHz: 1800, seed: 6 }], noiseRms: 0.005, noiseSeed: 7 });
+    // A calibrated array (channels a little hot or cold and late), so the capture's sidecar must
+    // carry the calibration for the re-analysis to match.
+    const calibration = { gainDb: [0, 0.8, -0.5, 0.3, -1, 0.6, 0.1, -0.4], delayUs: [0, 6, -4, 10, 2, -8, 5, -3] };
+    writeFileSync(arrayFile, JSON.stringify({ name: 'reanalysis ring, 8 sensors', positions, calibration }));
+    const x = renderPlaneWaves({ positions, sampleRateHz: FS, frames: 1 << 18, speedOfSoundMps: 343.2, sources: [{ azimuthDeg: 60, rms: 0.1, loHz: 400, hiHz: 1800, seed: 5 }, { azimuthDeg: 200, rms: 0.05, loHz: 400, hiHz: 1800, seed: 6 }], noiseRms: 0.005, noiseSeed: 7, channelGainDb: calibration.gainDb, channelDelayS: calibration.delayUs.map((d) => d * 1e-6) });
     svc = await startTestService({ array: { file: arrayFile }, outputs: { dir: join(dir, 'rec') }, engine: { workers: 2 }, processing: { bandLowHz: 400, bandHighHz: 1800, azimuthStepDeg: 2, spectrumRateHz: 20 } });
     const live: { sampleIndex: number; mvdr: Float32Array; conv: Float32Array }[] = [];
     ws = new WebSocket(`${svc.url.replace(/^http/, 'ws')}/api/live`);
@@ -69,6 +72,8 @@ describe('re-analysis of a capture', () => {
     expect([st.shed.changes, st.scansDeferred, st.hopsSkipped]).toEqual([0, 0, 0]); // the live rows came on schedule
 
     const wav = join(dir, 'rec', readdirSync(join(dir, 'rec')).find((f) => f.endsWith('-raw-0001.wav'))!);
+    expect(JSON.parse(readFileSync(wav.replace(/\.wav$/, '.json'), 'utf8')).array.calibration).toEqual(calibration);
+    expect((await (await fetch(`${svc.url}/api/status`)).json()).array.calibration).toEqual({ gainDbMax: 1, delayUsMax: 10 });
     const outDir = join(dir, 'timeline');
     let said = '';
     const progress: string[] = [];
