@@ -138,7 +138,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       version: 1,
       grid: { nAz: g.nAz, nEl: g.nEl, azimuthDeg: Array.from(g.azimuthDeg.subarray(0, g.nAz)), elevationDeg: Array.from({ length: g.nEl }, (_, i) => g.elevationDeg[i * g.nAz]) },
       params,
-      array: { name: geometry.name, positions: geometry.positions },
+      array: { name: geometry.name, positions: geometry.positions, calibration: describeCalibration(geometry.calibration) },
       derived: d,
     };
   };

@@ -330,7 +330,8 @@ export interface HelloMessage {
   version: number;
   grid: LiveGrid;
   params: ProcessingParams;
-  array: { name: string; positions: [number, number, number][] };
+  /** calibration: the largest per-channel correction applied (null or absent: channels nominal). */
+  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number } | null };
   derived?: ProcessingDerived;
 }
 
@@ -445,6 +446,12 @@ export function parseServerMessage(text: string): ServerMessage {
       if (typeof a.name !== 'string') throw new MessageParseError('array.name', 'must be a string');
       if (!Array.isArray(a.positions)) throw new MessageParseError('array.positions', 'must be an array of [x, y, z]');
       a.positions.forEach((x, i) => numArray(`array.positions[${i}]`, x, 3));
+      if (a.calibration !== undefined && a.calibration !== null) {
+        const c = obj('array.calibration', a.calibration);
+        for (const k of ['gainDbMax', 'delayUsMax']) {
+          if (typeof c[k] !== 'number' || !Number.isFinite(c[k])) throw new MessageParseError(`array.calibration.${k}`, 'must be a finite number');
+        }
+      }
       derived('derived', m.derived);
       return m as unknown as HelloMessage;
     }

@@ -80,6 +80,10 @@ describe.skipIf(!browserAvailable)('dashboard in a browser', () => {
     }
   });
 
+  it('the array layout says the built-in array is taken as nominal (no calibration in its file)', async () => {
+    expect((await page.getByTestId('calibration').textContent())?.trim()).toMatch(/^none: every channel taken as nominal$/);
+  });
+
   it('τ typed in the panel changes the server λ; a bad value shows an error and changes nothing', async () => {
     const input = page.getByTestId('input-tauS');
     await input.fill('0.25');

@@ -236,6 +236,7 @@ describe('JSON server messages', () => {
   it('parses hello, params and status back to what was sent', () => {
     const msgs = [
       hello(),
+      { ...hello(), array: { ...hello().array, calibration: { gainDbMax: 1.5, delayUsMax: 25 } } },
       { type: 'params' as const, params: { ...PARAMS, grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 1 } } } },
       { type: 'status' as const, emittedAtMs: 1.5e12, status: { shedStep: 1 } },
     ];
@@ -262,6 +263,7 @@ describe('JSON server messages', () => {
       [{ ...h, grid: { ...h.grid, nAz: 71 } }, 'grid.azimuthDeg', /has 72 values, expected 71/],
       [{ ...h, grid: { ...h.grid, elevationDeg: [0, 'x'] } }, 'grid.elevationDeg', /has 2 values/],
       [{ ...h, array: { name: 'x', positions: [[0, 0]] } }, 'array.positions[0]', /expected 3/],
+      [{ ...h, array: { ...h.array, calibration: { gainDbMax: 'x', delayUsMax: 0 } } }, 'array.calibration.gainDbMax', /finite number/],
       [{ type: 'params', params: { ...PARAMS, lambda: '0.9' } }, 'params.lambda', /finite number/],
       [{ type: 'params', params: { ...PARAMS, loading: { mode: 'auto' } } }, 'params.loading.mode', /one of relative/],
       [{ type: 'params', params: { ...PARAMS, loading: { mode: 'fixed' } } }, 'params.loading.delta', /finite number/],
