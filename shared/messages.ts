@@ -331,7 +331,7 @@ export interface HelloMessage {
   grid: LiveGrid;
   params: ProcessingParams;
   /** calibration: the largest per-channel correction applied (null or absent: channels nominal). */
-  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number } | null };
+  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null } | null };
   derived?: ProcessingDerived;
 }
 
@@ -450,6 +450,9 @@ export function parseServerMessage(text: string): ServerMessage {
         const c = obj('array.calibration', a.calibration);
         for (const k of ['gainDbMax', 'delayUsMax']) {
           if (typeof c[k] !== 'number' || !Number.isFinite(c[k])) throw new MessageParseError(`array.calibration.${k}`, 'must be a finite number');
+        }
+        if (c.splOffsetDb !== undefined && c.splOffsetDb !== null && (typeof c.splOffsetDb !== 'number' || !Number.isFinite(c.splOffsetDb))) {
+          throw new MessageParseError('array.calibration.splOffsetDb', 'must be a finite number or null');
         }
       }
       derived('derived', m.derived);

@@ -20,6 +20,12 @@ export interface ArrayGeometry {
 export interface ChannelCalibration {
   gainDb: number[];
   delayUs: number[];
+  /**
+   * Nominal microphone sensitivity (mV/Pa) and the converter's full scale (volts, peak), both or
+   * neither: with them, levels are also shown in dB SPL (shared/levels.ts).
+   */
+  sensitivityMvPerPa?: number;
+  fullScaleVolts?: number;
 }
 
 /**

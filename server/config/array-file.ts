@@ -1,6 +1,7 @@
 /**
  * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres, optionally
- * `"calibration": { "gainDb": […], "delayUs": […] }` (one entry per position); more fields allowed
+ * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": … }`
+ * (the lists one entry per position, each part optional); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
@@ -68,7 +69,8 @@ function validateCalibration(value: unknown, m: number, add: (path: string, v: u
     return undefined;
   }
   const c = value as Record<string, unknown>;
-  for (const k of Object.keys(c)) if (k !== 'gainDb' && k !== 'delayUs') add(`calibration.${k}`, c[k], 'is not a calibration field (gainDb, delayUs)');
+  const FIELDS = ['gainDb', 'delayUs', 'sensitivityMvPerPa', 'fullScaleVolts'];
+  for (const k of Object.keys(c)) if (!FIELDS.includes(k)) add(`calibration.${k}`, c[k], `is not a calibration field (${FIELDS.join(', ')})`);
   const list = (key: 'gainDb' | 'delayUs', limit: number, unit: string): number[] => {
     const v = c[key];
     if (v === undefined) return Array(m).fill(0);
@@ -81,7 +83,18 @@ function validateCalibration(value: unknown, m: number, add: (path: string, v: u
     });
     return v as number[];
   };
-  return { gainDb: list('gainDb', MAX_CALIBRATION_GAIN_DB, 'dB'), delayUs: list('delayUs', MAX_CALIBRATION_DELAY_US, 'µs') };
+  const out: ChannelCalibration = { gainDb: list('gainDb', MAX_CALIBRATION_GAIN_DB, 'dB'), delayUs: list('delayUs', MAX_CALIBRATION_DELAY_US, 'µs') };
+  const sens = c.sensitivityMvPerPa;
+  const vfs = c.fullScaleVolts;
+  if ((sens === undefined) !== (vfs === undefined)) {
+    add(sens === undefined ? 'calibration.sensitivityMvPerPa' : 'calibration.fullScaleVolts', undefined, 'is needed too: give sensitivityMvPerPa and fullScaleVolts together (or neither)');
+  } else if (sens !== undefined) {
+    if (typeof sens !== 'number' || !Number.isFinite(sens) || sens < 0.01 || sens > 10000) add('calibration.sensitivityMvPerPa', sens, 'must be a number of mV/Pa in 0.01–10000');
+    else out.sensitivityMvPerPa = sens;
+    if (typeof vfs !== 'number' || !Number.isFinite(vfs) || vfs < 0.001 || vfs > 1000) add('calibration.fullScaleVolts', vfs, 'must be a number of volts (peak at digital full scale) in 0.001–1000');
+    else out.fullScaleVolts = vfs;
+  }
+  return out;
 }
 
 /** Read and validate a geometry file. */

@@ -11,6 +11,7 @@
  * limit d to 1 ms (common practice: frequency-domain delay compensation is used for small
  * inter-channel delays, long ones belong before the analysis).
  */
+import { splOffsetDb } from '../../shared/levels.ts';
 import type { ChannelCalibration } from '../../shared/types.ts';
 
 /**
@@ -53,8 +54,15 @@ export function applyCorrection(snapshot: Float64Array, offset: number, factors:
   }
 }
 
-/** A short description for status and logs: the largest gain and delay corrected. */
-export function describeCalibration(cal: ChannelCalibration | undefined): { gainDbMax: number; delayUsMax: number } | null {
+/**
+ * A short description for status and the dashboard: the largest gain and delay corrected, and the dB
+ * to add to a level re full scale for dB SPL (null without a sensitivity).
+ */
+export function describeCalibration(cal: ChannelCalibration | undefined): { gainDbMax: number; delayUsMax: number; splOffsetDb: number | null } | null {
   if (!cal) return null;
-  return { gainDbMax: Math.max(0, ...cal.gainDb.map(Math.abs)), delayUsMax: Math.max(0, ...cal.delayUs.map(Math.abs)) };
+  return {
+    gainDbMax: Math.max(0, ...cal.gainDb.map(Math.abs)),
+    delayUsMax: Math.max(0, ...cal.delayUs.map(Math.abs)),
+    splOffsetDb: cal.sensitivityMvPerPa !== undefined && cal.fullScaleVolts !== undefined ? splOffsetDb(cal.sensitivityMvPerPa, cal.fullScaleVolts) : null,
+  };
 }

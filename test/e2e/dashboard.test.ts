@@ -2,7 +2,7 @@
  * The dashboard in a real browser (Debian's chromium driven by playwright-core, headless, loopback
  * only) against a real server fed by the simulator.
  */
-import { mkdtempSync } from 'node:fs';
+import { mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { type Browser, type Page } from 'playwright-core';
@@ -19,8 +19,13 @@ let browser: Browser;
 let page: Page;
 const problems: string[] = [];
 
+// The built-in ring with its microphones' sensitivity (channels nominal): levels also in dB SPL.
+// 50 mV/Pa into a 1 V full scale: dB SPL = dBFS + 20·log10(1 / (0.05 · 20e-6)) = dBFS + 120.
+const ARRAY = join(mkdtempSync(join(tmpdir(), 'nullsteer-e2e-array-')), 'ring-24-spl.json');
+writeFileSync(ARRAY, JSON.stringify({ ...JSON.parse(readFileSync(new URL('../../config/arrays/ring-24.json', import.meta.url), 'utf8')), calibration: { sensitivityMvPerPa: 50, fullScaleVolts: 1 } }));
+
 async function start(httpPort: number): Promise<Service> {
-  const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort }, engine: { workers: 2 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 }, outputs: { dir: RECORDINGS } }] });
+  const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort }, array: { file: ARRAY }, engine: { workers: 2 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 }, outputs: { dir: RECORDINGS } }] });
   return startService(loaded);
 }
 
@@ -80,8 +85,14 @@ describe.skipIf(!browserAvailable)('dashboard in a browser', () => {
     }
   });
 
-  it('the array layout says the built-in array is taken as nominal (no calibration in its file)', async () => {
-    expect((await page.getByTestId('calibration').textContent())?.trim()).toMatch(/^none: every channel taken as nominal$/);
+  it('with the microphones\' sensitivity in the array file, levels are also shown in dB SPL (+120 dB here)', async () => {
+    expect(await page.getByTestId('calibration').textContent()).toMatch(/channels nominal/);
+    expect((await page.getByTestId('spl-offset').textContent())?.trim()).toBe('dB SPL = dBFS + 120.0 dB');
+    expect(await page.getByTestId('levels-spl').textContent()).toMatch(/dB SPL \(dBFS \+ 120\.0 dB\)/);
+    // Each peak's dB SPL is its dBFS level + 120 (to the table's 0.1 dB rounding).
+    const peaks = await page.getByTestId('peak').evaluateAll((els) => els.map((e) => [Number((e as HTMLElement).dataset.level), Number(e.querySelector('[data-testid="peak-spl"]')?.textContent)]));
+    expect(peaks.length).toBeGreaterThan(0);
+    for (const [dbfs, spl] of peaks) expect(Math.abs(spl - (dbfs + 120))).toBeLessThanOrEqual(0.1001); // each rounded to 0.1 dB
   });
 
   it('τ typed in the panel changes the server λ; a bad value shows an error and changes nothing', async () => {

@@ -73,7 +73,7 @@ describe('re-analysis of a capture', () => {
 
     const wav = join(dir, 'rec', readdirSync(join(dir, 'rec')).find((f) => f.endsWith('-raw-0001.wav'))!);
     expect(JSON.parse(readFileSync(wav.replace(/\.wav$/, '.json'), 'utf8')).array.calibration).toEqual(calibration);
-    expect((await (await fetch(`${svc.url}/api/status`)).json()).array.calibration).toEqual({ gainDbMax: 1, delayUsMax: 10 });
+    expect((await (await fetch(`${svc.url}/api/status`)).json()).array.calibration).toEqual({ gainDbMax: 1, delayUsMax: 10, splOffsetDb: null });
     const outDir = join(dir, 'timeline');
     let said = '';
     const progress: string[] = [];

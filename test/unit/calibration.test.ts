@@ -7,6 +7,7 @@
 import { describe, expect, it } from 'vitest';
 import { applyCorrection, correctionFactors, describeCalibration } from '../../server/dsp/calibration.ts';
 import { Stft } from '../../server/dsp/stft.ts';
+import { splOffsetDb } from '../../shared/levels.ts';
 
 describe('per-channel correction factors', () => {
   it('are 10^(−g/20)·e^(+j2πfd), bin-major and interleaved; null for a nominal array', () => {
@@ -23,7 +24,19 @@ describe('per-channel correction factors', () => {
     expect(correctionFactors({ gainDb: [0, 0], delayUs: [0, 0] }, 2, [1000])).toBeNull();
     expect(correctionFactors(undefined, 2, [1000])).toBeNull();
     expect(() => correctionFactors({ gainDb: [0], delayUs: [0, 0] }, 2, [1000])).toThrow(/1 gains and 2 delays for 2 channels/);
-    expect(describeCalibration({ gainDb: [0, 6, -7], delayUs: [0, 100, -150] })).toEqual({ gainDbMax: 7, delayUsMax: 150 });
+    expect(describeCalibration({ gainDb: [0, 6, -7], delayUs: [0, 100, -150] })).toEqual({ gainDbMax: 7, delayUsMax: 150, splOffsetDb: null });
+  });
+
+  it('dB SPL from dBFS: a 50 mV/Pa microphone into a 1 V full scale adds 120 dB; 1 Pa reads 93.98 dB SPL', () => {
+    // 20·log10(1 V / (0.05 V/Pa · 20 µPa)) = 20·log10(10⁶) = 120 dB.
+    expect(splOffsetDb(50, 1)).toBeCloseTo(120, 12);
+    // 1 Pa rms (93.98 dB SPL re 20 µPa, common practice) gives 50 mV rms = 0.05 full scale:
+    // 10·log10(0.05²) = −26.02 dBFS, + 120 = 93.98.
+    expect(10 * Math.log10(0.05 ** 2) + splOffsetDb(50, 1)).toBeCloseTo(20 * Math.log10(1 / 20e-6), 10);
+    expect(20 * Math.log10(1 / 20e-6)).toBeCloseTo(93.9794, 4);
+    // A 12 mV/Pa microphone into 2.5 V: 20·log10(2.5 / (0.012 · 20e-6)) = 140.355 dB.
+    expect(splOffsetDb(12, 2.5)).toBeCloseTo(140.3546, 4);
+    expect(describeCalibration({ gainDb: [0], delayUs: [0], sensitivityMvPerPa: 50, fullScaleVolts: 1 })!.splOffsetDb).toBeCloseTo(120, 12);
   });
 
   it('turn the STFT of a hot, late tone into that of the nominal tone', () => {
