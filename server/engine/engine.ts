@@ -333,8 +333,7 @@ export class Engine {
       this.#skip = 'decimated';
       return RING_SLOTS * p.slotDoubles;
     }
-    let slowest = Infinity;
-    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    const slowest = slowestDone(p);
     if (p.writeSeq - slowest >= RING_SLOTS || this.#forcedSkips > 0) {
       if (this.#forcedSkips > 0) this.#forcedSkips--;
       this.#skip = 'full';
@@ -518,8 +517,7 @@ export class Engine {
   /** Frames that can be pushed now without a hop finding the ring full or a scan no result slot. */
   #framesThatFit(): { frames: number; ringLimited: boolean; inFlight: boolean } {
     const p = this.#plan;
-    let slowest = Infinity;
-    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    const slowest = slowestDone(p);
     // k frames complete at most ⌈k/hop⌉ hops and request at most ⌈k/period⌉ + 1 scans.
     const ringFrames = (RING_SLOTS - 3 - (p.writeSeq - slowest)) * this.hop;
     const period = this.opts.sampleRateHz / (this.#params.spectrumRateHz / shedEffect(this.#shedder.step).rateDivisor);
@@ -543,13 +541,8 @@ export class Engine {
       if (fit.ringLimited) {
         // Hops are in flight (the ring is not empty): wait for the slowest worker to finish one.
         const p = this.#plan;
-        let slowest = Infinity;
-        let who = 0;
-        for (let w = 0; w < p.ranges.length; w++) {
-          const d = Atomics.load(p.ctrl, CTRL_DONE + w);
-          if (d < slowest) [slowest, who] = [d, w];
-        }
-        const r = Atomics.waitAsync(p.ctrl, CTRL_DONE + who, slowest, 100);
+        const worker = slowestWorker(p);
+        const r = Atomics.waitAsync(p.ctrl, CTRL_DONE + worker, Atomics.load(p.ctrl, CTRL_DONE + worker), 100);
         if (r.async) await r.value;
         continue;
       }
@@ -571,8 +564,7 @@ export class Engine {
     const until = performance.now() + timeoutMs;
     while (performance.now() < until) {
       const p = this.#plan;
-      let slowest = Infinity;
-      for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+      const slowest = slowestDone(p);
       if (slowest >= p.writeSeq && this.#pending.size === 0) return;
       await new Promise((r) => setTimeout(r, 1));
     }
@@ -660,8 +652,7 @@ export class Engine {
       busy = Math.max(busy, (b - (this.#lastBusy[w] ?? 0)) / dt);
       this.#lastBusy[w] = b;
     }
-    let slowest = Infinity;
-    for (let w = 0; w < p.ranges.length; w++) slowest = Math.min(slowest, Atomics.load(p.ctrl, CTRL_DONE + w));
+    const slowest = slowestDone(p);
     const backlog = (p.writeSeq - slowest) / RING_SLOTS;
     const before = shedEffect(this.#shedder.step).gridCoarsening;
     if (this.#shedder.update(Math.max(busy, backlog))) {
@@ -794,6 +785,25 @@ export class Engine {
     if (this.#shedTimer) clearInterval(this.#shedTimer);
     await this.#pool.close();
   }
+}
+
+/** Which worker of a plan has done the fewest hops. */
+function slowestWorker(p: { ranges: unknown[]; ctrl: Int32Array }): number {
+  let done = Infinity;
+  let worker = 0;
+  for (let w = 0; w < p.ranges.length; w++) {
+    const d = Atomics.load(p.ctrl, CTRL_DONE + w);
+    if (d < done) [done, worker] = [d, w];
+  }
+  return worker;
+}
+
+/** Hops done by the slowest worker of a plan (every slot before it is free to overwrite). */
+function slowestDone(p: { ranges: unknown[]; ctrl: Int32Array }): number {
+  // The minimum of one pass: each counter only grows, so this never overstates the free slots.
+  let done = Infinity;
+  for (let w = 0; w < p.ranges.length; w++) done = Math.min(done, Atomics.load(p.ctrl, CTRL_DONE + w));
+  return done;
 }
 
 function percentiles(x: Float64Array, n: number): { p50: number; p99: number; count: number } {
