@@ -265,7 +265,7 @@ export class MultiChannelStft {
     const n = this.fftSize;
     const fr = fast.frames;
     for (let c = 0; c < this.channels; c++) {
-      const base = (c >> 1) * 2 * n + (c & 1);
+      const base = pairFrameAt(c, n);
       for (let i = 0; i < n; i++) fr[base + 2 * i] = this.#buffer[c * n + i];
     }
     this.#fast = fast;
@@ -376,7 +376,7 @@ export class MultiChannelStft {
     // Where channel c's frame lives and how far apart its samples are: planar (fft.js path) or
     // pair-interleaved (WebAssembly path, see PairFft.frames).
     const step = fast === null ? 1 : 2;
-    const frameAt = (c: number) => (fast === null ? c * n : (c >> 1) * 2 * n + (c & 1));
+    const frameAt = (c: number) => (fast === null ? c * n : pairFrameAt(c, n));
     let pos = 0;
     while (pos < frames) {
       const filled = this.#filled;
@@ -409,6 +409,11 @@ export class MultiChannelStft {
       onHop(out, hopStartSample);
     }
   }
+}
+
+/** Where channel c's frame starts in PairFft.frames (pair-interleaved, every second double). */
+function pairFrameAt(c: number, n: number): number {
+  return (c >> 1) * 2 * n + (c & 1);
 }
 
 /**
