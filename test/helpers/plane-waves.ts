@@ -7,6 +7,7 @@
  * gain and delay errors stand for an uncalibrated array.
  */
 import FFT from 'fft.js';
+import type { Block } from '../../shared/types.ts';
 import { mulberry32 } from './random.ts';
 
 export interface PlaneWaveSource {
@@ -94,4 +95,17 @@ export function renderPlaneWaves(scene: PlaneWaveScene): Float32Array {
     }
   }
   return x;
+}
+
+/** Cut interleaved samples (frames × M) into planar blocks of `blockFrames`, as ingest delivers. */
+export function planarBlocks(x: Float32Array, M: number, sampleRateHz: number, blockFrames: number): Block[] {
+  const frames = x.length / M;
+  const blocks: Block[] = [];
+  for (let s = 0; s < frames; s += blockFrames) {
+    const n = Math.min(blockFrames, frames - s);
+    const data = new Float32Array(M * n);
+    for (let i = 0; i < n; i++) for (let c = 0; c < M; c++) data[c * n + i] = x[(s + i) * M + c];
+    blocks.push({ streamId: 0, sampleIndex: s, sampleRateHz, channels: M, frames: n, data, gap: false, discontinuity: false });
+  }
+  return blocks;
 }

@@ -12,8 +12,8 @@ import { loadGeometry } from '../../server/config/array-file.ts';
 import { ScanPipeline } from '../../server/dsp/scan-pipeline.ts';
 import { Engine, type EngineRow } from '../../server/engine/engine.ts';
 import type { ProcessingParams } from '../../server/engine/params.ts';
-import type { ArrayGeometry, Block } from '../../shared/types.ts';
-import { renderPlaneWaves } from '../helpers/plane-waves.ts';
+import type { ArrayGeometry } from '../../shared/types.ts';
+import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
 import { mulberry32 } from '../helpers/random.ts';
 
 const ARRAYS = new URL('../../config/arrays/', import.meta.url).pathname;
@@ -37,18 +37,6 @@ const params: ProcessingParams = {
   fftSize: 512,
 };
 
-function blocksOf(x: Float32Array, M: number): Block[] {
-  const blocks: Block[] = [];
-  const B = 1000;
-  for (let s = 0; s < FRAMES; s += B) {
-    const n = Math.min(B, FRAMES - s);
-    const data = new Float32Array(M * n);
-    for (let i = 0; i < n; i++) for (let c = 0; c < M; c++) data[c * n + i] = x[(s + i) * M + c];
-    blocks.push({ streamId: 0, sampleIndex: s, sampleRateHz: FS, channels: M, frames: n, data, gap: false, discontinuity: false });
-  }
-  return blocks;
-}
-
 function render(g: ArrayGeometry, gainDb?: number[], delayUs?: number[]): Float32Array {
   return renderPlaneWaves({
     positions: g.positions,
@@ -69,7 +57,7 @@ function render(g: ArrayGeometry, gainDb?: number[], delayUs?: number[]): Float3
 async function rowsOf(g: ArrayGeometry, x: Float32Array): Promise<EngineRow[]> {
   const rows: EngineRow[] = [];
   engine = await Engine.create({ geometry: g, sampleRateHz: FS, params, workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false });
-  for (const b of blocksOf(x, g.positions.length)) await engine.pushAsync(b);
+  for (const b of planarBlocks(x, g.positions.length, FS, 1000)) await engine.pushAsync(b);
   await engine.drain();
   await engine.close();
   engine = null;
@@ -135,7 +123,7 @@ describe('per-channel calibration', () => {
     const bad = render(g, e.gainDb, e.delayUs);
     const scan = (geom: ArrayGeometry, x: Float32Array) => {
       const p = new ScanPipeline({ geometry: geom, sampleRateHz: FS, fftSize: 512, bandHz: [500, 4000], grid: params.grid, lambda: null, methods: ['mvdr'], loading: { mode: 'relative', ratio: 0.001 }, speedOfSoundMps: 343.2, deadBelowMedianDb: null });
-      for (const b of blocksOf(x, M)) p.push(b);
+      for (const b of planarBlocks(x, M, FS, 1000)) p.push(b);
       return p.result();
     };
     const clean = scan(g, render(g));

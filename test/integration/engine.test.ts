@@ -11,7 +11,7 @@ import { Engine, type EngineRow } from '../../server/engine/engine.ts';
 import type { ProcessingParams } from '../../server/engine/params.ts';
 import { DEFAULT_SHED_POLICY } from '../../server/engine/shedding.ts';
 import type { Block } from '../../shared/types.ts';
-import { renderPlaneWaves } from '../helpers/plane-waves.ts';
+import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
 
 const ARRAYS = new URL('../../config/arrays/', import.meta.url).pathname;
 const FS = 48000;
@@ -49,16 +49,8 @@ async function scene(frames = 32768) {
     noiseRms: 0.002,
     noiseSeed: 3,
   });
-  const M = g.positions.length;
-  const blocks: Block[] = [];
-  const B = 1000; // not a multiple of the hop, on purpose
-  for (let s = 0; s < frames; s += B) {
-    const n = Math.min(B, frames - s);
-    const data = new Float32Array(M * n);
-    for (let i = 0; i < n; i++) for (let c = 0; c < M; c++) data[c * n + i] = x[(s + i) * M + c];
-    blocks.push({ streamId: 0, sampleIndex: s, sampleRateHz: FS, channels: M, frames: n, data, gap: false, discontinuity: false });
-  }
-  return { g, blocks };
+  // Blocks of 1000: not a multiple of the hop, on purpose.
+  return { g, blocks: planarBlocks(x, g.positions.length, FS, 1000) };
 }
 
 /**
