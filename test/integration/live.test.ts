@@ -6,6 +6,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
+import { shedEffect } from '../../server/engine/shedding.ts';
 import { decodeRow, parseServerMessage, type SpectrumRow } from '../../shared/messages.ts';
 
 let svc: Service;
@@ -20,12 +21,12 @@ afterAll(async () => {
   await svc?.close();
 });
 
-function connect(): { ws: WebSocket; rows: { row: SpectrumRow; at: number }[]; json: any[] } {
+function connect(): { ws: WebSocket; rows: { row: SpectrumRow }[]; json: any[] } {
   const ws = new WebSocket(`${svc.url.replace('http', 'ws')}/api/live`);
-  const rows: { row: SpectrumRow; at: number }[] = [];
+  const rows: { row: SpectrumRow }[] = [];
   const json: any[] = [];
   ws.on('message', (data, isBinary) => {
-    if (isBinary) rows.push({ row: decodeRow(new Uint8Array(data as Buffer)), at: Date.now() });
+    if (isBinary) rows.push({ row: decodeRow(new Uint8Array(data as Buffer)) });
     else json.push(parseServerMessage(String(data)));
   });
   return { ws, rows, json };
@@ -63,11 +64,18 @@ describe('live server', () => {
     const rows = c.rows.map((r) => r.row);
     expect(rows[rows.length - 1].mvdrDb).toHaveLength(180);
     expect(rows[rows.length - 1].conventionalDb).toHaveLength(180);
-    // 20 rows/s: the last 20 rows span about one second of wall clock.
-    const span = c.rows[c.rows.length - 1].at - c.rows[c.rows.length - 21].at;
-    expect(span).toBeGreaterThan(700);
-    expect(span).toBeLessThan(1400);
+    // 20 rows/s on the stream's own clock: a row is due every 48000/20 = 2400 samples (times the
+    // shedding step's rate divisor) and is taken at the first hop end at or after that, so
+    // consecutive rows lie 9 or 10 hops (2304 or 2560 samples) apart. The median spacing in sample
+    // indices says the rate whatever the machine's load; wall-clock spacing does not.
     for (let k = 1; k < rows.length; k++) expect(rows[k].sampleIndex - rows[k - 1].sampleIndex).toBeGreaterThan(0);
+    const step = rows[rows.length - 1].shedStep;
+    const spacing = rows
+      .slice(-21)
+      .flatMap((r, k, a) => (k > 0 && r.shedStep === step && a[k - 1].shedStep === step ? [r.sampleIndex - a[k - 1].sampleIndex] : []))
+      .sort((a, b) => a - b);
+    const periodSamples = (48000 / 20) * shedEffect(step).rateDivisor;
+    expect([Math.floor(periodSamples / 256) * 256, Math.ceil(periodSamples / 256) * 256]).toContain(spacing[Math.floor(spacing.length / 2)]);
     // The intake vent (35°) and the pump whine (285°) are fixed in the scene: MVDR peaks there.
     const peaks = rows[rows.length - 1].peaks.mvdr.map((p) => p.azimuthDeg);
     for (const truth of [35, 285]) expect(Math.min(...peaks.map((a) => Math.abs(((a - truth + 540) % 360) - 180)))).toBeLessThan(2);
