@@ -71,6 +71,27 @@ export interface BinRange {
 }
 
 /**
+ * The bins of an N-point transform whose centre frequency lies in [loHz, hiHz] (what
+ * {@link Stft.bandBins} answers, without a transform: plans are sized before they are built).
+ * @param fftSize N @param loHz lower band edge, ≥ 0 @param hiHz upper band edge, ≥ loHz @param sampleRateHz fs, > 0
+ */
+export function bandBinsOf(fftSize: number, loHz: number, hiHz: number, sampleRateHz: number): BinRange {
+  if (!(sampleRateHz > 0) || !Number.isFinite(sampleRateHz)) {
+    throw new RangeError(`sampleRateHz must be a finite number > 0, got ${sampleRateHz}`);
+  }
+  if (!(loHz >= 0) || !Number.isFinite(loHz)) throw new RangeError(`loHz must be finite and ≥ 0, got ${loHz}`);
+  if (!(hiHz >= loHz) || !Number.isFinite(hiHz)) {
+    throw new RangeError(`hiHz must be finite and ≥ loHz = ${loHz}, got ${hiHz}`);
+  }
+  const binHz = sampleRateHz / fftSize;
+  // A small tolerance so that an edge exactly on a bin centre counts despite rounding.
+  const startBin = Math.max(0, Math.ceil(loHz / binHz - 1e-9));
+  const stopBin = Math.min(fftSize / 2, Math.floor(hiHz / binHz + 1e-9));
+  const count = Math.max(0, stopBin - startBin + 1);
+  return { startBin, stopBin: startBin + count - 1, count };
+}
+
+/**
  * One planned FFT size: the window, the forward transform of one frame and the windowed inverse
  * of one spectrum. Scratch buffers are owned by the instance; hot methods allocate nothing.
  */
@@ -113,19 +134,7 @@ export class Stft {
    * @param loHz lower band edge, ≥ 0 @param hiHz upper band edge, ≥ loHz @param sampleRateHz fs, > 0
    */
   bandBins(loHz: number, hiHz: number, sampleRateHz: number): BinRange {
-    if (!(sampleRateHz > 0) || !Number.isFinite(sampleRateHz)) {
-      throw new RangeError(`sampleRateHz must be a finite number > 0, got ${sampleRateHz}`);
-    }
-    if (!(loHz >= 0) || !Number.isFinite(loHz)) throw new RangeError(`loHz must be finite and ≥ 0, got ${loHz}`);
-    if (!(hiHz >= loHz) || !Number.isFinite(hiHz)) {
-      throw new RangeError(`hiHz must be finite and ≥ loHz = ${loHz}, got ${hiHz}`);
-    }
-    const binHz = sampleRateHz / this.fftSize;
-    // A small tolerance so that an edge exactly on a bin centre counts despite rounding.
-    const startBin = Math.max(0, Math.ceil(loHz / binHz - 1e-9));
-    const stopBin = Math.min(this.bins - 1, Math.floor(hiHz / binHz + 1e-9));
-    const count = Math.max(0, stopBin - startBin + 1);
-    return { startBin, stopBin: startBin + count - 1, count };
+    return bandBinsOf(this.fftSize, loHz, hiHz, sampleRateHz);
   }
 
   /**
