@@ -16,7 +16,8 @@ import { describeCalibration } from './dsp/calibration.ts';
 import { defaultGrid } from './dsp/scan-pipeline.ts';
 import { ChannelMeters } from './engine/channel-meters.ts';
 import { Engine } from './engine/engine.ts';
-import type { ProcessingParams } from './engine/params.ts';
+import { needsReplan, type ProcessingParams } from './engine/params.ts';
+import { PlanBudget, PlanError, planFields } from './engine/plan-budget.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
@@ -158,11 +159,15 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
   const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, queueRows: config.hub.queueRows, slowClientTimeoutMs: config.hub.slowClientTimeoutMs, onConnect: (c) => c.sendJson(hello()) });
   const engineErrors: string[] = [];
+  // The plan memory of this process: the main chain's plan and the comparison's share it.
+  const budget = new PlanBudget(config.engine.maxPlanMiB * 2 ** 20);
+  const workers = config.engine.workers === 0 ? availableParallelism() : config.engine.workers;
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
     params: initial,
-    workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers,
+    workers,
+    budget,
     speedOfSoundMps: config.engine.speedOfSoundMps,
     onRow: (row) => live.broadcastRow(row),
     onBeamAudio: (hop) => {
@@ -179,15 +184,19 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (engineErrors.length > 20) engineErrors.shift();
       process.emitWarning(m);
     },
+  }).catch((e: unknown) => {
+    // The configured array, band and grid do not fit the plan budget: a configuration error.
+    if (e instanceof PlanError && e.kind === 'too-large') throw new ConfigError([{ path: 'engine.maxPlanMiB', value: config.engine.maxPlanMiB, message: `the processing plan at start: ${e.message}; raise engine.maxPlanMiB, or use a coarser processing.azimuthStepDeg or a narrower band` }]);
+    throw e;
   });
   const eng = engine;
   const meters = new ChannelMeters(channels, fs);
-  bus.subscribe((b) => meters.push(b.data, b.frames));
+  bus.subscribe((b) => meters.push(b.data, b.frames), 'channel-meters');
   let recordRaw = false;
   bus.subscribe((b) => {
     if (recordRaw && recorder.recording) recorder.push(b);
-  });
-  bus.subscribe((b) => eng.push(b));
+  }, 'recorder');
+  bus.subscribe((b) => eng.push(b), 'engine');
   // The comparison chain (off until PUT /api/compare): same blocks, its own engine and live path.
   let chain: CompareChain | null = null;
   const chainDerived = (c: CompareChain): ProcessingDerived => ({ ...derived(), tauS: eng.hop / (fs * (1 - c.params.lambda)) });
@@ -201,7 +210,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (chain) c.sendJson(hello(chain.params, chainDerived(chain)));
     },
   });
-  bus.subscribe((b) => chain?.push(b));
+  bus.subscribe((b) => chain?.push(b), 'comparison');
 
   const simRate = new RateMeter();
   const status = (): Record<string, unknown> => {
@@ -243,6 +252,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   /** Apply validated parameters: engine, recording sidecar, dashboards, journal. */
   const applyParams = async (next: ProcessingParams, kind: JournalKind, label?: string): Promise<ProcessingParams> => {
     const before = eng.params;
+    // A re-plan of the main chain re-plans the comparison too: both new plans must fit together.
+    if (chain && needsReplan(before, next)) budget.checkAll([eng.planDemand(next), chain.engine.planDemand(merged(next, chain.own))], planFields(before, next));
     const applied = await eng.setParams(next);
     if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
     live.broadcastJson({ type: 'params', params: applied, derived: derived() });
@@ -262,7 +273,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     set: async (body) => {
       const next = compareParams(eng.params, chain?.own ?? null, body, { sampleRateHz: fs, hop: eng.hop });
       if (!chain) {
-        chain = await CompareChain.create(next, { geometry, sampleRateHz: fs, workers: config.engine.workers === 0 ? availableParallelism() : config.engine.workers, speedOfSoundMps: config.engine.speedOfSoundMps, onRow: (row) => compareLive.broadcastRow(row), onError: (m) => process.emitWarning(`comparison chain: ${m}`) });
+        chain = await CompareChain.create(next, { geometry, sampleRateHz: fs, workers, budget, speedOfSoundMps: config.engine.speedOfSoundMps, onRow: (row) => compareLive.broadcastRow(row), onError: (m) => process.emitWarning(`comparison chain: ${m}`) });
         journalNote('compare-on', null, ownOf(next), `comparison on: ${diffSummary(ownOf(eng.params), ownOf(next))}`);
         compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
       } else {

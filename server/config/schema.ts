@@ -86,6 +86,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
         workers: { kind: 'int', min: 0, max: 64, doc: 'Bin worker threads; 0 = one per core.' },
         fftSize: { kind: 'enum', values: ['256', '512', '1024', '2048', '4096'], doc: 'STFT size N (hop N/2), as a string.' },
         speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound for steering, m/s (343.2 at 20 °C).' },
+        maxPlanMiB: { kind: 'int', min: 16, max: 1048576, doc: 'Memory the processing plans may take, main and comparison chain together (steering tables and their fast-kernel copies, snapshot ring, results), MiB. A change needing more is refused with 422 before anything is built; at start the server exits with this field named.' },
       },
     },
     processing: {
@@ -150,7 +151,7 @@ export interface Config {
     maxGapSeconds: number;
     maxStreams: number;
   };
-  engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number };
+  engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };

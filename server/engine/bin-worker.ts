@@ -49,8 +49,17 @@ interface State {
 
 const port = parentPort!;
 let state: State | null = null;
+/** A staged plan, built and waiting for its commit (protocol.ts PlanMessage.staged). */
+let pending: State | null = null;
+/** Test hook: what happens to the next plan message. */
+let planFault: { mode: 'refuse' | 'stall'; message: string } | null = null;
 let running = true;
 let looping = false;
+
+/** First line of an error, for messages that reach status and REST answers (no stack). */
+function firstLine(e: unknown): string {
+  return String((e as Error)?.message ?? e).split('\n')[0];
+}
 
 function post(m: FromWorker): void {
   port.postMessage(m);
@@ -157,10 +166,42 @@ async function loop(): Promise<void> {
 port.on('message', async (m: ToWorker) => {
   try {
     switch (m.type) {
-      case 'plan':
-        state = await build(m);
+      case 'plan': {
+        const fault = planFault;
+        planFault = null;
+        if (fault?.mode === 'stall') return;
+        let built: State;
+        try {
+          if (fault) throw new Error(fault.message);
+          built = await build(m);
+        } catch (e) {
+          // A plan it cannot build (a table over its cap, memory): said as data, the thread lives on.
+          post({ type: 'refused', epoch: m.epoch, workerIndex: m.workerIndex, message: firstLine(e) });
+          return;
+        }
+        if (m.staged) pending = built;
+        else {
+          state = built;
+          void loop();
+        }
         post({ type: 'ready', epoch: m.epoch, workerIndex: m.workerIndex });
-        void loop();
+        return;
+      }
+      case 'commit':
+        if (pending && pending.plan.epoch === m.epoch) {
+          const old = state;
+          state = pending;
+          pending = null;
+          // The loop may be waiting on the old ring's counter: wake it so it moves to the new one.
+          if (old) Atomics.notify(old.ctrl, CTRL_WRITE);
+          void loop();
+        }
+        return;
+      case 'abort':
+        if (pending && pending.plan.epoch === m.epoch) pending = null;
+        return;
+      case 'plan-fault':
+        planFault = { mode: m.mode, message: m.message };
         return;
       case 'mask':
         if (state && state.plan.epoch === m.epoch) state.proc.setMask(m.active);

@@ -8,6 +8,7 @@
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { Engine, type EngineRow } from './engine.ts';
 import { ParamError, patchParams, type ProcessingParams } from './params.ts';
+import type { PlanBudget } from './plan-budget.ts';
 
 /** What the comparison may set differently from the main chain. */
 export const COMPARE_FIELDS = ['lambda', 'tauS', 'loading', 'methods'] as const;
@@ -39,6 +40,8 @@ export interface CompareChainOptions {
   sampleRateHz: number;
   workers: number;
   speedOfSoundMps: number;
+  /** The plan memory shared with the main chain (plan-budget.ts). */
+  budget?: PlanBudget;
   onRow: (row: EngineRow) => void;
   onError?: (message: string) => void;
 }
@@ -54,7 +57,7 @@ export class CompareChain {
   }
 
   static async create(params: ProcessingParams, o: CompareChainOptions): Promise<CompareChain> {
-    const engine = await Engine.create({ geometry: o.geometry, sampleRateHz: o.sampleRateHz, params, workers: o.workers, speedOfSoundMps: o.speedOfSoundMps, onRow: o.onRow, onError: o.onError });
+    const engine = await Engine.create({ geometry: o.geometry, sampleRateHz: o.sampleRateHz, params, workers: o.workers, budget: o.budget, speedOfSoundMps: o.speedOfSoundMps, onRow: o.onRow, onError: o.onError });
     return new CompareChain(engine, ownOf(params));
   }
 

@@ -12,10 +12,11 @@ import type { RowPeak, SpectrumRow } from '../../shared/messages.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { applyCorrection, correctionFactors } from '../dsp/calibration.ts';
 import { PeakFinder } from '../dsp/peaks.ts';
-import { MultiChannelStft } from '../dsp/stft.ts';
+import { bandBinsOf, MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
 import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
-import { type ProcessingParams, needsReplan } from './params.ts';
+import { ParamError, type ProcessingParams, needsReplan } from './params.ts';
+import { PlanError, planCost, planFields, RING_SLOTS, type PlanBudget, type PlanDemand } from './plan-budget.ts';
 import { BeamAudio, type BeamAudioHop } from './beam-audio.ts';
 import { BeamSet, type BeamState } from './beam-set.ts';
 import { BinPool, splitBins, type WorkerRange } from './pool.ts';
@@ -44,7 +45,9 @@ import {
 } from './protocol.ts';
 import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from './shedding.ts';
 
-export const RING_SLOTS = 64;
+export { RING_SLOTS };
+/** How long the workers get to build a new plan before the change fails (the old plan goes on). */
+export const PLAN_TIMEOUT_MS = 20_000;
 const LATENCY_HISTORY = 2048;
 /** How many covariance restarts status() lists. */
 const RESTART_LOG = 16;
@@ -85,6 +88,13 @@ export interface EngineOptions {
   shedPolicy?: ShedPolicy;
   /** false runs the plain float64 kernels in the workers (the reference); default true. */
   fastKernels?: boolean;
+  /**
+   * The plan memory shared with the process's other engines; a plan that does not fit is refused
+   * (PlanError) before it is built. Absent: no budget (offline tools), only the workers' own caps.
+   */
+  budget?: PlanBudget;
+  /** Deadline for the workers to build a new plan, ms (default PLAN_TIMEOUT_MS). */
+  planTimeoutMs?: number;
   /** false disables load shedding (benchmarks measure the unshed engine). */
   shedding?: boolean;
   peakThresholdDb?: number;
@@ -182,7 +192,12 @@ export class Engine {
 
   static async create(opts: EngineOptions): Promise<Engine> {
     const e = new Engine(opts);
-    await e.#replan(opts.params);
+    try {
+      await e.#replan(opts.params);
+    } catch (err) {
+      await e.#pool.close();
+      throw err;
+    }
     if (opts.shedding !== false) {
       e.#shedTimer = setInterval(() => e.#shedTick(), e.#shedder.policy.windowMs);
       e.#shedTimer.unref();
@@ -215,22 +230,35 @@ export class Engine {
     return this.#stft.bandBins(p.bandHz[0], p.bandHz[1], this.opts.sampleRateHz);
   }
 
+  /** The memory the plan for `p` would take (plan-budget.ts), for this engine's array and pool. */
+  planDemand(p: ProcessingParams, directions = directionGrid(p.grid).count): PlanDemand {
+    const shape = { channels: this.channels, fftSize: p.fftSize, bandHz: p.bandHz, sampleRateHz: this.opts.sampleRateHz, directions, workers: this.#pool.size, fast: this.opts.fastKernels !== false };
+    return { owner: this, shape, cost: planCost(shape) };
+  }
+
+  /**
+   * Build the plan for `p` and switch to it: sized against the budget first, then built by the
+   * workers while the plan in force keeps running, then switched to in one step (a new transform
+   * size brings its own front end, installed at the same moment). On any failure nothing changes.
+   * @throws PlanError (too large, refused by a worker, not built in time), ParamError (no bin in the band)
+   */
   async #replan(p: ProcessingParams): Promise<void> {
-    if (p.fftSize !== this.#stft.fftSize) {
-      // A new transform size: a new front end; the stream continues on the same clock.
-      this.#stft = new MultiChannelStft(this.channels, p.fftSize);
-      this.#expected = null;
-      this.#nextScanSample = -1;
-    }
-    const band = this.#bandBins(p);
-    if (band.count < 1) throw new RangeError(`band ${p.bandHz[0]}–${p.bandHz[1]} Hz holds no FFT bin`);
-    // The WebAssembly transform where the runtime has it (fft.js otherwise); the same spectra.
-    if (!this.#stft.accelerated) await this.#stft.accelerate();
+    const fs = this.opts.sampleRateHz;
     const M = this.channels;
+    const band = bandBinsOf(p.fftSize, p.bandHz[0], p.bandHz[1], fs);
+    if (band.count < 1) throw new ParamError('bandHz', `${p.bandHz[0]}–${p.bandHz[1]} Hz holds no FFT bin at N = ${p.fftSize} (bins are ${(fs / p.fftSize).toFixed(2)} Hz apart)`);
     const baseGrid = directionGrid(p.grid);
-    const grid = directionGrid(coarser(p.grid, shedEffect(this.#shedder.step).gridCoarsening));
+    const fast = this.opts.fastKernels !== false;
+    const { shape, cost } = this.planDemand(p, baseGrid.count);
+    const fields = planFields(this.#plan ? this.#params : null, p);
+    this.opts.budget?.check(this, shape, cost, fields);
+    const stft = p.fftSize === this.#stft.fftSize ? this.#stft : new MultiChannelStft(M, p.fftSize);
+    // The WebAssembly transform where the runtime has it (fft.js otherwise); the same spectra.
+    if (!stft.accelerated) await stft.accelerate();
+    const coarsening = shedEffect(this.#shedder.step).gridCoarsening;
+    const grid = directionGrid(coarser(p.grid, coarsening));
     const ranges = splitBins(band.count, this.#pool.size);
-    const slotDoubles = 2 * M * this.#stft.bins;
+    const slotDoubles = 2 * M * stft.bins;
     const W = this.#pool.size;
     const resultDirections = baseGrid.count;
     const sab = (n: number) => new SharedArrayBuffer(n);
@@ -242,12 +270,12 @@ export class Engine {
     const resultsBuf = sab(8 * W * RESULT_SLOTS * resultStride(resultDirections, weightDoubles));
     const statsBuf = sab(8 * STATS_STRIDE * W);
     const epoch = ++this.#epoch;
-    const fs = this.opts.sampleRateHz;
     const gridMsg = (g: DirectionGrid) => ({ azimuthDeg: Array.from(g.azimuthDeg), elevationDeg: Array.from(g.elevationDeg), nAz: g.nAz, nEl: g.nEl });
     const plans: PlanMessage[] = ranges.map((r, i) => ({
       type: 'plan',
       epoch,
       workerIndex: i,
+      staged: true,
       ctrl: ctrlBuf,
       meta: metaBuf,
       ring: ringBuf,
@@ -259,12 +287,12 @@ export class Engine {
       resultDirections,
       weightDoubles,
       positions: this.opts.geometry.positions,
-      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / this.#stft.fftSize),
+      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / stft.fftSize),
       grid: gridMsg(grid),
       speedOfSoundMps: this.opts.speedOfSoundMps,
-      snapshotScale: 2 / this.#stft.fftSize,
+      snapshotScale: 2 / stft.fftSize,
       active: [...this.#active],
-      fast: this.opts.fastKernels !== false,
+      fast,
       beams: this.#beams.specs(grid),
     }));
     const plan: Plan = {
@@ -285,13 +313,25 @@ export class Engine {
       finder: this.#finder(grid, p),
       writeSeq: 0,
     };
-    // Wake workers still waiting on the previous ring so they move to the new plan.
-    if (this.#plan) Atomics.notify(this.#plan.ctrl, CTRL_WRITE);
-    await this.#pool.plan(plans);
+    try {
+      await this.#pool.prepare(plans, this.opts.planTimeoutMs ?? PLAN_TIMEOUT_MS);
+    } catch (e) {
+      throw e instanceof PlanError ? new PlanError(e.kind, `${fields}: ${e.message}`) : e;
+    }
+    if (this.#closed) return;
+    // From here on synchronous: no hop runs between the switch of front end, plan and parameters.
+    if (stft !== this.#stft) {
+      // A new transform size: a new front end; the stream continues on the same clock.
+      this.#stft = stft;
+      this.#expected = null;
+      this.#nextScanSample = -1;
+    }
     this.#plan = plan;
     this.#params = p;
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
+    this.#pool.commit(epoch);
+    this.opts.budget?.hold(this, cost.totalBytes);
     // Per-channel calibration, undone on the band's bins of each slot before anyone reads them.
     const bandFreqs = Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * fs) / this.#stft.fftSize);
     this.#correction = correctionFactors(this.opts.geometry.calibration, M, bandFreqs);
@@ -300,9 +340,11 @@ export class Engine {
     this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)), band);
     // Beam audio follows the band and FFT size; weights arrive with the next beam scan.
     this.#audio = new BeamAudio({ channels: this.channels, fftSize: this.#stft.fftSize, band, sampleRateHz: fs });
-    this.#audio.sync(this.#beams.list.map((b) => b.id));
-    for (const b of this.#beams.list) this.#audio.setOutput(b.id, b.gainDb, b.limiter);
-    this.opts.onGrid?.(grid);
+    // Mask and beams may have changed while the workers built the plan: send them for the new epoch.
+    this.setMask(this.#active);
+    this.#sendBeams();
+    if (shedEffect(this.#shedder.step).gridCoarsening !== coarsening) this.#applyGrid(shedEffect(this.#shedder.step).gridCoarsening);
+    else this.opts.onGrid?.(grid);
   }
 
   #finder(grid: DirectionGrid, p: ProcessingParams): PeakFinder {
@@ -718,6 +760,11 @@ export class Engine {
     this.#pool.kill(i);
   }
 
+  /** Test hook: worker i refuses the next plan with `message` ('refuse'), or never answers it ('stall'). */
+  faultNextPlan(i: number, mode: 'refuse' | 'stall', message = `injected plan refusal in worker ${i}`): void {
+    this.#pool.faultNextPlan(i, mode, message);
+  }
+
   /** Test hook: make worker i throw at its next hop (to prove replacement). */
   injectWorkerFault(i: number): void {
     this.#pool.send(i, { type: 'fault', message: `injected fault in worker ${i}` });
@@ -782,6 +829,7 @@ export class Engine {
   async close(): Promise<void> {
     if (this.#closed) return;
     this.#closed = true;
+    this.opts.budget?.release(this);
     if (this.#shedTimer) clearInterval(this.#shedTimer);
     await this.#pool.close();
   }

@@ -5,6 +5,7 @@
  * The pool itself never throws from a worker's failure: it counts and reports.
  */
 import { Worker } from 'node:worker_threads';
+import { PlanError } from './plan-error.ts';
 import { CTRL_DONE, CTRL_WRITE, type FromWorker, type PlanMessage, type ToWorker } from './protocol.ts';
 
 const BOOT = new URL('./bin-worker-boot.mjs', import.meta.url);
@@ -41,8 +42,8 @@ export class BinPool {
   restarts = 0;
   errors = 0;
   lastError: string | null = null;
-  #readyWaiters: (() => void)[] = [];
-  #ready = new Set<number>();
+  /** A plan being built (prepare) and not yet committed. */
+  #staged: { epoch: number; plans: PlanMessage[]; ready: Set<number>; settle: (e: PlanError | null) => void } | null = null;
 
   constructor(size: number, events: PoolEvents) {
     this.size = size;
@@ -63,11 +64,16 @@ export class BinPool {
   #message(i: number, w: Worker, m: FromWorker): void {
     if (this.#workers[i] !== w) return;
     switch (m.type) {
-      case 'ready':
-        if (this.#plans[i] && m.epoch === this.#plans[i].epoch) {
-          this.#ready.add(i);
-          if (this.#ready.size === this.size) for (const r of this.#readyWaiters.splice(0)) r();
+      case 'ready': {
+        const st = this.#staged;
+        if (st && m.epoch === st.epoch) {
+          st.ready.add(i);
+          if (st.ready.size === this.size) st.settle(null);
         }
+        return;
+      }
+      case 'refused':
+        if (this.#staged && m.epoch === this.#staged.epoch) this.#staged.settle(new PlanError('refused', `the bin workers could not build the plan: ${m.message}`));
         return;
       case 'scanned':
         this.#events.onScanned(m);
@@ -93,6 +99,8 @@ export class BinPool {
     const fresh = this.#spawn(i);
     this.#workers[i] = fresh;
     this.restarts++;
+    // A plan being built cannot complete without this worker's part.
+    this.#staged?.settle(new PlanError('refused', `bin worker ${i} failed while building the plan: ${message.split('\n')[0]}`));
     if (plan) {
       // Start after everything already published: the replacement never sees a half-written slot.
       const ctrl = new Int32Array(plan.ctrl);
@@ -102,14 +110,48 @@ export class BinPool {
     this.#events.onError(i, message, true);
   }
 
-  /** Send every worker its plan; resolves when all have built it. */
-  async plan(plans: PlanMessage[]): Promise<void> {
-    if (plans.length !== this.size) throw new RangeError(`${plans.length} plans for ${this.size} workers`);
-    this.#plans = plans;
-    this.#ready.clear();
-    const done = new Promise<void>((r) => this.#readyWaiters.push(r));
-    plans.forEach((p, i) => this.#workers[i]?.postMessage(p));
-    await done;
+  /**
+   * Send every worker its part of a new plan to build, while the plan in force keeps running.
+   * Resolves when all have built it (then `commit` switches them); rejects with a PlanError when
+   * one refuses it or fails, or when they have not all answered within `timeoutMs`, after telling
+   * every worker to drop it.
+   */
+  prepare(plans: PlanMessage[], timeoutMs: number): Promise<void> {
+    if (plans.length !== this.size) return Promise.reject(new RangeError(`${plans.length} plans for ${this.size} workers`));
+    this.#staged?.settle(new PlanError('refused', 'a newer plan replaced this one'));
+    const epoch = plans[0].epoch;
+    return new Promise<void>((resolve, reject) => {
+      const timer = setTimeout(() => staged.settle(new PlanError('timeout', `the bin workers did not build the plan within ${(timeoutMs / 1000).toFixed(1)} s`)), timeoutMs);
+      const staged = {
+        epoch,
+        plans,
+        ready: new Set<number>(),
+        settle: (e: PlanError | null) => {
+          if (this.#staged !== staged) return;
+          clearTimeout(timer);
+          if (e === null) return resolve();
+          this.#staged = null;
+          this.broadcast({ type: 'abort', epoch });
+          reject(e);
+        },
+      };
+      this.#staged = staged;
+      plans.forEach((p, i) => this.#workers[i]?.postMessage({ ...p, staged: true }));
+    });
+  }
+
+  /** Switch every worker to the plan `prepare` built (it becomes what a replacement worker gets). */
+  commit(epoch: number): void {
+    const st = this.#staged;
+    if (!st || st.epoch !== epoch) throw new RangeError(`no prepared plan of epoch ${epoch} to commit`);
+    this.#staged = null;
+    this.#plans = st.plans.map((p) => ({ ...p, staged: false }));
+    this.broadcast({ type: 'commit', epoch });
+  }
+
+  /** Test hook: worker i refuses its next plan with `message`, or never answers it ('stall'). */
+  faultNextPlan(i: number, mode: 'refuse' | 'stall', message: string): void {
+    this.send(i, { type: 'plan-fault', mode, message });
   }
 
   /** Update the stored plan (mask, grid) so a replacement worker starts with the current state. */
@@ -132,6 +174,7 @@ export class BinPool {
 
   async close(): Promise<void> {
     this.#closing = true;
+    this.#staged?.settle(new PlanError('refused', 'the engine is closing'));
     await Promise.all(this.#workers.map((w) => w?.terminate()));
   }
 }

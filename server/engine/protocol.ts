@@ -57,6 +57,12 @@ export interface PlanMessage {
   type: 'plan';
   epoch: number;
   workerIndex: number;
+  /**
+   * true: build it and hold it, answering 'ready' (or 'refused'); the plan in force keeps running
+   * until 'commit' of this epoch switches to it ('abort' drops it). false: build and switch at once
+   * (a replacement worker taking over a range).
+   */
+  staged: boolean;
   ctrl: SharedArrayBuffer;
   meta: SharedArrayBuffer;
   ring: SharedArrayBuffer;
@@ -83,6 +89,10 @@ export interface PlanMessage {
 
 export type ToWorker =
   | PlanMessage
+  | { type: 'commit'; epoch: number }
+  | { type: 'abort'; epoch: number }
+  /** Test hook: the next plan message is refused with `message`, or never answered ('stall'). */
+  | { type: 'plan-fault'; mode: 'refuse' | 'stall'; message: string }
   | { type: 'mask'; epoch: number; active: boolean[] }
   | { type: 'grid'; epoch: number; grid: PlanMessage['grid'] }
   | { type: 'beams'; epoch: number; beams: BeamSpec[] }
@@ -91,5 +101,7 @@ export type ToWorker =
 
 export type FromWorker =
   | { type: 'ready'; epoch: number; workerIndex: number }
+  /** A plan this worker could not build (e.g. a table over its cap); the plan in force goes on. */
+  | { type: 'refused'; epoch: number; workerIndex: number; message: string }
   | { type: 'scanned'; epoch: number; workerIndex: number; scanSeq: number; resultSlot: number; directions: number; scanMs: number; beams: number[] }
   | { type: 'error'; workerIndex: number; message: string; fatal: boolean };

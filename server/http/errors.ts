@@ -12,6 +12,9 @@ export const HTTP_ERRORS = {
   ERR_HTTP_PRESET_INVALID: { statusCode: 422, template: 'preset {name} cannot be used: {detail}' },
   ERR_HTTP_BODY_TOO_LARGE: { statusCode: 413, template: 'request body exceeds {limit} bytes' },
   ERR_HTTP_RATE_LIMITED: { statusCode: 429, template: 'too many control requests from this client (limit {perS}/s, burst {burst}); retry after {retryS} s' },
+  ERR_HTTP_PLAN_TOO_LARGE: { statusCode: 422, template: '{detail}' },
+  ERR_HTTP_PLAN_REFUSED: { statusCode: 422, template: '{detail}' },
+  ERR_HTTP_CHANGE_TIMEOUT: { statusCode: 503, template: '{detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 

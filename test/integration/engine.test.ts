@@ -9,6 +9,7 @@ import { MultiChannelStft } from '../../server/dsp/stft.ts';
 import { directionGrid } from '../../server/dsp/steering.ts';
 import { Engine, type EngineRow } from '../../server/engine/engine.ts';
 import type { ProcessingParams } from '../../server/engine/params.ts';
+import { PlanError } from '../../server/engine/plan-budget.ts';
 import { DEFAULT_SHED_POLICY } from '../../server/engine/shedding.ts';
 import type { Block } from '../../shared/types.ts';
 import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
@@ -180,6 +181,46 @@ describe('live engine', () => {
     expect(worst).toBeLessThan(1e-9);
     // Without the compensation the rows after the gap would differ (λ instead of λ^21 = 0.654).
     expect(apart).toBeGreaterThan(1e-3);
+  });
+
+  it('a re-plan a worker does not build in time, or refuses, changes nothing: the plan in force runs on with its covariance', async () => {
+    const { g, blocks } = await scene();
+    const rows: EngineRow[] = [];
+    const p = params();
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false, planTimeoutMs: 1000 });
+    for (const b of blocks.slice(0, 10)) await engine.pushAsync(b);
+    await engine.drain();
+    const wider = params({ grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } });
+    engine.faultNextPlan(1, 'stall');
+    const late = await engine.setParams(wider).catch((e: unknown) => e);
+    expect(late).toBeInstanceOf(PlanError);
+    expect(late).toMatchObject({ kind: 'timeout', message: 'grid: the bin workers did not build the plan within 1.0 s' });
+    engine.faultNextPlan(0, 'refuse', 'no memory for the table');
+    const refused = await engine.setParams(params({ bandHz: [400, 4000] })).catch((e: unknown) => e);
+    expect(refused).toMatchObject({ kind: 'refused', message: 'bandHz: the bin workers could not build the plan: no memory for the table' });
+    expect(engine.params).toEqual(p);
+    for (const b of blocks.slice(10, 24)) await engine.pushAsync(b);
+    await engine.drain();
+    // Every row, before and after the failed re-plans, equals the single-thread reference over the
+    // whole stream: the workers kept the plan in force and its covariance throughout.
+    const ref = reference(g, blocks.slice(0, 24), p, new Set(rows.map((r) => r.sampleIndex)));
+    // 24 000 samples at a row per 2 400: 10 rows.
+    expect(rows.length).toBe(10);
+    let worst = 0;
+    for (const r of rows) {
+      const e = ref.get(r.sampleIndex)!;
+      expect(r.mvdrDb!.length).toBe(72);
+      worst = Math.max(worst, maxRel(r.mvdrPower!, e.mvdr), maxRel(r.conventionalPower!, e.conv));
+    }
+    expect(worst).toBeLessThan(1e-9);
+    // The next re-plan is built by both workers and taken.
+    await engine.setParams(wider);
+    const n = rows.length;
+    for (const b of blocks.slice(24)) await engine.pushAsync(b);
+    await engine.drain();
+    expect(rows.length).toBeGreaterThan(n);
+    expect(rows[rows.length - 1].mvdrDb!.length).toBe(360);
+    expect((engine.status() as { workerRestarts: number }).workerRestarts).toBe(0);
   });
 
   it('a λ change applies from the next hop; band and grid changes re-plan', async () => {

@@ -13,6 +13,7 @@
  */
 import type { FastifyPluginAsync, FastifySchema } from 'fastify';
 import { ParamError, patchParams, type ProcessingParams } from '../../engine/params.ts';
+import { PlanError } from '../../engine/plan-error.ts';
 import type { ProcessingDerived } from '../../../shared/messages.ts';
 import { HttpError } from '../errors.ts';
 import { createSerial, type Serial } from '../serial.ts';
@@ -60,9 +61,16 @@ function schemaError(errors: AjvError[]): Error {
 const patchSchema: FastifySchema = { body: { type: 'object' } };
 const putSchema: FastifySchema = { body: { type: 'object', required: [...PROCESSING_FIELDS] } };
 
-/** A parameter refusal as the 400 every parameter route answers; other errors as they are. */
+const PLAN_ERRORS = { 'too-large': 'ERR_HTTP_PLAN_TOO_LARGE', refused: 'ERR_HTTP_PLAN_REFUSED', timeout: 'ERR_HTTP_CHANGE_TIMEOUT' } as const;
+
+/**
+ * A parameter refusal as the 400 every parameter route answers; a plan that cannot be built as 422
+ * (too large for the budget, or refused by a worker) or 503 (not built in time); others as they are.
+ */
 export function paramErrorToHttp(e: unknown): unknown {
-  return e instanceof ParamError ? new HttpError('ERR_HTTP_VALIDATION', { detail: e.message }) : e;
+  if (e instanceof ParamError) return new HttpError('ERR_HTTP_VALIDATION', { detail: e.message });
+  if (e instanceof PlanError) return new HttpError(PLAN_ERRORS[e.kind], { detail: e.message });
+  return e;
 }
 const toHttp = paramErrorToHttp;
 
