@@ -20,6 +20,8 @@ import { needsReplan, type ProcessingParams } from './engine/params.ts';
 import { PlanBudget, PlanError, planFields } from './engine/plan-budget.ts';
 import { buildApp } from './http/app.ts';
 import { LiveHub } from './http/hub.ts';
+import { AuthFailureLimiter, createAccessStats } from './http/access.ts';
+import { OriginPolicy } from './http/origin-policy.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { currentActor } from './http/actor.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
@@ -213,6 +215,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   bus.subscribe((b) => chain?.push(b), 'comparison');
 
   const simRate = new RateMeter();
+  const serialStats = { timedOut: 0 };
   const status = (): Record<string, unknown> => {
     const now = performance.now();
     let streams: StreamStatus[] | Record<string, unknown>[] = [];
@@ -244,6 +247,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       live: live.stats(),
       compare: chain ? { params: chain.params, livePath: compareLive.path, live: compareLive.stats(), engine: chain.engine.status() } : null,
       upgradesRefused: upgradeAuth.refused(),
+      access: { refused: { ...accessStats.refused }, last: accessStats.last, changesTimedOut: serialStats.timedOut },
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: recorder.recording, streamOut: streamOut.stats() },
     };
@@ -347,13 +351,24 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journalNote('preset-delete', { name }, null, `preset ${name} deleted`);
     },
   };
+  // Access checks shared by the REST routes and the WebSocket upgrades (http/access.ts).
+  const originPolicy = new OriginPolicy({ host: config.server.host, allowedHosts: config.server.allowedHosts, allowedOrigins: config.server.allowedOrigins });
+  const accessStats = createAccessStats();
+  const authFailures = new AuthFailureLimiter({ perS: config.access.authFailureRatePerS, burst: config.access.authFailureBurst });
   const upgradeAuth = createUpgradeAuth({
     token: config.server.token,
     openStatus: config.access.openStatus,
+    originPolicy,
+    accessStats,
+    authFailures,
     paths: { [config.ingest.websocket.path]: 'control', [config.outputs.streamPath]: 'listen', [config.hub.path]: 'read', [`${config.hub.path}/compare`]: 'read' },
   });
   const app = buildApp({
     status,
+    originPolicy,
+    accessStats,
+    authFailures,
+    serialStats,
     logger: opts.logger,
     token: config.server.token,
     openStatus: config.access.openStatus,

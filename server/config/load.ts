@@ -69,6 +69,7 @@ export function parseFieldText(path: string, text: string): unknown {
     case 'bool':
       return text === 'true' ? true : text === 'false' ? false : text;
     case 'enumList':
+    case 'stringList':
       return text.split(',').map((s) => s.trim()).filter((s) => s.length > 0);
     default:
       return text;

@@ -10,6 +10,7 @@ export type FieldSpec =
   | { kind: 'string'; doc: string; pattern?: RegExp; patternDoc?: string; maxLength?: number; nullable?: boolean }
   | { kind: 'enum'; values: readonly string[]; doc: string }
   | { kind: 'enumList'; values: readonly string[]; doc: string; minItems: number }
+  | { kind: 'stringList'; pattern: RegExp; patternDoc: string; maxItems: number; maxLength: number; doc: string }
   | { kind: 'bool'; doc: string }
   | { kind: 'object'; fields: Record<string, FieldSpec>; doc?: string };
 
@@ -24,6 +25,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
         host: { kind: 'string', maxLength: 255, pattern: /^[A-Za-z0-9.:\-[\]]+$/, patternDoc: 'a host name or IP address', doc: 'Address the HTTP, WebSocket and UDP listeners bind to. Loopback by default.' },
         httpPort: { kind: 'int', min: 0, max: 65535, doc: 'HTTP/WebSocket port; 0 picks a free port (printed at start).' },
         token: { kind: 'string', nullable: true, maxLength: 256, pattern: /^[\x21-\x7e]{16,}$/, patternDoc: 'at least 16 printable ASCII characters, no spaces', doc: 'Access token for changing anything; required when host is not loopback.' },
+        allowedHosts: { kind: 'stringList', maxItems: 64, maxLength: 255, pattern: /^(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+)$/, patternDoc: 'host names or IP addresses, without port', doc: 'Host names the server answers to besides its bound address and the loopback names (localhost, 127.0.0.1, [::1]); requests and upgrades with another `Host` are refused 403 (DNS rebinding). Bound to 0.0.0.0 or ::, the machine\'s interface addresses count as bound.' },
+        allowedOrigins: { kind: 'stringList', maxItems: 64, maxLength: 300, pattern: /^https?:\/\/(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+)(:\d{1,5})?$/, patternDoc: 'origins such as http://host:port', doc: 'Web origins besides the server\'s own whose pages may make changes and open WebSockets; other origins are refused 403. Requests without an Origin header (command-line clients) are not affected.' },
       },
     },
     access: {
@@ -32,6 +35,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
         openStatus: { kind: 'bool', doc: 'With server.token set: true = read-only GETs under /api stay open; false = they need the token too (the dashboard page and /assets stay open).' },
         controlRatePerS: { kind: 'number', min: 0, max: 100000, doc: 'Mutating REST requests per second allowed per client IP (token bucket); more get 429 with Retry-After. 0 = no limit.' },
         controlBurst: { kind: 'int', min: 1, max: 100000, doc: 'Mutating REST requests a client IP may send at once before the rate applies (bucket size).' },
+        authFailureRatePerS: { kind: 'number', min: 0.001, max: 1000, doc: 'Failed authentications (missing or wrong token, REST and WebSocket upgrades together) per second allowed per client IP after the burst; beyond it they get 429 with Retry-After. A request with the right token is never held back.' },
+        authFailureBurst: { kind: 'int', min: 1, max: 100000, doc: 'Failed authentications a client IP may make at once before authFailureRatePerS applies.' },
       },
     },
     source: {
@@ -138,8 +143,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
 
 /** The validated configuration. */
 export interface Config {
-  server: { host: string; httpPort: number; token: string | null };
-  access: { openStatus: boolean; controlRatePerS: number; controlBurst: number };
+  server: { host: string; httpPort: number; token: string | null; allowedHosts: string[]; allowedOrigins: string[] };
+  access: { openStatus: boolean; controlRatePerS: number; controlBurst: number; authFailureRatePerS: number; authFailureBurst: number };
   source: { kind: 'simulator' | 'network' };
   array: { file: string };
   input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null };
@@ -179,6 +184,8 @@ export function allowedText(spec: Exclude<FieldSpec, { kind: 'object' }>): strin
       return `one of ${spec.values.join(', ')}`;
     case 'enumList':
       return `list of ${spec.values.join(', ')} (at least ${spec.minItems})`;
+    case 'stringList':
+      return `list of ${spec.patternDoc} (at most ${spec.maxItems}, each ≤ ${spec.maxLength} characters)`;
     case 'bool':
       return 'true or false';
   }

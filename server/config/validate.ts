@@ -74,6 +74,11 @@ function check(value: unknown, spec: FieldSpec, path: string, issues: ConfigIssu
       for (const item of value) if (typeof item !== 'string' || !spec.values.includes(item)) return bad(`item ${show(item)} not allowed`);
       if (new Set(value).size !== value.length) return bad('repeated item');
       return;
+    case 'stringList':
+      if (!Array.isArray(value)) return bad('not a list');
+      if (value.length > spec.maxItems) return bad('too many items');
+      for (const item of value) if (typeof item !== 'string' || item.length > spec.maxLength || !spec.pattern.test(item)) return bad(`item ${show(item)} not allowed`);
+      return;
     case 'bool':
       if (typeof value !== 'boolean') return bad('not a boolean');
       return;

@@ -3,8 +3,12 @@
  * decides where it listens. Tests drive it in-process with `app.inject()`.
  */
 import { createHash, timingSafeEqual } from 'node:crypto';
-import Fastify, { type FastifyInstance } from 'fastify';
+import Fastify, { type FastifyInstance, type FastifyRequest } from 'fastify';
+import { AuthFailureLimiter, createAccessStats, noteRefusal, type AccessStats } from './access.ts';
 import { HttpError } from './errors.ts';
+import { parseJsonBody } from './json-body.ts';
+import { shown, type OriginPolicy } from './origin-policy.ts';
+import { tokenBuckets } from './token-buckets.ts';
 import { beamsRoutes, type BeamsController } from './routes/beams.ts';
 import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
@@ -12,7 +16,7 @@ import { recordingRoutes, type RecordingController } from './routes/recording.ts
 import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { actorOf, runAs } from './actor.ts';
-import { createSerial } from './serial.ts';
+import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 
@@ -49,6 +53,17 @@ export interface AppDeps {
    * `now` (ms clock) is for tests.
    */
   rateLimit?: { perS: number; burst: number; now?: () => number } | null;
+  /**
+   * Host and Origin checks and the JSON content type on mutating requests (access.ts, steps 1–3).
+   * Absent: none of the three (route tests built in-process).
+   */
+  originPolicy?: OriginPolicy;
+  /** Refusal counts, shared with the upgrade checks and shown in status; one is made when absent. */
+  accessStats?: AccessStats;
+  /** Failed authentications per client IP, shared with the upgrade checks (access.ts step 4). */
+  authFailures?: AuthFailureLimiter;
+  /** Counts parameter changes answered at their deadline (serial.ts). */
+  serialStats?: SerialStats;
   /** fastify logger setting; false in tests. */
   logger?: boolean | object;
 }
@@ -64,69 +79,53 @@ function tokenMatches(header: string | undefined, digest: Buffer): boolean {
 
 export const BODY_LIMIT_BYTES = 65536;
 export const DEFAULT_RATE_LIMIT = { perS: 20, burst: 40 } as const;
-/** Buckets kept at most; beyond it, refilled buckets are dropped first, then the oldest. */
-const MAX_BUCKETS = 4096;
-
-/** A token bucket per key (client IP). `take` answers 0 when allowed, else the seconds to wait. */
-export function tokenBuckets(perS: number, burst: number, now: () => number) {
-  const buckets = new Map<string, { tokens: number; t: number }>();
-  const refill = (b: { tokens: number; t: number }, t: number) => {
-    b.tokens = Math.min(burst, b.tokens + ((t - b.t) / 1000) * perS);
-    b.t = t;
-  };
-  return {
-    get size() {
-      return buckets.size;
-    },
-    take(key: string): number {
-      const t = now();
-      let b = buckets.get(key);
-      if (!b) {
-        if (buckets.size >= MAX_BUCKETS) {
-          for (const [k, v] of buckets) {
-            refill(v, t);
-            if (v.tokens >= burst) buckets.delete(k);
-          }
-          for (const k of buckets.keys()) {
-            if (buckets.size < MAX_BUCKETS / 2) break;
-            buckets.delete(k);
-          }
-        }
-        b = { tokens: burst, t };
-        buckets.set(key, b);
-      } else refill(b, t);
-      if (b.tokens >= 1) {
-        b.tokens -= 1;
-        return 0;
-      }
-      return (1 - b.tokens) / perS;
-    },
-  };
-}
-
 export function buildApp(deps: AppDeps): FastifyInstance {
   // forceCloseConnections: close() must not wait for a browser's idle keep-alive sockets.
   const app = Fastify({ logger: deps.logger ?? false, bodyLimit: BODY_LIMIT_BYTES, forceCloseConnections: true });
 
-  // Rate limit first, so that guessing the token is limited too.
-  const rl = deps.rateLimit === undefined ? DEFAULT_RATE_LIMIT : deps.rateLimit;
-  if (rl && rl.perS > 0) {
-    if (!(rl.perS > 0 && Number.isFinite(rl.perS)) || !(Number.isInteger(rl.burst) && rl.burst >= 1)) throw new RangeError('rateLimit needs perS > 0 and an integer burst ≥ 1');
-    const buckets = tokenBuckets(rl.perS, rl.burst, 'now' in rl && rl.now ? rl.now : () => performance.now());
-    app.addHook('onRequest', async (req, reply) => {
+  const stats = deps.accessStats ?? createAccessStats();
+  const refuse = (req: FastifyRequest, reason: Parameters<typeof noteRefusal>[1]) => noteRefusal(stats, reason, req.method, req.url, req.ip);
+
+  // The JSON parser: an empty body is no body (DELETE and body-less POSTs carry the content type
+  // too), and nesting is limited before parsing, so no message about a body can overflow the stack.
+  app.removeContentTypeParser('application/json');
+  app.addContentTypeParser('application/json', { parseAs: 'string' }, (_req, body, done) => {
+    try {
+      done(null, parseJsonBody(body as string));
+    } catch (e) {
+      done(e as Error, undefined);
+    }
+  });
+
+  // Steps 1–3 of access.ts: Host, Origin, content type; before the body is read.
+  const policy = deps.originPolicy;
+  if (policy) {
+    app.addHook('onRequest', async (req) => {
+      const host = req.headers.host;
+      if (!policy.hostAllowed(host)) {
+        refuse(req, 'host');
+        throw new HttpError('ERR_HTTP_HOST_REFUSED', { host: shown(host) });
+      }
       if (READ_ONLY_METHODS.has(req.method)) return;
-      const waitS = buckets.take(req.ip);
-      if (waitS === 0) return;
-      const retryS = Math.max(1, Math.ceil(waitS));
-      void reply.header('Retry-After', String(retryS));
-      throw new HttpError('ERR_HTTP_RATE_LIMITED', { perS: rl.perS, burst: rl.burst, retryS });
+      const origin = req.headers.origin;
+      if (!policy.originAllowed(origin, host)) {
+        refuse(req, 'origin');
+        throw new HttpError('ERR_HTTP_ORIGIN_REFUSED', { origin: shown(origin) });
+      }
+      const type = (req.headers['content-type'] ?? '').split(';')[0].trim().toLowerCase();
+      if (type !== 'application/json') {
+        refuse(req, 'contentType');
+        throw new HttpError('ERR_HTTP_UNSUPPORTED_MEDIA_TYPE', { method: req.method, url: req.url.split('?')[0] });
+      }
     });
   }
 
+  // Step 4: the token, with failed attempts limited per client IP; the right token always passes.
   if (deps.token !== undefined && deps.token !== null) {
     if (typeof deps.token !== 'string' || deps.token.length === 0 || /\s/.test(deps.token)) throw new RangeError('token must be a non-empty string without whitespace');
     const digest = createHash('sha256').update(deps.token).digest();
     const closedReads = deps.openStatus === false;
+    const failures = deps.authFailures ?? new AuthFailureLimiter();
     // onRequest: refused before the body is read or parsed.
     app.addHook('onRequest', async (req, reply) => {
       if (READ_ONLY_METHODS.has(req.method)) {
@@ -137,8 +136,31 @@ export function buildApp(deps: AppDeps): FastifyInstance {
         if (!closedReads || req.method === 'OPTIONS' || open) return;
       }
       if (tokenMatches(req.headers.authorization, digest)) return;
+      const retryS = failures.fail(req.ip);
+      if (retryS > 0) {
+        refuse(req, 'authLimited');
+        void reply.header('Retry-After', String(retryS));
+        throw new HttpError('ERR_HTTP_AUTH_LIMITED', { burst: failures.burst, perS: failures.perS, retryS });
+      }
+      refuse(req, 'unauthorized');
       void reply.header('WWW-Authenticate', 'Bearer realm="nullsteer"');
       throw new HttpError('ERR_HTTP_UNAUTHORIZED', { method: req.method, url: req.url.split('?')[0] });
+    });
+  }
+
+  // Step 5: the control rate, counted only for requests that got this far (authorised ones).
+  const rl = deps.rateLimit === undefined ? DEFAULT_RATE_LIMIT : deps.rateLimit;
+  if (rl && rl.perS > 0) {
+    if (!(rl.perS > 0 && Number.isFinite(rl.perS)) || !(Number.isInteger(rl.burst) && rl.burst >= 1)) throw new RangeError('rateLimit needs perS > 0 and an integer burst ≥ 1');
+    const buckets = tokenBuckets(rl.perS, rl.burst, 'now' in rl && rl.now ? rl.now : () => performance.now());
+    app.addHook('onRequest', async (req, reply) => {
+      if (READ_ONLY_METHODS.has(req.method)) return;
+      const waitS = buckets.take(req.ip);
+      if (waitS === 0) return;
+      const retryS = Math.max(1, Math.ceil(waitS));
+      refuse(req, 'rateLimited');
+      void reply.header('Retry-After', String(retryS));
+      throw new HttpError('ERR_HTTP_RATE_LIMITED', { perS: rl.perS, burst: rl.burst, retryS });
     });
   }
 
@@ -152,7 +174,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
     if (err instanceof HttpError) e = err;
     else if (err.validation) e = new HttpError('ERR_HTTP_VALIDATION', { detail: err.message });
     else if (err.code === 'FST_ERR_CTP_BODY_TOO_LARGE') e = new HttpError('ERR_HTTP_BODY_TOO_LARGE', { limit: BODY_LIMIT_BYTES });
-    else if (err.code === 'FST_ERR_CTP_INVALID_JSON_BODY' || err.code === 'FST_ERR_CTP_EMPTY_JSON_BODY') e = new HttpError('ERR_HTTP_BAD_BODY', { detail: err.message });
+    else if (err.code === 'FST_ERR_CTP_INVALID_JSON_BODY' || err.code === 'FST_ERR_CTP_EMPTY_JSON_BODY') e = new HttpError('ERR_HTTP_BAD_BODY', { detail: `request body is not valid JSON: ${err.message}` });
     else if (err.statusCode && err.statusCode >= 400 && err.statusCode < 500) e = new HttpError('ERR_HTTP_VALIDATION', { detail: err.message });
     else {
       req.log.error(err);
@@ -167,7 +189,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   app.register(statusRoutes(deps.status), { prefix: '/api' });
 
   // Parameter changes from any route (processing, presets, comparison) go through one queue.
-  const serial = createSerial();
+  const serial = createSerial(undefined, deps.serialStats);
   if (deps.processing) app.register(processingRoutes(deps.processing, serial), { prefix: '/api' });
   if (deps.session) app.register(sessionRoutes(deps.session, serial), { prefix: '/api' });
   if (deps.compare) app.register(compareRoutes(deps.compare, serial), { prefix: '/api' });

@@ -86,7 +86,7 @@ describe('a service with a token', () => {
     const ok = await call(svc, 'PATCH', '/api/processing', { headers: JSON_AUTH, body });
     expect(ok.status).toBe(200);
     expect(ok.json.params.spectrumRateHz).toBe(10);
-    const reset = await call(svc, 'POST', '/api/processing/reset', { headers: AUTH });
+    const reset = await call(svc, 'POST', '/api/processing/reset', { headers: JSON_AUTH });
     expect(reset.status).toBe(204);
     // access.openStatus defaults to true: reads need no token.
     for (const path of ['/api/status', '/api/processing', '/api/beams', '/api/channels', '/api/recording']) {
@@ -153,18 +153,64 @@ describe('a service with a token', () => {
   });
 });
 
-describe('rate limit on control calls', () => {
-  it('a real service answers 429 with Retry-After after the burst of 40 (before the token check)', async () => {
+describe('rate limits: failed authentications and control calls', () => {
+  it("an unauthenticated client is limited after 20 failures, and never takes one of the operator's authorised changes", async () => {
+    // The default burst (20); a refill slow enough that the run's duration cannot matter.
+    const svc = await startTestService({ server: { token: TOKEN }, access: { authFailureRatePerS: 0.001 } });
+    try {
+      // Same client address (127.0.0.1) for both: only the token tells them apart.
+      const intruder: number[] = [];
+      const operator: number[] = [];
+      let limited: Awaited<ReturnType<typeof call>> | null = null;
+      for (let k = 0; k < 64; k++) {
+        const r = await call(svc, 'POST', '/api/processing/reset', { headers: { 'content-type': 'application/json', ...(k % 2 ? { authorization: 'Bearer guess-' + k } : {}) } });
+        intruder.push(r.status);
+        if (r.status === 429 && !limited) limited = r;
+        if (k % 4 === 0) operator.push((await call(svc, 'PATCH', '/api/processing', { headers: JSON_AUTH, body: JSON.stringify({ spectrumRateHz: 10 + (k % 8) }) })).status);
+      }
+      expect(operator).toEqual(Array(16).fill(200));
+      // access.authFailureBurst 20: the first 20 failures are 401, the rest 429.
+      expect(intruder).toEqual([...Array(20).fill(401), ...Array(44).fill(429)]);
+      // Retry-After: the time to earn one failure back at 0.001/s, whole seconds rounded up.
+      expect(limited!.headers.get('retry-after')).toMatch(/^(99\d|1000)$/);
+      expect(limited!.json).toEqual({ error: { code: 'ERR_HTTP_AUTH_LIMITED', message: `too many failed authentications from this client (limit 0.001/s, burst 20); retry after ${limited!.headers.get('retry-after')} s`, statusCode: 429 } });
+      // Token guesses on upgrades count against the same limit: refused 429, not 401, now.
+      expect(await upgrade(svc, '/ingest?token=guess')).toBe(429);
+      const st = await getStatus(svc);
+      expect(st.access.refused.unauthorized).toBe(20);
+      expect(st.access.refused.authLimited).toBe(45);
+      expect(st.access.refused.rateLimited).toBe(0);
+    } finally {
+      await svc.close();
+    }
+  });
+
+  it('token guesses on reads (access.openStatus false) and on upgrades are limited too', async () => {
+    const svc = await startTestService({ server: { token: TOKEN }, access: { openStatus: false, authFailureBurst: 5, authFailureRatePerS: 0.001 } });
+    try {
+      const got: (number | string)[] = [];
+      for (let k = 0; k < 4; k++) got.push((await call(svc, 'GET', '/api/status', { headers: { authorization: `Bearer guess-${k}` } })).status);
+      for (let k = 0; k < 4; k++) got.push(await upgrade(svc, `/api/live?token=guess-${k}`));
+      expect(got).toEqual([401, 401, 401, 401, 401, 429, 429, 429]);
+      // The right token still passes, on reads and upgrades.
+      expect((await call(svc, 'GET', '/api/status', { headers: AUTH })).status).toBe(200);
+      expect(await upgrade(svc, '/api/live', AUTH)).toBe('open');
+    } finally {
+      await svc.close();
+    }
+  });
+
+  it('authorised control calls beyond the burst of 40 get 429 ERR_HTTP_RATE_LIMITED with Retry-After', async () => {
     const svc = await startTestService({ server: { token: TOKEN } });
     try {
       const statuses: number[] = [];
       let limited: Awaited<ReturnType<typeof call>> | null = null;
       for (let k = 0; k < 60; k++) {
-        const r = await call(svc, 'POST', '/api/processing/reset');
+        const r = await call(svc, 'POST', '/api/processing/reset', { headers: JSON_AUTH });
         statuses.push(r.status);
         if (r.status === 429 && !limited) limited = r;
       }
-      expect(statuses.slice(0, 40).every((s) => s === 401)).toBe(true);
+      expect(statuses.slice(0, 40).every((s) => s === 204)).toBe(true);
       expect(statuses.filter((s) => s === 429).length).toBeGreaterThan(0);
       expect(limited!.headers.get('retry-after')).toBe('1');
       expect(limited!.json).toEqual({ error: { code: 'ERR_HTTP_RATE_LIMITED', message: 'too many control requests from this client (limit 20/s, burst 40); retry after 1 s', statusCode: 429 } });

@@ -33,7 +33,7 @@ const HUGE = { fftSize: 4096, grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, s
 async function call(s: Service, method: string, path: string, body?: unknown, ms = 40_000): Promise<{ status: number; json: any }> {
   const res = await fetch(`${s.url}${path}`, {
     method,
-    headers: body === undefined ? {} : { 'content-type': 'application/json' },
+    headers: method === 'GET' ? {} : { 'content-type': 'application/json' },
     body: body === undefined ? undefined : JSON.stringify(body),
     signal: AbortSignal.timeout(ms),
   });

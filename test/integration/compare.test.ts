@@ -110,7 +110,7 @@ describe('comparison chain', () => {
       engine: { workers: 1 },
       processing: { tauS: 2, azimuthStepDeg: 1, spectrumRateHz: 10, bandLowHz: 300, bandHighHz: 3000 },
     });
-    const put = (path: string, method: string, body?: unknown) => fetch(`${svc!.url}${path}`, { method, headers: body ? { 'content-type': 'application/json' } : {}, body: body ? JSON.stringify(body) : undefined }).then(async (r) => ({ status: r.status, json: await r.json() }));
+    const put = (path: string, method: string, body?: unknown) => fetch(`${svc!.url}${path}`, { method, headers: method !== 'GET' ? { 'content-type': 'application/json' } : {}, body: body ? JSON.stringify(body) : undefined }).then(async (r) => ({ status: r.status, json: await r.json() }));
     // Only the comparison's own fields may differ.
     const refused = await put('/api/compare', 'PUT', { bandHz: [500, 2000] });
     expect(refused.status).toBe(400);

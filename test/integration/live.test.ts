@@ -109,7 +109,7 @@ describe('live server', () => {
     const body: any = await bad.json();
     expect(body.error.code).toBe('ERR_HTTP_VALIDATION');
     expect(body.error.message).toMatch(/^lambda: 1\.5 out of range/);
-    const reset = await fetch(`${svc.url}/api/processing/reset`, { method: 'POST' });
+    const reset = await fetch(`${svc.url}/api/processing/reset`, { method: 'POST', headers: { 'content-type': 'application/json' } });
     expect(reset.status).toBe(204);
     const get: any = await (await fetch(`${svc.url}/api/processing`)).json();
     expect(get.derived.hopSamples).toBe(256);
@@ -157,8 +157,8 @@ describe('live server', () => {
     const bad = await fetch(`${svc.url}/api/beams`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ azimuthDeg: 'north' }) });
     expect(bad.status).toBe(400);
     expect(((await bad.json()) as any).error.message).toMatch(/^azimuthDeg: "north" out of range/);
-    expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE' })).status).toBe(204);
-    expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE' })).status).toBe(404);
+    expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE', headers: { 'content-type': 'application/json' } })).status).toBe(204);
+    expect((await fetch(`${svc.url}/api/beams/${beam.id}`, { method: 'DELETE', headers: { 'content-type': 'application/json' } })).status).toBe(404);
   });
 
   it('reports channel levels and masks a channel without a restart', async () => {

@@ -85,7 +85,7 @@ describe('overload', () => {
     await waitFor(async () => (await getStatus(svc!)).timeline.samples >= FRAMES * N, 10000, 'the whole timeline');
     const st = await getStatus(svc);
     await sleep(300);
-    expect((await fetch(`${svc.url}/api/recording`, { method: 'DELETE' })).status).toBe(200);
+    expect((await fetch(`${svc.url}/api/recording`, { method: 'DELETE', headers: { 'content-type': 'application/json' } })).status).toBe(200);
 
     // Shedding: one step at a time, up, in the design's order, and status states the effect.
     const shed = st.engine.shed;

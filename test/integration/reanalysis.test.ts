@@ -52,7 +52,7 @@ describe('re-analysis of a capture', () => {
       live.push({ sampleIndex: r.sampleIndex, mvdr: Float32Array.from(r.mvdrDb!), conv: Float32Array.from(r.conventionalDb!) });
     });
     await new Promise<void>((r) => ws!.once('open', () => r()));
-    const post = (path: string, method: string, body?: unknown) => fetch(`${svc!.url}${path}`, { method, headers: body ? { 'content-type': 'application/json' } : {}, body: body ? JSON.stringify(body) : undefined });
+    const post = (path: string, method: string, body?: unknown) => fetch(`${svc!.url}${path}`, { method, headers: method !== 'GET' ? { 'content-type': 'application/json' } : {}, body: body ? JSON.stringify(body) : undefined });
     expect((await post('/api/recording', 'POST', { encoding: 'float32', beams: false })).status).toBe(200);
     const udp = createSocket('udp4');
     for (let k = 0; k < FRAMES; k++) {

@@ -88,7 +88,7 @@ describe('recording and stream out', () => {
     }
     await waitFor(() => blocks.reduce((n, b) => n + b.frames, 0) >= total * N, 5000, 'the whole timeline');
     await sleep(300);
-    const stop = await json(`${base}/api/recording`, { method: 'DELETE' });
+    const stop = await json(`${base}/api/recording`, { method: 'DELETE', headers: { 'content-type': 'application/json' } });
     expect(stop.body.recording).toBe(false);
     const files = readdirSync(dir).sort();
     const rawWav = files.find((f) => /-raw-0001\.wav$/.test(f))!;

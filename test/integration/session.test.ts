@@ -20,7 +20,7 @@ afterEach(async () => {
 
 const UA = { 'user-agent': 'session-test/1.0' };
 async function call(method: string, path: string, body?: unknown): Promise<{ status: number; json: any }> {
-  const r = await fetch(`${svc!.url}${path}`, { method, headers: { ...UA, ...(body !== undefined ? { 'content-type': 'application/json' } : {}) }, body: body === undefined ? undefined : JSON.stringify(body) });
+  const r = await fetch(`${svc!.url}${path}`, { method, headers: { ...UA, ...(method !== 'GET' ? { 'content-type': 'application/json' } : {}) }, body: body === undefined ? undefined : JSON.stringify(body) });
   const text = await r.text();
   return { status: r.status, json: text ? JSON.parse(text) : null };
 }

@@ -88,7 +88,7 @@ describe('worker crash during a recording', () => {
     }
     await waitFor(async () => (await getStatus(svc!)).timeline.samples >= FRAMES * N, 5000, 'the whole timeline');
     await sleep(300);
-    const stop = await fetch(`${base}/api/recording`, { method: 'DELETE' });
+    const stop = await fetch(`${base}/api/recording`, { method: 'DELETE', headers: { 'content-type': 'application/json' } });
     expect(stop.status).toBe(200);
 
     const st = await getStatus(svc);

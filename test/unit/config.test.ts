@@ -28,7 +28,7 @@ async function issuesOf(p: Promise<unknown>): Promise<string[]> {
 describe('configuration', () => {
   it('loads the defaults with the built-in array', async () => {
     const { config, geometry } = await loadConfig({ env: {} });
-    expect(config.server).toEqual({ host: '127.0.0.1', httpPort: 8750, token: null });
+    expect(config.server).toEqual({ host: '127.0.0.1', httpPort: 8750, token: null, allowedHosts: [], allowedOrigins: [] });
     expect(config.source.kind).toBe('simulator');
     expect(geometry.positions).toHaveLength(24);
   });

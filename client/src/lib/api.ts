@@ -49,7 +49,9 @@ export function apiToken(): string | null {
 /** One REST call: resolves, never throws; the server's own error message on refusal. */
 export async function request<T>(method: string, path: string, body?: unknown): Promise<ApiResult<T>> {
   const headers: Record<string, string> = { accept: 'application/json' };
-  if (body !== undefined) headers['content-type'] = 'application/json';
+  // Every change carries the JSON content type, with a body or without: the server refuses other
+  // types on mutating requests, so no other site's form or plain-text post can pass for one.
+  if (body !== undefined || (method !== 'GET' && method !== 'HEAD')) headers['content-type'] = 'application/json';
   if (bearerToken) headers.authorization = `Bearer ${bearerToken}`;
   let res: Response;
   try {
