@@ -91,8 +91,11 @@ describe('dashboard clients', () => {
     const st = await getStatus(svc);
 
     // The 49 readers: every row broadcast since they connected, contiguous and in order.
+    // Every row the engine made was broadcast (its own counter; how many a loaded machine makes in
+    // 8 s, shedding included, is not this test's business).
     const broadcast = hubStats.rowsBroadcast;
-    expect(broadcast).toBeGreaterThan(SECONDS * 50 * 0.8);
+    expect(broadcast).toBe(svc.engine.rows);
+    expect(broadcast).toBeGreaterThan(QUEUE_ROWS + 10);
     for (let i = 0; i < CLIENTS - 1; i++) {
       const s = seqs[i];
       expect(s.length, `client ${i}`).toBe(broadcast);
