@@ -32,6 +32,15 @@ export const MAX_LOADING_RATIO = 1e6;
 /** Range of `db` for mode 'relative-db'. */
 export const MIN_LOADING_DB = -200;
 export const MAX_LOADING_DB = 60;
+/**
+ * Largest fixed δ accepted: 10¹², in the engine's units one bin's power 120 dB above full scale,
+ * 60 dB above the loudest input the server accepts (+60 dBFS). Bounded so that R + δI and the
+ * spectra stay finite in float64 (δ = 1.7e308 made every MVDR value non-finite).
+ */
+export const MAX_FIXED_DELTA = 1e12;
+/** Range of a WNG floor, dB (WNG ≤ 10·log10 M, at most 30.1 dB for 1024 sensors). */
+export const MIN_WNG_FLOOR_DB = -100;
+export const MAX_WNG_FLOOR_DB = 100;
 /** Default upper end of the WNG search, as a ratio to tr(R)/M (30 dB above the average sensor power). */
 export const DEFAULT_WNG_MAX_RATIO = 1e3;
 /** Lower end of the WNG search, as a ratio to tr(R)/M (−90 dB). */
@@ -65,17 +74,29 @@ function requireNumberIn(field: string, value: unknown, min: number, max: number
   }
 }
 
+/** The fields each mode takes (a closed schema: anything else is refused). */
+const LOADING_FIELDS: Record<LoadingSpec['mode'], readonly string[]> = {
+  relative: ['mode', 'ratio'],
+  'relative-db': ['mode', 'db'],
+  fixed: ['mode', 'delta'],
+  wng: ['mode', 'floorDb', 'maxRatio'],
+};
+
 /**
  * Checks a loading spec; messages name the field and its allowed range. The WNG floor's upper
  * bound 10·log10(M) depends on the array, so it is checked at use ({@link LoadingSolver.level}
- * reports an unreachable floor instead of throwing).
- * @throws TypeError for a wrong shape or type, RangeError for a value out of range
+ * reports an unreachable floor instead of throwing). Fields other than the mode's are refused.
+ * @throws TypeError for a wrong shape, type or unknown field, RangeError for a value out of range
  */
 export function validateLoading(spec: unknown): asserts spec is LoadingSpec {
-  if (typeof spec !== 'object' || spec === null) {
-    throw new TypeError(`loading must be an object with a mode, got ${spec === null ? 'null' : typeof spec}`);
+  if (typeof spec !== 'object' || spec === null || Array.isArray(spec)) {
+    throw new TypeError(`loading must be an object with a mode, got ${spec === null ? 'null' : Array.isArray(spec) ? 'a list' : typeof spec}`);
   }
   const s = spec as Record<string, unknown>;
+  const known = Object.hasOwn(LOADING_FIELDS, String(s.mode)) ? LOADING_FIELDS[s.mode as LoadingSpec['mode']] : null;
+  if (known) {
+    for (const k of Object.keys(s)) if (!known.includes(k)) throw new TypeError(`loading.${k.slice(0, 40)}: unknown field for mode '${String(s.mode)}'; known: ${known.join(', ')}`);
+  }
   switch (s.mode) {
     case 'relative':
       requireNumberIn('ratio', s.ratio, 0, MAX_LOADING_RATIO);
@@ -84,16 +105,30 @@ export function validateLoading(spec: unknown): asserts spec is LoadingSpec {
       requireNumberIn('db', s.db, MIN_LOADING_DB, MAX_LOADING_DB);
       return;
     case 'fixed':
-      requireNumberIn('delta', s.delta, 0, Number.MAX_VALUE);
+      requireNumberIn('delta', s.delta, 0, MAX_FIXED_DELTA);
       return;
     case 'wng':
-      requireNumberIn('floorDb', s.floorDb, -Number.MAX_VALUE, Number.MAX_VALUE);
+      requireNumberIn('floorDb', s.floorDb, MIN_WNG_FLOOR_DB, MAX_WNG_FLOOR_DB);
       if (s.maxRatio !== undefined) requireNumberIn('maxRatio', s.maxRatio, WNG_MIN_RATIO, MAX_LOADING_RATIO);
       return;
     default:
       throw new TypeError(
         `loading.mode must be one of 'relative', 'relative-db', 'fixed', 'wng', got ${JSON.stringify(s.mode)}`,
       );
+  }
+}
+
+/** A copy of a validated spec with exactly its mode's fields (nothing else the input carried). */
+export function cleanLoading(spec: LoadingSpec): LoadingSpec {
+  switch (spec.mode) {
+    case 'relative':
+      return { mode: 'relative', ratio: spec.ratio };
+    case 'relative-db':
+      return { mode: 'relative-db', db: spec.db };
+    case 'fixed':
+      return { mode: 'fixed', delta: spec.delta };
+    case 'wng':
+      return spec.maxRatio === undefined ? { mode: 'wng', floorDb: spec.floorDb } : { mode: 'wng', floorDb: spec.floorDb, maxRatio: spec.maxRatio };
   }
 }
 

@@ -4,7 +4,7 @@
  * allowed range.
  */
 import type { LoadingSpec } from '../dsp/loading.ts';
-import { validateLoading } from '../dsp/loading.ts';
+import { cleanLoading, validateLoading } from '../dsp/loading.ts';
 import type { SpectrumMethod } from '../dsp/spectrum.ts';
 import type { AngleRangeDeg } from '../dsp/steering.ts';
 
@@ -40,8 +40,9 @@ export const SPECTRUM_RATE_LIMITS_HZ = [0.5, 50] as const;
 export const MAX_DIRECTIONS = 20_000;
 
 function angleRange(field: string, v: unknown, lo: number, hi: number): AngleRangeDeg {
-  if (typeof v !== 'object' || v === null) throw new ParamError(field, 'must be an object { startDeg, stopDeg, stepDeg }');
+  if (typeof v !== 'object' || v === null || Array.isArray(v)) throw new ParamError(field, 'must be an object { startDeg, stopDeg, stepDeg }');
   const r = v as Record<string, unknown>;
+  for (const k of Object.keys(r)) if (k !== 'startDeg' && k !== 'stopDeg' && k !== 'stepDeg') throw new ParamError(`${field}.${k.slice(0, 40)}`, 'unknown field; known: startDeg, stopDeg, stepDeg');
   for (const k of ['startDeg', 'stopDeg', 'stepDeg']) {
     const x = r[k];
     if (typeof x !== 'number' || !Number.isFinite(x)) throw new ParamError(`${field}.${k}`, `must be a number, got ${JSON.stringify(x)}`);
@@ -65,7 +66,7 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
   if (typeof patch !== 'object' || patch === null || Array.isArray(patch)) throw new ParamError('(body)', 'must be a JSON object');
   const p = patch as Record<string, unknown>;
   const known = ['lambda', 'tauS', 'loading', 'bandHz', 'grid', 'methods', 'spectrumRateHz', 'normalise', 'fftSize'];
-  for (const k of Object.keys(p)) if (!known.includes(k)) throw new ParamError(k, `unknown field; known: ${known.join(', ')}`);
+  for (const k of Object.keys(p)) if (!known.includes(k)) throw new ParamError(k.slice(0, 40), `unknown field; known: ${known.join(', ')}`);
   const out: ProcessingParams = structuredClone(base);
   if (p.lambda !== undefined && p.tauS !== undefined) throw new ParamError('tauS', 'give lambda or tauS, not both');
   let hop = ctx.hop;
@@ -97,7 +98,7 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
     } catch (e) {
       throw new ParamError('loading', (e as Error).message.replace(/^loading\.?/, ''));
     }
-    out.loading = p.loading as LoadingSpec;
+    out.loading = cleanLoading(p.loading as LoadingSpec);
   }
   if (p.bandHz !== undefined) {
     const b = p.bandHz;
@@ -108,8 +109,8 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
   }
   if (p.grid !== undefined) {
     const g = p.grid as Record<string, unknown>;
-    if (typeof g !== 'object' || g === null) throw new ParamError('grid', 'must be an object { azimuthDeg, elevationDeg? }');
-    for (const k of Object.keys(g)) if (k !== 'azimuthDeg' && k !== 'elevationDeg') throw new ParamError(`grid.${k}`, 'unknown field; known: azimuthDeg, elevationDeg');
+    if (typeof g !== 'object' || g === null || Array.isArray(g)) throw new ParamError('grid', 'must be an object { azimuthDeg, elevationDeg? }');
+    for (const k of Object.keys(g)) if (k !== 'azimuthDeg' && k !== 'elevationDeg') throw new ParamError(`grid.${k.slice(0, 40)}`, 'unknown field; known: azimuthDeg, elevationDeg');
     const az = angleRange('grid.azimuthDeg', g.azimuthDeg, -360, 720);
     const el = g.elevationDeg === undefined ? undefined : angleRange('grid.elevationDeg', g.elevationDeg, -90, 90);
     const n = count(az) * (el ? count(el) : 1);

@@ -108,6 +108,13 @@ describe('validateLoading', () => {
     expect(() => validateLoading({ mode: 'wng', floorDb: 0, maxRatio: 0 })).toThrow(/loading\.maxRatio/);
     expect(() => validateLoading({ mode: 'tikhonov' })).toThrow(/loading\.mode must be one of/);
     expect(() => validateLoading(null)).toThrow(TypeError);
+    // Bounded so R + δI and the spectra stay finite in float64 (δ = 1.7e308 overflowed every MVDR value).
+    expect(() => validateLoading({ mode: 'fixed', delta: 1.7e308 })).toThrow(/^loading\.delta must be in 0…1000000000000, got 1\.7e\+308$/);
+    expect(() => validateLoading({ mode: 'fixed', delta: 1e12 })).not.toThrow();
+    expect(() => validateLoading({ mode: 'wng', floorDb: 1e300 })).toThrow(/^loading\.floorDb must be in -100…100/);
+    // A closed schema per mode: nothing else is kept.
+    expect(() => validateLoading({ mode: 'relative', ratio: 0.01, note: 'x' })).toThrow(/^loading\.note: unknown field for mode 'relative'; known: mode, ratio$/);
+    expect(() => validateLoading([])).toThrow(TypeError);
   });
 });
 
