@@ -128,6 +128,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
       kind: 'object',
       fields: {
         dir: { kind: 'string', maxLength: 4096, doc: 'Folder for the parameter journal (journal.jsonl) and presets (presets/NAME.json); relative: to the working directory.' },
+        journalMaxBytes: { kind: 'int', min: 65536, max: 1073741824, doc: 'Size at which journal.jsonl is renamed journal.1.jsonl (replacing the older one) and a new file begins: the journal takes at most twice this on disk, and start-up reads at most that much.' },
       },
     },
     simulator: {
@@ -160,7 +161,7 @@ export interface Config {
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };
-  data: { dir: string };
+  data: { dir: string; journalMaxBytes: number };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }
 

@@ -4,20 +4,89 @@
  * the value before and after, the stream sample index at which it applied and the wall clock.
  *
  * Kept in memory (the last `keep` entries) and appended as one JSON line per entry to
- * `<data dir>/journal.jsonl`, so it survives a restart: at start the file's last `keep` entries are
- * read back (a line that does not parse is counted in `corruptLines` and skipped; the others stay).
- * Each server run is a session (`session` = its start time); entries of earlier sessions keep theirs.
- * Appends are synchronous: one small line per change, rare by nature, and never lost to a crash
- * right after the answer went out.
+ * `<data dir>/journal.jsonl`, so it survives a restart. Each server run is a session (`session` =
+ * its start time); entries of earlier sessions keep theirs. Appends are synchronous: one small line
+ * per change, rare by nature, and never lost to a crash right after the answer went out.
+ *
+ * Bounded on disk and at start: when an append would take the file past `maxBytes`
+ * (data.journalMaxBytes) the file is renamed to `journal.1.jsonl` (replacing the one before) and a
+ * new one begins, so the two take at most 2·maxBytes. At start only the last `maxBytes` of each are
+ * read, in chunks, line by line: a line that does not parse, or is longer than a line can be, is
+ * counted in `corruptLines` and skipped; a file that cannot be read at all is noted in `readError`
+ * and the journal starts empty. A file found larger than `maxBytes` (an older server, a copy) is
+ * rotated at once. No content of the files can stop the server from starting.
  */
-import { appendFileSync, existsSync, mkdirSync, readFileSync } from 'node:fs';
+import { appendFileSync, closeSync, existsSync, fstatSync, mkdirSync, openSync, readSync, renameSync, statSync } from 'node:fs';
 import { join } from 'node:path';
+import { publicText } from '../public-text.ts';
 
 export { JOURNAL_KINDS, type Actor, type JournalEntry, type JournalKind } from '../../shared/session.ts';
 import type { Actor, JournalEntry, JournalKind } from '../../shared/session.ts';
 
 export const JOURNAL_FILE = 'journal.jsonl';
+/** The previous file after a rotation. */
+export const JOURNAL_OLD_FILE = 'journal.1.jsonl';
 export const JOURNAL_KEEP = 10_000;
+/** Default size at which the file rotates (config data.journalMaxBytes). */
+export const JOURNAL_MAX_BYTES = 8 * 2 ** 20;
+/** Longest line read back; an entry is a few KiB (closed schemas bound every value in it). */
+export const JOURNAL_MAX_LINE_BYTES = 256 * 1024;
+const READ_CHUNK = 1 << 20;
+
+/**
+ * Call `line` for each complete line of the last `maxBytes` of a file, read in chunks (a line cut
+ * by the start of that window is skipped, as is one longer than `maxLine`, which counts as bad).
+ * @returns lines too long (bad)
+ */
+function tailLines(file: string, maxBytes: number, maxLine: number, line: (text: string) => void): number {
+  const fd = openSync(file, 'r');
+  let bad = 0;
+  try {
+    const size = fstatSync(fd).size;
+    let pos = Math.max(0, size - maxBytes);
+    // Starting mid-file: everything up to the first newline belongs to a line before the window.
+    let skipping = pos > 0;
+    let pending: Buffer[] = [];
+    let pendingBytes = 0;
+    let tooLong = false;
+    const buf = Buffer.allocUnsafe(READ_CHUNK);
+    while (pos < size) {
+      const n = readSync(fd, buf, 0, Math.min(READ_CHUNK, size - pos), pos);
+      if (n <= 0) break;
+      pos += n;
+      let start = 0;
+      for (;;) {
+        const nl = buf.indexOf(0x0a, start);
+        const end = nl < 0 || nl >= n ? n : nl;
+        if (!skipping && !tooLong) {
+          if (pendingBytes + (end - start) > maxLine) {
+            tooLong = true;
+            pending = [];
+            pendingBytes = 0;
+          } else {
+            pending.push(Buffer.from(buf.subarray(start, end)));
+            pendingBytes += end - start;
+          }
+        }
+        if (nl < 0 || nl >= n) break;
+        if (skipping) skipping = false;
+        else if (tooLong) bad++;
+        else line(Buffer.concat(pending, pendingBytes).toString('utf8'));
+        pending = [];
+        pendingBytes = 0;
+        tooLong = false;
+        start = nl + 1;
+      }
+    }
+    if (!skipping) {
+      if (tooLong) bad++;
+      else if (pendingBytes > 0) line(Buffer.concat(pending, pendingBytes).toString('utf8'));
+    }
+  } finally {
+    closeSync(fd);
+  }
+  return bad;
+}
 
 function isEntry(v: unknown): v is JournalEntry {
   if (typeof v !== 'object' || v === null) return false;
@@ -46,50 +115,85 @@ export function diffSummary(before: unknown, after: unknown): string {
 export class ParameterJournal {
   readonly session: string;
   readonly startedAt: string;
-  /** Lines of the file that did not parse at start (skipped). */
+  /** Lines of the files that did not parse at start (skipped). */
   readonly corruptLines: number;
+  /** Why the files could not be read at start (the journal then started empty), or null. */
+  readonly readError: string | null;
+  /** Rotations so far (this run). */
+  rotations = 0;
   /** Appends that failed (disk full, folder removed); the entry stays in memory. */
   writeErrors = 0;
   lastWriteError: string | null = null;
   readonly #file: string | null;
+  #oldFile = '';
   readonly #keep: number;
+  readonly #maxBytes: number;
+  /** Bytes in the current file (what appends add to). */
+  #bytes = 0;
   readonly #entries: JournalEntry[] = [];
   #seq = 0;
 
   /**
    * @param dir the data folder (created when missing); null keeps the journal in memory only
-   * @throws Error when `dir` exists but the journal file cannot be read
+   * @param opts.maxBytes size at which the file rotates (default JOURNAL_MAX_BYTES)
+   * @throws Error only when `dir` cannot be created; what the files hold never throws
    */
-  constructor(dir: string | null, opts: { keep?: number; now?: () => Date } = {}) {
+  constructor(dir: string | null, opts: { keep?: number; now?: () => Date; maxBytes?: number } = {}) {
     this.#keep = opts.keep ?? JOURNAL_KEEP;
+    this.#maxBytes = opts.maxBytes ?? JOURNAL_MAX_BYTES;
+    if (!(this.#maxBytes >= 1024)) throw new RangeError(`maxBytes must be ≥ 1024, got ${this.#maxBytes}`);
     const now = (opts.now ?? (() => new Date()))();
     this.startedAt = now.toISOString();
     this.session = this.startedAt;
     let corrupt = 0;
+    let readError: string | null = null;
     if (dir === null) this.#file = null;
     else {
       mkdirSync(dir, { recursive: true });
       this.#file = join(dir, JOURNAL_FILE);
-      if (existsSync(this.#file)) {
-        for (const line of readFileSync(this.#file, 'utf8').split('\n')) {
-          if (line.trim() === '') continue;
-          let v: unknown;
-          try {
-            v = JSON.parse(line);
-          } catch {
-            corrupt++;
-            continue;
-          }
-          if (!isEntry(v)) {
-            corrupt++;
-            continue;
-          }
-          this.#push(v);
-          this.#seq = Math.max(this.#seq, v.seq);
+      this.#oldFile = join(dir, JOURNAL_OLD_FILE);
+      const take = (line: string) => {
+        if (line.trim() === '') return;
+        let v: unknown;
+        try {
+          v = JSON.parse(line);
+        } catch {
+          corrupt++;
+          return;
         }
+        if (!isEntry(v)) {
+          corrupt++;
+          return;
+        }
+        this.#push(v);
+        this.#seq = Math.max(this.#seq, v.seq);
+      };
+      // The older file first, so entries stay in order; each read is bounded by maxBytes.
+      for (const f of [this.#oldFile, this.#file]) {
+        try {
+          // (Not `corrupt += tailLines(…)`: that would read `corrupt` before `take` adds to it.)
+          const tooLong = existsSync(f) ? tailLines(f, this.#maxBytes, JOURNAL_MAX_LINE_BYTES, take) : 0;
+          corrupt += tooLong;
+        } catch (e) {
+          readError = publicText(e);
+        }
+      }
+      try {
+        this.#bytes = existsSync(this.#file) ? statSync(this.#file).size : 0;
+        if (this.#bytes > this.#maxBytes) this.#rotate();
+      } catch (e) {
+        readError ??= publicText(e);
       }
     }
     this.corruptLines = corrupt;
+    this.readError = readError;
+  }
+
+  /** journal.jsonl → journal.1.jsonl (replacing it); the next append starts a new file. */
+  #rotate(): void {
+    renameSync(this.#file!, this.#oldFile);
+    this.#bytes = 0;
+    this.rotations++;
   }
 
   #push(e: JournalEntry): void {
@@ -107,10 +211,14 @@ export class ParameterJournal {
     this.#push(e);
     if (this.#file !== null) {
       try {
-        appendFileSync(this.#file, `${JSON.stringify(e)}\n`);
+        const line = `${JSON.stringify(e)}\n`;
+        const n = Buffer.byteLength(line);
+        if (this.#bytes > 0 && this.#bytes + n > this.#maxBytes) this.#rotate();
+        appendFileSync(this.#file, line);
+        this.#bytes += n;
       } catch (err) {
         this.writeErrors++;
-        this.lastWriteError = (err as Error).message;
+        this.lastWriteError = publicText(err);
       }
     }
     return e;

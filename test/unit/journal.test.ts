@@ -1,9 +1,9 @@
 /** The parameter journal: records, queries, persistence across instances, corrupt lines. */
-import { appendFileSync, mkdirSync, mkdtempSync, readFileSync, rmSync } from 'node:fs';
+import { appendFileSync, closeSync, existsSync, ftruncateSync, mkdirSync, mkdtempSync, openSync, readFileSync, readdirSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { diffSummary, JOURNAL_FILE, ParameterJournal } from '../../server/session/journal.ts';
+import { diffSummary, JOURNAL_FILE, JOURNAL_OLD_FILE, ParameterJournal } from '../../server/session/journal.ts';
 
 const who = { remote: '127.0.0.1', agent: 'test' };
 
@@ -54,5 +54,58 @@ describe('ParameterJournal', () => {
     expect(k.writeErrors).toBe(1);
     expect(k.lastWriteError).toMatch(/EISDIR/);
     expect(k.query()).toHaveLength(1);
+  });
+
+  it('rotates at maxBytes: at most two files of that size, read back in order after a restart', () => {
+    const dir = mkdtempSync(join(tmpdir(), 'nullsteer-journal-'));
+    const maxBytes = 64 * 1024;
+    const j = new ParameterJournal(dir, { maxBytes });
+    // About 1 KiB per entry: 300 entries are ~4.7 times the limit.
+    const pad = 'x'.repeat(900);
+    for (let i = 0; i < 300; i++) j.record('processing', who, i, { lambda: 0.99, pad }, { lambda: 0.98, pad });
+    expect(readdirSync(dir).sort()).toEqual([JOURNAL_OLD_FILE, JOURNAL_FILE]);
+    for (const f of [JOURNAL_FILE, JOURNAL_OLD_FILE]) expect(statSync(join(dir, f)).size).toBeLessThanOrEqual(maxBytes);
+    expect(j.rotations).toBeGreaterThanOrEqual(4);
+    expect(j.writeErrors).toBe(0);
+    const b = new ParameterJournal(dir, { maxBytes });
+    const seqs = b.query().map((e) => e.seq);
+    // What the two files hold: the newest entries, contiguous, ending with the last one.
+    expect(seqs[seqs.length - 1]).toBe(300);
+    expect(seqs).toEqual(Array.from({ length: seqs.length }, (_, k) => 301 - seqs.length + k));
+    // The older file was full when it rotated: at least 64 KiB of ~2.1 KiB entries.
+    expect(seqs.length).toBeGreaterThan(25);
+    expect(b.total).toBe(300);
+    expect(b.corruptLines).toBe(0);
+  });
+
+  it('starts on a journal past any string size (600 MB) and a corrupt one, reading only its last maxBytes, and rotates it', () => {
+    const dir = mkdtempSync(join(tmpdir(), 'nullsteer-journal-'));
+    const file = join(dir, JOURNAL_FILE);
+    // 600 MB of NUL bytes (a sparse file: no disk used), then one good entry. Read whole as a
+    // string it exceeds V8's limit (2^29 − 24 characters, from memory): the old start-up failed.
+    const fd = openSync(file, 'w');
+    ftruncateSync(fd, 600 * 2 ** 20);
+    closeSync(fd);
+    const good = { seq: 41, session: '2026-12-01T08:00:00.000Z', at: '2026-12-01T08:00:01.000Z', sampleIndex: 0, actor: who, kind: 'reset', summary: 'covariance emptied', before: null, after: null };
+    appendFileSync(file, `\n${'{"seq": 7, "cut'}\n${'y'.repeat(300 * 1024)}\n${JSON.stringify(good)}\n`);
+    const j = new ParameterJournal(dir, { maxBytes: 1 << 20 });
+    expect(j.readError).toBeNull();
+    expect(j.query()).toEqual([good]);
+    expect(j.total).toBe(41);
+    // The cut JSON line and the 300 KiB line (longer than any entry) are counted, not fatal.
+    expect(j.corruptLines).toBe(2);
+    // Too large: rotated at once, so the next start reads a small file.
+    expect(existsSync(file)).toBe(false);
+    expect(statSync(join(dir, JOURNAL_OLD_FILE)).size).toBeGreaterThan(600 * 2 ** 20);
+    expect(j.record('reset', who, 1, null, null).seq).toBe(42);
+    expect(statSync(file).size).toBeLessThan(1024);
+    // Unreadable (a folder where the file should be): noted, started empty, still writes.
+    const dir2 = mkdtempSync(join(tmpdir(), 'nullsteer-journal-'));
+    mkdirSync(join(dir2, JOURNAL_OLD_FILE));
+    writeFileSync(join(dir2, JOURNAL_FILE), `${JSON.stringify(good)}\n`);
+    const k = new ParameterJournal(dir2);
+    expect(k.readError).toBe("EISDIR: illegal operation on a directory, read");
+    expect(k.readError).not.toContain(dir2);
+    expect(k.query()).toEqual([good]);
   });
 });
