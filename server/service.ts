@@ -12,6 +12,7 @@ import type { HelloMessage, ProcessingDerived } from '../shared/messages.ts';
 import type { Block, BlockSink } from '../shared/types.ts';
 import type { LoadedConfig } from './config/load.ts';
 import { ConfigError } from './config/validate.ts';
+import { publicText } from './public-text.ts';
 import { describeCalibration } from './dsp/calibration.ts';
 import { defaultGrid } from './dsp/scan-pipeline.ts';
 import { ChannelMeters } from './engine/channel-meters.ts';
@@ -148,8 +149,9 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
   // The session's journal and presets, in the data folder (both survive a restart).
   const dataDir = resolvePath(config.data.dir);
-  const journal = new ParameterJournal(dataDir);
+  const journal = new ParameterJournal(dataDir, { maxBytes: config.data.journalMaxBytes });
   if (journal.corruptLines > 0) process.emitWarning(`journal: ${journal.corruptLines} unreadable line(s) in ${config.data.dir}/journal.jsonl skipped`);
+  if (journal.readError !== null) process.emitWarning(`journal: could not read the earlier journal (${journal.readError}); starting an empty one`);
   const presets = new PresetStore(resolvePath(dataDir, 'presets'), (p) => {
     // A preset holds the full parameter set: checked like a PUT /api/processing body.
     if (typeof p !== 'object' || p === null || Array.isArray(p)) throw new Error('params: not a JSON object');
@@ -182,7 +184,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (engine) live.broadcastJson(hello());
     },
     onError: (m) => {
-      engineErrors.push(m);
+      engineErrors.push(publicText(m));
       if (engineErrors.length > 20) engineErrors.shift();
       process.emitWarning(m);
     },
@@ -248,7 +250,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       compare: chain ? { params: chain.params, livePath: compareLive.path, live: compareLive.stats(), engine: chain.engine.status() } : null,
       upgradesRefused: upgradeAuth.refused(),
       access: { refused: { ...accessStats.refused }, last: accessStats.last, changesTimedOut: serialStats.timedOut },
-      journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
+      journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: recorder.recording, streamOut: streamOut.stats() },
     };
   };
@@ -398,7 +400,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       update: (id, patch) => {
         const before = eng.beams.find((b) => b.id === id) ?? null;
         const after = eng.updateBeam(id, patch);
-        journalNote('beam-update', before ? { ...before } : null, after, `beam ${id}: ${diffSummary(before, after)}`);
+        // No beam of that id: nothing changed, nothing to journal (the route answers 404).
+        if (after !== null) journalNote('beam-update', before ? { ...before } : null, after, `beam ${id}: ${diffSummary(before, after)}`);
         return after;
       },
       latencyS: () => eng.beamLatencyS,

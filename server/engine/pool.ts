@@ -5,6 +5,7 @@
  * The pool itself never throws from a worker's failure: it counts and reports.
  */
 import { Worker } from 'node:worker_threads';
+import { publicText } from '../public-text.ts';
 import { PlanError } from './plan-error.ts';
 import { CTRL_DONE, CTRL_WRITE, type FromWorker, type PlanMessage, type ToWorker } from './protocol.ts';
 
@@ -54,7 +55,7 @@ export class BinPool {
   #spawn(i: number): Worker {
     const w = new Worker(BOOT);
     w.on('message', (m: FromWorker) => this.#message(i, w, m));
-    w.on('error', (e) => this.#failed(i, w, e.stack ?? e.message));
+    w.on('error', (e) => this.#failed(i, w, publicText(e)));
     w.on('exit', (code) => {
       if (!this.#closing && this.#workers[i] === w) this.#failed(i, w, `worker exited with code ${code}`);
     });
@@ -82,7 +83,7 @@ export class BinPool {
         if (m.fatal) this.#failed(i, w, m.message);
         else {
           this.errors++;
-          this.lastError = m.message;
+          this.lastError = publicText(m.message);
           this.#events.onError(i, m.message, false);
         }
         return;
@@ -92,7 +93,7 @@ export class BinPool {
   #failed(i: number, w: Worker, message: string): void {
     if (this.#workers[i] !== w || this.#closing) return;
     this.errors++;
-    this.lastError = message;
+    this.lastError = publicText(message);
     this.#workers[i] = null;
     void w.terminate();
     const plan = this.#plans[i];

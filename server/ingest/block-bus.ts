@@ -8,6 +8,7 @@
  * ones as a count), so a subscriber failing on every block cannot flood the log.
  */
 import type { Block, BlockSink } from '../../shared/types.ts';
+import { publicText } from '../public-text.ts';
 
 export interface SubscriberHealth {
   errors: number;
@@ -75,7 +76,7 @@ export class BlockBus {
     this.#t.subscriberErrors++;
     const h = s.health;
     h.errors++;
-    h.lastError = String((e as Error)?.message ?? e).split('\n')[0];
+    h.lastError = publicText(e instanceof Error ? e.message : e);
     h.lastErrorSample = sampleIndex;
     const now = this.#now();
     if (h.errors === 1 || now - s.lastWarnMs >= this.#warnIntervalMs) {
