@@ -12,7 +12,7 @@
  * sub-matrix and the matching entries of each steering vector, with M the active count.
  */
 import type { CovarianceBank } from './covariance.ts';
-import { HermitianSolver, quadForm } from './hermitian.ts';
+import { HermitianSolver, hermitianTrace, NotPositiveDefiniteError, quadForm } from './hermitian.ts';
 import { createLoadingResult, LoadingSolver, type LoadingResult, type LoadingSpec } from './loading.ts';
 import type { SteeringTable } from './steering.ts';
 
@@ -34,7 +34,15 @@ export interface ScanOutputs {
   mvdr: Float64Array | null;
   /** B loading levels δ used per bin (MVDR only). */
   loadingDelta?: Float64Array;
+  /**
+   * When given (B flags), a bin whose R_L = R + δI cannot be factored (no signal in it at all:
+   * tr R = 0; or no loading on too few snapshots) gets MVDR power 0 in every direction and flag 1,
+   * instead of the scan throwing; other bins get 0. The live engine's workers scan this way: no
+   * input may stop them.
+   */
+  singular?: Uint8Array;
 }
+
 
 /**
  * Scans a covariance bank over a steering table. Plan once per table; sizes its solvers for the
@@ -98,6 +106,19 @@ export class SpectrumScanner {
     return vt;
   }
 
+  /** Level and factor R + δI; false when it does not factor (the bin is then singular). */
+  #tryFactor(sub: Float64Array, loading: LoadingSpec, vt: Float64Array, lookOffset: number, deltaOut: Float64Array | undefined, b: number): boolean {
+    try {
+      const delta = this.#loader.level(sub, 0, loading, vt, lookOffset, this.#loadResult);
+      if (deltaOut) deltaOut[b] = delta;
+      this.#solver.factor(sub, 0, delta);
+      return true;
+    } catch (e) {
+      if (e instanceof NotPositiveDefiniteError) return false;
+      throw e;
+    }
+  }
+
   /**
    * Compute the requested spectra for every bin of the table.
    * @param bank covariance per bin; bank.bins must equal the table's bins (the same frequencies)
@@ -132,10 +153,21 @@ export class SpectrumScanner {
       if (wng) {
         look = opts.wngLookDirection ?? argMax(conv, D);
       }
-      const delta = this.#loader.level(sub, 0, opts.loading, vt, base + 2 * m * look, this.#loadResult);
-      if (out.loadingDelta) out.loadingDelta[b] = delta;
-      this.#solver.factor(sub, 0, delta);
       const p = out.mvdr.subarray(b * D, (b + 1) * D);
+      if (out.singular) {
+        out.singular[b] = 0;
+        // tr(R)/M = 0 (or not finite): the bin carries no usable signal; nothing to factor.
+        const mean = hermitianTrace(sub, 0, m) / m;
+        if (!(mean > 0 && mean < Infinity) || !this.#tryFactor(sub, opts.loading, vt, base + 2 * m * look, out.loadingDelta, b)) {
+          out.singular[b] = 1;
+          p.fill(0);
+          continue;
+        }
+      } else {
+        const delta = this.#loader.level(sub, 0, opts.loading, vt, base + 2 * m * look, this.#loadResult);
+        if (out.loadingDelta) out.loadingDelta[b] = delta;
+        this.#solver.factor(sub, 0, delta);
+      }
       this.#solver.invQuadForms(p, vt, base, D);
       for (let d = 0; d < D; d++) p[d] = 1 / p[d];
     }

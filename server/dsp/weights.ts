@@ -11,7 +11,7 @@
  * the full steering table.
  */
 import type { CovarianceBank } from './covariance.ts';
-import { HermitianSolver } from './hermitian.ts';
+import { HermitianSolver, hermitianTrace, NotPositiveDefiniteError } from './hermitian.ts';
 import { createLoadingResult, LoadingSolver, whiteNoiseGain, type LoadingResult, type LoadingSpec } from './loading.ts';
 import type { SteeringTable } from './steering.ts';
 
@@ -24,10 +24,15 @@ export interface WeightResult {
   delta: number;
   /** Mode 'wng': whether the floor was reached. */
   floorMet: boolean;
+  /**
+   * MVDR asked for, but R + δI could not be factored (no signal in the bin, or no loading on too
+   * few snapshots): the weights are delay-and-sum, which MVDR tends to as δ grows.
+   */
+  singular: boolean;
 }
 
 export function createWeightResult(): WeightResult {
-  return { wngDb: Number.NaN, delta: 0, floorMet: true };
+  return { wngDb: Number.NaN, delta: 0, floorMet: true, singular: false };
 }
 
 /** Computes weights for one bin at a time. Plan once; re-plans itself when the mask changes. */
@@ -55,6 +60,20 @@ export class BeamWeights {
     this.#z = new Float64Array(2 * m);
   }
 
+  /** Level and factor R + δI (gathered in #sub) toward v; false when it does not factor. */
+  #tryFactor(loading: LoadingSpec, v: Float64Array, result: WeightResult): boolean {
+    try {
+      const delta = this.#loader.level(this.#sub, 0, loading, v, 0, this.#lr);
+      this.#solver.factor(this.#sub, 0, delta);
+      result.delta = delta;
+      result.floorMet = this.#lr.floorMet;
+      return true;
+    } catch (e) {
+      if (e instanceof NotPositiveDefiniteError) return false;
+      throw e;
+    }
+  }
+
   /**
    * Weights for table bin `b` toward direction index `look`.
    * @param out length 2·M (all channels), interleaved complex; masked channels get 0
@@ -75,21 +94,22 @@ export class BeamWeights {
       v[2 * i + 1] = t.data[o + 2 * active[i] + 1];
     }
     const z = this.#z;
-    if (method === 'delay-and-sum') {
+    result.singular = false;
+    if (method === 'mvdr') {
+      bank.gather(b, this.#sub);
+      const mean = hermitianTrace(this.#sub, 0, m) / m;
+      result.singular = !(mean > 0 && mean < Infinity) || !this.#tryFactor(loading, v, result);
+    }
+    if (method === 'delay-and-sum' || result.singular) {
       for (let i = 0; i < 2 * m; i++) z[i] = v[i] / m;
       result.delta = 0;
       result.floorMet = true;
     } else {
-      bank.gather(b, this.#sub);
-      const delta = this.#loader.level(this.#sub, 0, loading, v, 0, this.#lr);
-      this.#solver.factor(this.#sub, 0, delta);
       this.#solver.solve(z, v);
       // Normalise by v₀ᴴ z (real and positive for a positive definite R_L).
       let qr = 0;
       for (let i = 0; i < m; i++) qr += v[2 * i] * z[2 * i] + v[2 * i + 1] * z[2 * i + 1];
       for (let i = 0; i < 2 * m; i++) z[i] /= qr;
-      result.delta = delta;
-      result.floorMet = this.#lr.floorMet;
     }
     result.wngDb = 10 * Math.log10(whiteNoiseGain(z, v, m));
     out.fill(0, 0, 2 * M);

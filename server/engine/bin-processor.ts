@@ -77,6 +77,7 @@ export class BinProcessor {
     this.#scanner = new SpectrumScanner(this.#table);
     this.#conv = new Float64Array(this.bins * opts.grid.count);
     this.#mvdr = new Float64Array(this.bins * opts.grid.count);
+    this.#singular = new Uint8Array(this.bins);
   }
 
   #makeTable(grid: DirectionGrid): SteeringTable {
@@ -128,14 +129,49 @@ export class BinProcessor {
     const fastMvdr = loading.mode === 'wng' ? null : this.#fastMvdr;
     const plainConv = wantConv && tracker === null;
     const plainMvdr = wantMvdr && fastMvdr === null;
+    // Bins whose R + δI does not factor (no signal at all, or too few snapshots unloaded) get MVDR
+    // power 0 and are counted, instead of ending the worker.
+    const singular = this.#singular;
+    singular.fill(0);
     if (plainConv || plainMvdr) {
-      this.#scanner.scan(this.bank, { loading }, { conventional: plainConv ? this.#conv : null, mvdr: plainMvdr ? this.#mvdr : null, loadingDelta: deltaOut });
+      this.#scanner.scan(this.bank, { loading }, { conventional: plainConv ? this.#conv : null, mvdr: plainMvdr ? this.#mvdr : null, loadingDelta: deltaOut, singular });
     }
     if (wantConv && tracker !== null) this.#conv.set(tracker.power);
-    if (wantMvdr && fastMvdr !== null) fastMvdr.scan(this.bank, loading, this.#mvdr, deltaOut);
+    if (wantMvdr && fastMvdr !== null) fastMvdr.scan(this.bank, loading, this.#mvdr, deltaOut, null, singular);
+    if (wantMvdr) for (let b = 0; b < B; b++) this.singularBins += singular[b];
     const normalise = (flags & SCAN_NORMALISE) !== 0;
     if (wantConv) sumBins(conv, this.#conv, B, D, normalise);
     if (wantMvdr) sumBins(mvdr, this.#mvdr, B, D, normalise);
+    // A row never carries a non-finite value: a bin whose spectra are not finite is left out of
+    // this scan, counted, and the covariance of this range restarts (the estimate is unusable).
+    if ((wantConv && !allFinite(conv, D)) || (wantMvdr && !allFinite(mvdr, D))) {
+      for (let b = 0; b < B; b++) {
+        const o = b * D;
+        if ((wantConv && !allFinite(this.#conv.subarray(o, o + D), D)) || (wantMvdr && !allFinite(this.#mvdr.subarray(o, o + D), D))) {
+          this.nonFiniteBins++;
+          this.#conv.fill(0, o, o + D);
+          this.#mvdr.fill(0, o, o + D);
+        }
+      }
+      if (wantConv) sumBins(conv, this.#conv, B, D, normalise);
+      if (wantMvdr) sumBins(mvdr, this.#mvdr, B, D, normalise);
+      this.reset();
+      this.covarianceResets++;
+    }
+  }
+
+  /** Bins left MVDR power 0 because R + δI did not factor, over every scan so far. */
+  singularBins = 0;
+  /** Bins whose spectra were not finite and were left out of their scan, so far. */
+  nonFiniteBins = 0;
+  /** Restarts of this range's covariance after a non-finite scan. */
+  covarianceResets = 0;
+  #singular: Uint8Array = new Uint8Array(0);
+
+  /** Test hook: make bin 0's covariance (and its tracked power) not finite, as corrupted memory would. */
+  poison(): void {
+    this.bank.data.fill(Number.NaN, 0, 2 * this.channels * this.channels);
+    if (this.#tracker) this.#tracker.seedFrom(this.bank, this.#tracker.weightSum);
   }
 
   /**
@@ -187,6 +223,11 @@ export class BinProcessor {
     this.bank.reset();
     this.#tracker?.reset();
   }
+}
+
+function allFinite(x: Float64Array, n: number): boolean {
+  for (let i = 0; i < n; i++) if (!(x[i] - x[i] === 0)) return false;
+  return true;
 }
 
 /** out[d] = Σ_b perBin[b·D + d] (each bin over its maximum when normalising). */

@@ -26,6 +26,9 @@ import {
   META_STRIDE,
   RESULT_SLOTS,
   STATS_STRIDE,
+  STAT_NON_FINITE,
+  STAT_RESTARTS,
+  STAT_SINGULAR,
   type FromWorker,
   type PlanMessage,
   type ToWorker,
@@ -126,6 +129,9 @@ function handle(st: State, hop: number): void {
     st.proc.scan(scanBits, loading, st.conv[r], st.mvdr[r]);
     if ((flags & FLAG_BEAMS) !== 0 && st.beams.length > 0) st.proc.scanBeams(st.beams, loading, st.beamOut[r], st.weightOut[r], st.plan.weightDoubles);
     st.stats[w * STATS_STRIDE + 2]++;
+    st.stats[w * STATS_STRIDE + STAT_SINGULAR] = st.proc.singularBins;
+    st.stats[w * STATS_STRIDE + STAT_NON_FINITE] = st.proc.nonFiniteBins;
+    st.stats[w * STATS_STRIDE + STAT_RESTARTS] = st.proc.covarianceResets;
     const scanMs = performance.now() - t0;
     st.stats[w * STATS_STRIDE + 3] = scanMs;
     post({ type: 'scanned', epoch: st.plan.epoch, workerIndex: w, scanSeq: seq, resultSlot: r, directions: st.proc.directions, scanMs, beams: (flags & FLAG_BEAMS) !== 0 ? st.beams.map((b) => b.id) : [] });
@@ -214,6 +220,9 @@ port.on('message', async (m: ToWorker) => {
         return;
       case 'fault':
         if (state) state.pendingFault = m.message;
+        return;
+      case 'poison':
+        state?.proc.poison();
         return;
       case 'stop':
         running = false;

@@ -40,6 +40,9 @@ import {
   META_STRIDE,
   RESULT_SLOTS,
   STATS_STRIDE,
+  STAT_NON_FINITE,
+  STAT_RESTARTS,
+  STAT_SINGULAR,
   type FromWorker,
   type PlanMessage,
 } from './protocol.ts';
@@ -160,6 +163,8 @@ export class Engine {
   scansDropped = 0;
   /** Scan requests put off to a later hop because every result slot was still waiting to be read. */
   scansDeferred = 0;
+  /** Values of a row found not finite by the combiner and written as no power (should stay 0). */
+  nonFiniteValues = 0;
   #stftMs = 0;
   #combineMs = 0;
   readonly #latency = new Float64Array(LATENCY_HISTORY);
@@ -648,6 +653,11 @@ export class Engine {
       const db = new Float64Array(D);
       for (let d = 0; d < D; d++) {
         power[d] *= scale;
+        // The workers leave non-finite bins out; this is the last guard: a row is always finite.
+        if (!(power[d] - power[d] === 0)) {
+          power[d] = 0;
+          this.nonFiniteValues++;
+        }
         db[d] = power[d] > 0 ? 10 * Math.log10(power[d]) : -300;
       }
       const peaks = p.finder.find(db).map((q) => ({ azimuthDeg: q.azimuthDeg, elevationDeg: q.elevationDeg, levelDb: q.levelDb }));
@@ -765,6 +775,11 @@ export class Engine {
     this.#pool.faultNextPlan(i, mode, message);
   }
 
+  /** Test hook: corrupt worker i's first bin covariance (not finite), as a memory fault would. */
+  poisonWorker(i: number): void {
+    this.#pool.send(i, { type: 'poison' });
+  }
+
   /** Test hook: make worker i throw at its next hop (to prove replacement). */
   injectWorkerFault(i: number): void {
     this.#pool.send(i, { type: 'fault', message: `injected fault in worker ${i}` });
@@ -796,6 +811,7 @@ export class Engine {
       busyMs: p.stats[w * STATS_STRIDE],
       lastScanMs: p.stats[w * STATS_STRIDE + 3],
     }));
+    const sum = (k: number) => p.ranges.reduce((n, _r, w) => n + p.stats[w * STATS_STRIDE + k], 0);
     const lat = this.latencyPercentiles();
     const eff = shedEffect(this.#shedder.step);
     return {
@@ -812,6 +828,9 @@ export class Engine {
       rows: this.rows,
       scansDropped: this.scansDropped,
       scansDeferred: this.scansDeferred,
+      // Bins of the current plan flagged in scans: MVDR left at 0 because R + δI did not factor (no
+      // signal in the bin), or left out as not finite (then that worker's covariance restarted).
+      flaggedBins: { singular: sum(STAT_SINGULAR), nonFinite: sum(STAT_NON_FINITE), covarianceRestarts: sum(STAT_RESTARTS), rowValuesNotFinite: this.nonFiniteValues },
       bins: p.bins,
       directions: p.grid.count,
       stages: {

@@ -11,7 +11,9 @@
  *   mode and its two values.
  * ring (Float64Array, slotDoubles per slot): the full bin-major snapshot of the hop (all N/2+1 bins).
  * results (Float64Array): per worker and result slot, D conventional then D MVDR partial sums.
- * stats (Float64Array, STATS_STRIDE per worker): busy milliseconds, hops, scans, last scan ms.
+ * stats (Float64Array, STATS_STRIDE per worker): busy milliseconds, hops, scans, last scan ms,
+ *   singular bins (MVDR power 0: R + δI did not factor), non-finite bins left out, covariance
+ *   restarts after a non-finite scan (all three counted over the plan's life).
  */
 
 export const CTRL_WRITE = 0;
@@ -24,7 +26,10 @@ export const META_SCAN_SEQ = 3;
 export const META_LOAD_MODE = 4;
 export const META_LOAD_A = 5;
 export const META_LOAD_B = 6;
-export const STATS_STRIDE = 4;
+export const STATS_STRIDE = 7;
+export const STAT_SINGULAR = 4;
+export const STAT_NON_FINITE = 5;
+export const STAT_RESTARTS = 6;
 export const RESULT_SLOTS = 8;
 /** Steered beams at most (DESIGN.md: up to 8). */
 export const MAX_BEAMS = 8;
@@ -97,6 +102,8 @@ export type ToWorker =
   | { type: 'grid'; epoch: number; grid: PlanMessage['grid'] }
   | { type: 'beams'; epoch: number; beams: BeamSpec[] }
   | { type: 'fault'; message: string }
+  /** Test hook: corrupt the covariance of the worker's first bin (made not finite). */
+  | { type: 'poison' }
   | { type: 'stop' };
 
 export type FromWorker =

@@ -4,11 +4,16 @@
  * body limit (413), 400s on every mutating route, and no stack traces or paths in any answer.
  */
 import { spawn } from 'node:child_process';
+import { createSocket } from 'node:dgram';
+import { mkdirSync, mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
 import { buildApp } from '../../server/http/app.ts';
 import { CLIENT_DIST, type Service } from '../../server/service.ts';
+import { encodeFrame } from '../../shared/frame.ts';
 import { getStatus, startTestService } from '../helpers/service.ts';
 
 const BIN = fileURLToPath(new URL('../../bin/nullsteer.mjs', import.meta.url));
@@ -339,6 +344,37 @@ describe('WebSocket upgrades with a token', () => {
 });
 
 describe('internal errors', () => {
+  it('status after a worker failure and a failed journal write carries no stack and no absolute path', async () => {
+    const data = mkdtempSync(join(tmpdir(), 'nullsteer-leak-'));
+    const svc = await startTestService({ data: { dir: data } });
+    try {
+      svc.engine.injectWorkerFault(0);
+      // The fault fires at the worker's next hop: feed it some.
+      const x = new Float32Array(4 * 480);
+      const udp = createSocket('udp4');
+      for (let k = 0; k < 200 && (svc.status().engine as { workerRestarts: number }).workerRestarts === 0; k++) {
+        await new Promise<void>((r) => udp.send(encodeFrame({ streamId: 1, sequence: k, firstSample: k * 480, sampleRateHz: 48000, channels: 4, samplesPerChannel: 480, encoding: 'float32' }, x), svc.udpPort!, '127.0.0.1', () => r()));
+        await new Promise((r) => setTimeout(r, 5));
+      }
+      udp.close();
+      expect((svc.status().engine as { workerRestarts: number }).workerRestarts).toBe(1);
+      // The journal file replaced by a folder: the next change cannot be appended (EISDIR, with the path).
+      rmSync(join(data, 'journal.jsonl'), { force: true });
+      mkdirSync(join(data, 'journal.jsonl'));
+      expect((await call(svc, 'PATCH', '/api/processing', { headers: { 'content-type': 'application/json' }, body: '{"tauS":0.3}' })).status).toBe(200);
+      const text = await (await fetch(`${svc.url}/api/status`)).text();
+      const st = JSON.parse(text);
+      expect(st.engine.lastWorkerError).toBe('Error: injected fault in worker 0');
+      expect(st.journal.lastWriteError).toBe("EISDIR: illegal operation on a directory, open 'journal.jsonl'");
+      noLeaks(text);
+      expect(text).not.toContain(data);
+      expect(text).not.toContain(tmpdir());
+    } finally {
+      await svc.close();
+    }
+  });
+
+
   it('a route that throws answers 500 ERR_HTTP_INTERNAL with no stack or path', async () => {
     const app = buildApp({ status: () => ({}), token: TOKEN });
     app.get('/api/boom', async () => {

@@ -187,14 +187,14 @@ describe('live engine', () => {
     const { g, blocks } = await scene();
     const rows: EngineRow[] = [];
     const p = params();
-    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false, planTimeoutMs: 1000 });
+    engine = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers: 2, speedOfSoundMps: 343.2, onRow: (r) => rows.push(r), shedding: false, planTimeoutMs: 4000 });
     for (const b of blocks.slice(0, 10)) await engine.pushAsync(b);
     await engine.drain();
     const wider = params({ grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } } });
     engine.faultNextPlan(1, 'stall');
     const late = await engine.setParams(wider).catch((e: unknown) => e);
     expect(late).toBeInstanceOf(PlanError);
-    expect(late).toMatchObject({ kind: 'timeout', message: 'grid: the bin workers did not build the plan within 1.0 s' });
+    expect(late).toMatchObject({ kind: 'timeout', message: 'grid: the bin workers did not build the plan within 4.0 s' });
     engine.faultNextPlan(0, 'refuse', 'no memory for the table');
     const refused = await engine.setParams(params({ bandHz: [400, 4000] })).catch((e: unknown) => e);
     expect(refused).toMatchObject({ kind: 'refused', message: 'bandHz: the bin workers could not build the plan: no memory for the table' });

@@ -330,8 +330,16 @@ describe('WNG-floor loading (Cox, Zeskind & Owen, IEEE Trans. ASSP 35(10), 1987,
     const w = new Float64Array(2 * m);
     const result = createWeightResult();
     const weights = new BeamWeights(t);
-    expect(() => weights.compute(w, 'mvdr', b, 0, 1, FIXED_ZERO, createWeightResult())).toThrow(/not positive definite/);
+    // Unloaded it does not factor: the weights fall back to delay-and-sum, w = v/M (WNG = M), and
+    // say so, instead of throwing (a live worker must not stop on its data).
+    const fallback = createWeightResult();
+    weights.compute(w, 'mvdr', b, 0, 1, FIXED_ZERO, fallback);
+    expect(fallback).toMatchObject({ singular: true, delta: 0 });
+    expect(fallback.wngDb).toBeCloseTo(10 * Math.log10(m), 12);
+    const v1 = t.data.subarray(t.offset(0, 1), t.offset(0, 1) + 2 * m);
+    for (let i = 0; i < 2 * m; i++) expect(w[i]).toBeCloseTo(v1[i] / m, 15);
     weights.compute(w, 'mvdr', b, 0, 1, { mode: 'wng', floorDb: 5 }, result);
+    expect(result.singular).toBe(false);
     expect(result.floorMet).toBe(true);
     const v = t.data.subarray(t.offset(0, 1), t.offset(0, 1) + 2 * m);
     const wngDb = 10 * Math.log10(abs2(dot(w, v, m)) / dot(w, w, m)[0]);

@@ -18,6 +18,7 @@
  * of each steering vector, exactly as SpectrumScanner does.
  */
 import type { CovarianceBank } from '../covariance.ts';
+import { hermitianTrace, NotPositiveDefiniteError } from '../hermitian.ts';
 import { createLoadingResult, LoadingSolver, type LoadingResult, type LoadingSpec } from '../loading.ts';
 import type { SteeringTable } from '../steering.ts';
 import { InverseCholesky } from './inverse-factor.ts';
@@ -215,6 +216,17 @@ export class FastMvdrScanner {
     }
   }
 
+  /** Factor R + δI; false when it does not factor. */
+  #tryFactor(sub: Float64Array, delta: number): boolean {
+    try {
+      this.#inv.factor(sub, 0, delta);
+      return true;
+    } catch (e) {
+      if (e instanceof NotPositiveDefiniteError) return false;
+      throw e;
+    }
+  }
+
   /**
    * MVDR spectrum of every bin of the slice.
    * @param bank covariance of the slice's bins (bank.bins = binsCount, bank.channels = M); its mask
@@ -224,11 +236,15 @@ export class FastMvdrScanner {
    * @param deltaOut optional, length ≥ binsCount: the loading δ used per bin
    * @param look per bin, the look direction index for loading mode 'wng' (required for it; the
    *   conventional spectrum's peak, SpectrumScanner's default, is not computed here)
-   * @throws NotPositiveDefiniteError when some R + δI is singular (bins before it are written)
+   * @param singular optional, length ≥ binsCount: when given, a bin whose R + δI cannot be
+   *   factored (tr R = 0, or no loading on too few snapshots) gets power 0 in every direction and
+   *   flag 1 instead of the scan throwing (as SpectrumScanner's `singular` output)
+   * @throws NotPositiveDefiniteError when some R + δI is singular and `singular` is not given
+   *   (bins before it are written)
    */
   scan(
     bank: CovarianceBank, loading: LoadingSpec, out: Float64Array,
-    deltaOut: Float64Array | null = null, look: Int32Array | null = null,
+    deltaOut: Float64Array | null = null, look: Int32Array | null = null, singular: Uint8Array | null = null,
   ): void {
     const B = this.binsCount;
     const D = this.directions;
@@ -250,6 +266,16 @@ export class FastMvdrScanner {
     const q = kernel.q;
     for (let lb = 0; lb < B; lb++) {
       bank.gather(lb, sub);
+      if (singular !== null) {
+        // tr(R)/M = 0 (or not finite): the bin carries no usable signal; nothing to level or factor.
+        const mean = hermitianTrace(sub, 0, m) / m;
+        if (!(mean > 0 && mean < Infinity)) {
+          singular[lb] = 1;
+          out.fill(0, lb * D, (lb + 1) * D);
+          if (deltaOut !== null) deltaOut[lb] = 0;
+          continue;
+        }
+      }
       let delta: number;
       if (loading.mode === 'wng') {
         const lookVec = this.#look;
@@ -264,7 +290,14 @@ export class FastMvdrScanner {
         delta = this.#loader.level(sub, 0, loading);
       }
       if (deltaOut !== null) deltaOut[lb] = delta;
-      this.#inv.factor(sub, 0, delta);
+      if (singular !== null) {
+        singular[lb] = 0;
+        if (!this.#tryFactor(sub, delta)) {
+          singular[lb] = 1;
+          out.fill(0, lb * D, (lb + 1) * D);
+          continue;
+        }
+      } else this.#inv.factor(sub, 0, delta);
       kernel.setFactor(this.#inv.inverse, m);
       kernel.run(lb, m);
       const o = lb * D;
