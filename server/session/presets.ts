@@ -2,10 +2,11 @@
  * Named parameter sets: one JSON file per preset, `<data dir>/presets/<name>.json`, holding
  * `{ "name", "savedAt", "params" }` with the full ProcessingParams.
  *
- * Every read validates the file: it must parse, name itself as its file does, and its params must
- * pass the same check as a REST change (patchParams, given as `validate`). A file that fails is
- * listed with its error and cannot be applied; the others are unaffected. Writes go to a temporary
- * file first and are renamed into place, so a preset is never half-written.
+ * Every read validates the file against a closed schema, like a REST body: it must parse, have no
+ * field beyond those three, name itself as its file does, and its params must pass the same check
+ * as a REST change (patchParams, given as `validate`). A file that fails is listed with its error
+ * and cannot be applied; the others are unaffected. Writes go to a temporary file first and are
+ * renamed into place, so a preset is never half-written.
  */
 import { mkdirSync, readdirSync, readFileSync, renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
@@ -17,6 +18,9 @@ export const PRESET_NAME_TEXT = '1–64 characters: letters, digits, space, _ - 
 
 export type { Preset, PresetListing } from '../../shared/session.ts';
 import type { Preset, PresetListing } from '../../shared/session.ts';
+
+/** The fields of a preset file, all required, no others. */
+export const PRESET_FIELDS = ['name', 'savedAt', 'params'] as const;
 
 export class PresetError extends Error {
   constructor(
@@ -83,6 +87,9 @@ export class PresetStore {
     }
     if (typeof doc !== 'object' || doc === null || Array.isArray(doc)) throw new PresetError('invalid', name, 'not a JSON object');
     const d = doc as Record<string, unknown>;
+    for (const k of Object.keys(d)) {
+      if (!(PRESET_FIELDS as readonly string[]).includes(k)) throw new PresetError('invalid', name, `${k}: unknown field; known: ${PRESET_FIELDS.join(', ')}`);
+    }
     if (d.name !== name) throw new PresetError('invalid', name, `names itself ${JSON.stringify(d.name)}, not ${JSON.stringify(name)}`);
     if (typeof d.savedAt !== 'string' || Number.isNaN(Date.parse(d.savedAt))) throw new PresetError('invalid', name, 'savedAt: not a date');
     let params: ProcessingParams;
