@@ -1,23 +1,25 @@
 /**
- * A full disk under the WAV writer and the recorder, on a real small tmpfs
+ * A full disk under the WAV writer, the recorder and the preset store, on a real small tmpfs
  * (./helpers/full-disk.ts; an emulated one where mounting is not permitted). What must hold:
  * the writer reports ENOSPC once as ERR_REC_NO_SPACE and leaves a WAV whose header covers exactly
  * the frames on file; the recorder stops itself with the reason, counts what it could not write,
  * and refuses to start while the free space is below the reserve; it also stops before the disk
- * fills once the free space drops below the reserve. Outside checks: Python's `wave` module and
- * `sox --i` read the WAV files back.
+ * fills once the free space drops below the reserve; preset saves are refused and leave no
+ * temporary file. Outside checks: Python's `wave` module and `sox --i` read the WAV files back.
  */
 import { execFileSync } from 'node:child_process';
-import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync, statSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 
 vi.mock('node:fs', async (real) => (await import('../helpers/full-disk-state.ts')).wrapFs(await real()));
 vi.mock('node:fs/promises', async (real) => (await import('../helpers/full-disk-state.ts')).wrapFsPromises(await real()));
 
+import { patchParams, type ProcessingParams } from '../../server/engine/params.ts';
 import { openWav } from '../../server/io/wav.ts';
 import { Recorder, type RecorderStartOptions, type RecorderStatus } from '../../server/outputs/recorder.ts';
 import { WavStreamWriter } from '../../server/outputs/wav-writer.ts';
+import { PresetError, PresetStore } from '../../server/session/presets.ts';
 import { decodeInterleaved, encodeInterleaved } from '../../shared/frame.ts';
 import type { Block } from '../../shared/types.ts';
 import { smallDisk, tmpFilesUnder, type SmallDisk } from '../helpers/full-disk.ts';
@@ -210,5 +212,52 @@ describe('disk full: recorder', () => {
     const side = JSON.parse(readFileSync(join(dir, st.files[0].sidecar), 'utf8'));
     expect(side).toMatchObject({ closed: true, frames: accepted });
     expect(tmpFilesUnder(disk.dir)).toEqual([]);
+  });
+});
+
+describe('disk full: presets', () => {
+  const BASE: ProcessingParams = {
+    lambda: 0.99,
+    loading: { mode: 'relative', ratio: 0.01 },
+    bandHz: [300, 6000],
+    grid: { azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } },
+    methods: ['mvdr', 'conventional'],
+    spectrumRateHz: 20,
+    normalise: false,
+    fftSize: 512,
+  };
+  const validate = (p: unknown) => patchParams(BASE, p, { sampleRateHz: 48000, hop: 256 });
+
+  it('a save on a full disk is refused as no-space, leaves no temporary file and the earlier version intact', () => {
+    const dir = fresh('presets');
+    const s = new PresetStore(dir, validate, { label: 'data/presets' });
+    s.save('keep', BASE);
+    const before = readFileSync(join(dir, 'keep.json'), 'utf8');
+    disk.fill(0);
+    let err: unknown = null;
+    try {
+      s.save('keep', { ...BASE, lambda: 0.9 });
+    } catch (e) {
+      err = e;
+    }
+    expect(err).toBeInstanceOf(PresetError);
+    expect(err).toMatchObject({ kind: 'no-space', presetName: 'keep', message: 'saving preset "keep": no space left on device (ENOSPC)' });
+    expect(readdirSync(dir)).toEqual(['keep.json']);
+    expect(readFileSync(join(dir, 'keep.json'), 'utf8')).toBe(before);
+    expect(s.get('keep').params.lambda).toBe(0.99);
+  });
+
+  it('a save is refused while the free space is below the reserve; stale temporary files go at start-up', () => {
+    const dir = fresh('presets');
+    writeFileSync(join(dir, 'old.json.4242.tmp'), '{"name": "old", "sav');
+    const s = new PresetStore(dir, validate, { minFreeBytes: 65536, label: 'data/presets' });
+    expect(existsSync(join(dir, 'old.json.4242.tmp'))).toBe(false);
+    disk.fill(4096);
+    expect(() => s.save('x', BASE)).toThrow(
+      expect.objectContaining({ kind: 'no-space', message: expect.stringMatching(/^the presets folder "data\/presets" has \d+ bytes free, below the reserve of 65536 bytes$/) }),
+    );
+    expect(readdirSync(dir)).toEqual([]);
+    disk.release();
+    expect(s.save('x', BASE).name).toBe('x');
   });
 });
