@@ -12,6 +12,12 @@ export const HTTP_ERRORS = {
   ERR_HTTP_PRESET_INVALID: { statusCode: 422, template: 'preset {name} cannot be used: {detail}' },
   ERR_HTTP_BODY_TOO_LARGE: { statusCode: 413, template: 'request body exceeds {limit} bytes' },
   ERR_HTTP_RATE_LIMITED: { statusCode: 429, template: 'too many control requests from this client (limit {perS}/s, burst {burst}); retry after {retryS} s' },
+  ERR_HTTP_RECORDING_ACTIVE: { statusCode: 409, template: 'a recording is already running ({detail}); stop it first' },
+  ERR_HTTP_NOT_RECORDING: { statusCode: 409, template: 'no recording is running' },
+  ERR_HTTP_RECORDING_EXISTS: { statusCode: 409, template: 'recording file names of this second are used up ({detail}); try again in a second' },
+  ERR_HTTP_INSUFFICIENT_STORAGE: { statusCode: 507, template: 'not enough free space: {detail}' },
+  ERR_HTTP_RECORDING_FAILED: { statusCode: 500, template: 'the recording could not start: {detail}' },
+  ERR_HTTP_PRESET_WRITE_FAILED: { statusCode: 500, template: 'the preset could not be written: {detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 
