@@ -161,7 +161,17 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
   let recordingStartSeq = 0;
   let recordBeams = false;
-  const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
+  // Beam-audio listeners get the dashboard's slow-client policy (hub.*) with their own limits.
+  const streamOut = new BeamStreamOut({
+    sampleRateHz: config.input.sampleRateHz,
+    streamId: config.outputs.streamId,
+    udpTarget: config.outputs.streamUdpTarget,
+    path: config.outputs.streamPath,
+    maxClients: config.outputs.streamMaxClients,
+    queueFrames: config.outputs.streamQueueFrames,
+    maxBufferedBytes: config.hub.maxBufferedBytes,
+    slowClientTimeoutMs: config.hub.slowClientTimeoutMs,
+  });
   const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, queueRows: config.hub.queueRows, slowClientTimeoutMs: config.hub.slowClientTimeoutMs, onConnect: (c) => c.sendJson(hello()) });
   const engineErrors: string[] = [];
   engine = await Engine.create({
