@@ -3,7 +3,6 @@
  * listeners. main.ts starts one from the command line; integration tests start one in-process on
  * free loopback ports.
  */
-import { writeFileSync } from 'node:fs';
 import type { FastifyInstance } from 'fastify';
 import type { Server } from 'node:http';
 import { availableParallelism } from 'node:os';
@@ -24,14 +23,16 @@ import { LiveHub } from './http/hub.ts';
 import { AuthFailureLimiter, createAccessStats } from './http/access.ts';
 import { OriginPolicy } from './http/origin-policy.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
-import { currentActor } from './http/actor.ts';
+import { currentActor, SERVER_ACTOR } from './http/actor.ts';
+import { folderLabel, fsErrorText } from './io/disk-space.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
 import { PresetStore } from './session/presets.ts';
 import { CompareChain, compareParams, merged, ownOf } from './engine/compare-chain.ts';
 import type { CompareController, CompareState } from './http/routes/compare.ts';
 import type { SessionController } from './http/routes/session.ts';
 import { patchParams } from './engine/params.ts';
-import { Recorder } from './outputs/recorder.ts';
+import { Recorder, type RecorderStatus } from './outputs/recorder.ts';
+import { writeFileAtomic } from './outputs/sidecar.ts';
 import { BeamStreamOut } from './outputs/stream-out.ts';
 import { basename, resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
@@ -146,21 +147,36 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       derived: d,
     };
   };
-  const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`) });
+  // A recording that stops by itself (disk full, write error) is journaled like a stop on request.
+  const recorder = new Recorder({ onError: (e) => process.emitWarning(`recording: ${e.message}`), onStop: (st) => void recordingStopped(st, SERVER_ACTOR) });
   // The session's journal and presets, in the data folder (both survive a restart).
   const dataDir = resolvePath(config.data.dir);
   const journal = new ParameterJournal(dataDir, { maxBytes: config.data.journalMaxBytes });
   if (journal.corruptLines > 0) process.emitWarning(`journal: ${journal.corruptLines} unreadable line(s) in ${config.data.dir}/journal.jsonl skipped`);
   if (journal.readError !== null) process.emitWarning(`journal: could not read the earlier journal (${journal.readError}); starting an empty one`);
-  const presets = new PresetStore(resolvePath(dataDir, 'presets'), (p) => {
-    // A preset holds the full parameter set: checked like a PUT /api/processing body.
-    if (typeof p !== 'object' || p === null || Array.isArray(p)) throw new Error('params: not a JSON object');
-    return patchParams(engine!.params, p, { sampleRateHz: fs, hop: engine!.hop });
-  });
+  const presets = new PresetStore(
+    resolvePath(dataDir, 'presets'),
+    (p) => {
+      // A preset holds the full parameter set: checked like a PUT /api/processing body.
+      if (typeof p !== 'object' || p === null || Array.isArray(p)) throw new Error('params: not a JSON object');
+      return patchParams(engine!.params, p, { sampleRateHz: fs, hop: engine!.hop });
+    },
+    { minFreeBytes: config.data.minFreeBytes, label: `${folderLabel(config.data.dir)}/presets` },
+  );
   const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
   let recordingStartSeq = 0;
   let recordBeams = false;
-  const streamOut = new BeamStreamOut({ sampleRateHz: config.input.sampleRateHz, streamId: config.outputs.streamId, udpTarget: config.outputs.streamUdpTarget, path: config.outputs.streamPath });
+  // Beam-audio listeners get the dashboard's slow-client policy (hub.*) with their own limits.
+  const streamOut = new BeamStreamOut({
+    sampleRateHz: config.input.sampleRateHz,
+    streamId: config.outputs.streamId,
+    udpTarget: config.outputs.streamUdpTarget,
+    path: config.outputs.streamPath,
+    maxClients: config.outputs.streamMaxClients,
+    queueFrames: config.outputs.streamQueueFrames,
+    maxBufferedBytes: config.hub.maxBufferedBytes,
+    slowClientTimeoutMs: config.hub.slowClientTimeoutMs,
+  });
   const live = new LiveHub({ path: config.hub.path, maxClients: config.hub.maxClients, maxBufferedBytes: config.hub.maxBufferedBytes, queueRows: config.hub.queueRows, slowClientTimeoutMs: config.hub.slowClientTimeoutMs, onConnect: (c) => c.sendJson(hello()) });
   const engineErrors: string[] = [];
   // The plan memory of this process: the main chain's plan and the comparison's share it.
@@ -228,6 +244,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       simRate.update(s.samples, now);
       streams = [{ streamId: 0, selected: true, transport: 'simulator', sampleRateHz: config.input.sampleRateHz, channels, blocks: s.blocks, samplesAccepted: s.samples, skippedSamples: s.skippedSamples, nextSample: t.nextSample, inputRateHz: simRate.rate(now) }];
     }
+    const rec = recorder.status();
     return {
       service: 'nullsteer',
       version: VERSION,
@@ -251,7 +268,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       upgradesRefused: upgradeAuth.refused(),
       access: { refused: { ...accessStats.refused }, last: accessStats.last, changesTimedOut: serialStats.timedOut },
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
-      recording: { recording: recorder.recording, streamOut: streamOut.stats() },
+      recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
     };
   };
 
@@ -318,17 +335,25 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     },
   };
   /** Beside a finished recording: the journal entries of its span, `<prefix>-<time>-journal.json`. */
-  const exportJournal = (wavs: string[], fromSeq: number, toSeq: number): void => {
+  const exportJournal = async (wavs: string[], fromSeq: number, toSeq: number): Promise<void> => {
     if (wavs.length === 0) return;
     const name = wavs[0].replace(/-(raw|beams)-\d+\.wav$/, '-journal.json');
     if (name === wavs[0]) return;
     const entries = journal.query({ afterSeq: fromSeq - 1 }).filter((e) => e.seq <= toSeq);
-    try {
-      writeFileSync(resolvePath(config.outputs.dir, name), `${JSON.stringify({ session: journal.session, files: wavs, entries }, null, 2)}\n`);
-    } catch (e) {
-      process.emitWarning(`recording: journal export failed: ${(e as Error).message}`);
-    }
+    // Through a temporary file, so that a full disk leaves no half-written export behind.
+    await writeFileAtomic(resolvePath(config.outputs.dir, name), `${JSON.stringify({ session: journal.session, files: wavs, entries }, null, 2)}\n`).catch((e) =>
+      process.emitWarning(`recording: journal export ${name} failed: ${fsErrorText(e)}`),
+    );
   };
+  /** After a recording ends (on request or by itself): journal it with the reason, export its journal. */
+  function recordingStopped(st: RecorderStatus, actor = currentActor()): Promise<void> {
+    recordRaw = false;
+    recordBeams = false;
+    const files = st.files.map((f) => f.wav);
+    const reason = st.stopReason;
+    const end = journal.record('recording-stop', actor, bus.status().nextSample, null, reason ? { files, reason } : { files }, reason ? `recording stopped: ${reason.message}` : 'recording stopped');
+    return exportJournal(files, recordingStartSeq, end.seq);
+  }
   const session: SessionController = {
     journal: ({ afterSeq, limit, all }) => ({
       session: { id: journal.session, startedAt: journal.startedAt },
@@ -420,26 +445,27 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     recording: {
       status: () => ({ ...recorder.status(), raw: recordRaw, beams: recordBeams, streamOut: streamOut.stats() }),
       start: async (r) => {
-        recordRaw = r.raw;
-        recordBeams = r.beams;
         const st = await recorder.start({
           dir: resolvePath(config.outputs.dir),
+          dirLabel: folderLabel(config.outputs.dir),
+          minFreeBytes: config.outputs.minFreeBytes,
           prefix: 'nullsteer',
           encoding: r.encoding,
           rotateSeconds: r.rotateSeconds ?? undefined,
           rotateBytes: r.rotateBytes ?? undefined,
           meta: { array: { name: geometry.name, positions: geometry.positions, ...(geometry.calibration ? { calibration: geometry.calibration } : {}) }, params: eng.params as unknown as Record<string, unknown>, source: { kind: config.source.kind, speedOfSoundMps: config.engine.speedOfSoundMps } },
         });
+        recordRaw = r.raw;
+        recordBeams = r.beams;
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
         recordingStartSeq = journalNote('recording-start', null, { raw: r.raw, beams: r.beams, encoding: r.encoding }, `recording started (${r.encoding})`).seq;
         return { ...st, raw: recordRaw, beams: recordBeams };
       },
       stop: async () => {
+        // Idle (or already stopping): the recorder answers, ERR_REC_NOT_RECORDING or the pending stop's status.
+        if (!recorder.recording) return recorder.stop();
         const st = await recorder.stop();
-        recordRaw = false;
-        recordBeams = false;
-        const end = journalNote('recording-stop', null, { files: st.files.map((f) => f.wav) }, 'recording stopped');
-        exportJournal(st.files.map((f) => f.wav), recordingStartSeq, end.seq);
+        await recordingStopped(st);
         return st;
       },
     },

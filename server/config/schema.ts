@@ -122,6 +122,9 @@ export const CONFIG_SCHEMA: FieldSpec = {
         streamUdpTarget: { kind: 'string', nullable: true, maxLength: 300, pattern: /^(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+):\d{1,5}$/, patternDoc: 'HOST:PORT', doc: 'Send beam audio as ingest frames (float32) over UDP to HOST:PORT; null = off.' },
         streamId: { kind: 'int', min: 0, max: 0xffffffff, doc: 'Stream id of the beam-audio frames.' },
         streamPath: { kind: 'string', maxLength: 200, pattern: /^\/[A-Za-z0-9/_-]*$/, patternDoc: 'a URL path starting with /', doc: 'WebSocket path where beam-audio frames are pushed to subscribers.' },
+        streamMaxClients: { kind: 'int', min: 1, max: 1024, doc: 'Beam-audio WebSocket listeners at once; more get HTTP 503. Listeners follow the dashboard\'s slow-client policy (hub.maxBufferedBytes, hub.slowClientTimeoutMs).' },
+        streamQueueFrames: { kind: 'int', min: 1, max: 65536, doc: 'Beam-audio frames a backlogged listener may have waiting; beyond it its oldest are dropped (counted).' },
+        minFreeBytes: { kind: 'int', min: 1048576, max: 1099511627776, doc: 'Free space to keep on the recordings disk: no recording starts below it (507) and a running one stops when the free space falls below it.' },
       },
     },
     data: {
@@ -129,6 +132,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
       fields: {
         dir: { kind: 'string', maxLength: 4096, doc: 'Folder for the parameter journal (journal.jsonl) and presets (presets/NAME.json); relative: to the working directory.' },
         journalMaxBytes: { kind: 'int', min: 65536, max: 1073741824, doc: 'Size at which journal.jsonl is renamed journal.1.jsonl (replacing the older one) and a new file begins: the journal takes at most twice this on disk, and start-up reads at most that much.' },
+        minFreeBytes: { kind: 'int', min: 65536, max: 1099511627776, doc: 'Free space to keep on the data folder\'s disk: preset saves are refused below it (507).' },
       },
     },
     simulator: {
@@ -160,8 +164,8 @@ export interface Config {
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
-  outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string };
-  data: { dir: string; journalMaxBytes: number };
+  outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string; streamMaxClients: number; streamQueueFrames: number; minFreeBytes: number };
+  data: { dir: string; journalMaxBytes: number; minFreeBytes: number };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
 }
 

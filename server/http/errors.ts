@@ -19,6 +19,12 @@ export const HTTP_ERRORS = {
   ERR_HTTP_PLAN_TOO_LARGE: { statusCode: 422, template: '{detail}' },
   ERR_HTTP_PLAN_REFUSED: { statusCode: 422, template: '{detail}' },
   ERR_HTTP_CHANGE_TIMEOUT: { statusCode: 503, template: '{detail}' },
+  ERR_HTTP_RECORDING_ACTIVE: { statusCode: 409, template: 'a recording is already running ({detail}); stop it first' },
+  ERR_HTTP_NOT_RECORDING: { statusCode: 409, template: 'no recording is running' },
+  ERR_HTTP_RECORDING_EXISTS: { statusCode: 409, template: 'recording file names of this second are used up ({detail}); try again in a second' },
+  ERR_HTTP_INSUFFICIENT_STORAGE: { statusCode: 507, template: 'not enough free space: {detail}' },
+  ERR_HTTP_RECORDING_FAILED: { statusCode: 500, template: 'the recording could not start: {detail}' },
+  ERR_HTTP_PRESET_WRITE_FAILED: { statusCode: 500, template: 'the preset could not be written: {detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 

@@ -18,10 +18,21 @@
  * push() runs in the block sink's turn and never throws and never waits: the WAV writer queues the
  * encoded samples (./wav-writer.ts). A failure stops the track, is reported once through `onError`
  * and shows in status().
+ *
+ * Disk space: with a reserve (`minFreeBytes`), start() refuses (ERR_REC_NO_SPACE) while the folder's
+ * free space is below it, and while recording the free space is looked up again at least every
+ * `spaceCheckMs` and every quarter of the reserve recorded; below the reserve the recording stops
+ * before the disk fills. A write that fails anyway (disk full, quota, I/O error) stops the whole
+ * recording too: every track keeps what reached its file (./wav-writer.ts), frames accepted but not
+ * written are counted in `lostFrames`, status shows `recording: false` and the `stopReason`, and
+ * `onStop` is told once the files are closed. Nothing in status names a folder by its absolute
+ * path: the folder appears as `dirLabel`, files by their names.
  */
-import { access, mkdir, readdir } from 'node:fs/promises';
-import { join } from 'node:path';
+import { access, mkdir, readdir, rm } from 'node:fs/promises';
+import { basename, join } from 'node:path';
+import { bytesPerSample } from '../../shared/frame.ts';
 import type { Block } from '../../shared/types.ts';
+import { freeBytes, fsErrorText, reserveText } from '../io/disk-space.ts';
 import { SidecarWriter, wallClockIso, type ArrayGeometry, type DiscontinuityNote, type RecordingSource } from './sidecar.ts';
 import {
   isOutputError,
@@ -29,7 +40,9 @@ import {
   RECORDING_ENCODINGS,
   RIFF_MAX_DATA_BYTES,
   WavStreamWriter,
+  writeError,
   type OutputError,
+  type OutputErrorCode,
   type RecordingEncoding,
 } from './wav-writer.ts';
 
@@ -84,8 +97,10 @@ export interface TrackStatus {
   sampleRateHz: number | null;
   encoding: RecordingEncoding;
   parts: number;
-  /** Frames over all parts. */
+  /** Frames over all parts (after a failed write: the frames on file). */
   frames: number;
+  /** Frames accepted but not on file because a write failed (disk full): counted, never silent. */
+  lostFrames: number;
   /** WAV data bytes over all parts. */
   bytes: number;
   startSampleIndex: number | null;
@@ -147,6 +162,7 @@ export class RecorderTrack {
   #gapFrames = 0;
   #breaks = 0;
   #syncWrites = 0;
+  #lostFrames = 0;
   #error: OutputError | null = null;
   #closed = false;
 
@@ -195,6 +211,10 @@ export class RecorderTrack {
     return this.#error;
   }
 
+  get encoding(): RecordingEncoding {
+    return this.#o.encoding;
+  }
+
   status(): TrackStatus {
     const p = this.#part;
     if (p) {
@@ -211,6 +231,7 @@ export class RecorderTrack {
       encoding: this.#o.encoding,
       parts: this.#partCount,
       frames,
+      lostFrames: this.#lostFrames,
       bytes: this.#bytes + liveBytes,
       startSampleIndex: this.#firstSampleIndex,
       endSampleIndex: p ? p.startSampleIndex + p.writer.frames : this.#lastEnd,
@@ -385,11 +406,27 @@ export class RecorderTrack {
       } catch (e) {
         this.#fail(e);
       }
+      // After a failed write the file holds fewer frames than were accepted: count the rest as lost.
+      const lost = w.frames - w.headerFrames;
+      if (lost > 0) {
+        this.#lostFrames += lost;
+        this.#frames -= lost;
+        this.#bytes -= lost * w.blockAlignBytes;
+        this.#lastEnd = part.startSampleIndex + w.headerFrames;
+        part.status.frames = w.headerFrames;
+        part.status.bytes = w.headerFrames * w.blockAlignBytes;
+        part.sidecar.setFrames(w.headerFrames);
+      }
       part.sidecar.set({ container: w.container });
       try {
         await part.sidecar.close();
       } catch (e) {
         this.#fail(e);
+      }
+      if (w.removed) {
+        // No valid WAV came of it (the disk was full before its header): no file, no sidecar.
+        await rm(part.sidecar.path, { force: true }).catch(() => {});
+        this.#files = this.#files.filter((f) => f !== part.status);
       }
       part.status.closed = true;
     })();
@@ -399,7 +436,7 @@ export class RecorderTrack {
   /** Stop the track on the first failure and report it once. */
   #fail(e: unknown): void {
     if (this.#error) return;
-    const err = isOutputError(e) ? e : outputError('ERR_REC_WRITE_FAILED', (e as Error)?.message ?? String(e), e);
+    const err = isOutputError(e) ? e : writeError(`track ${this.name}`, e);
     this.#error = err;
     if (this.#part && !this.#closed) this.#endPart(this.#part, null);
     this.#o.onError?.(err);
@@ -408,6 +445,15 @@ export class RecorderTrack {
 
 export interface RecorderStartOptions {
   dir: string;
+  /** How status and messages name the folder; default its last name. Never the absolute path. */
+  dirLabel?: string;
+  /**
+   * Free bytes to keep on the folder's disk; default 0 (no check). start() refuses below it and a
+   * running recording stops when the free space falls below it.
+   */
+  minFreeBytes?: number;
+  /** Longest time between two free-space checks while recording, ms; default 500. */
+  spaceCheckMs?: number;
   /** File name prefix; default 'nullsteer'. */
   prefix?: string;
   /** Default 'float32': the blocks are floats, so nothing is quantised or clipped. */
@@ -426,6 +472,7 @@ export interface RecorderStartOptions {
 
 export interface RecorderStatus {
   recording: boolean;
+  /** The folder as `dirLabel` names it (never an absolute path); null before the first start. */
   dir: string | null;
   /** ISO time of start(), null before the first start. */
   startedAt: string | null;
@@ -437,6 +484,8 @@ export interface RecorderStatus {
   files: PartStatus[];
   tracks: Record<string, TrackStatus>;
   error: { code: string; message: string } | null;
+  /** Why the last recording stopped by itself (disk full, write error); null when stopped on request or running. */
+  stopReason: { code: OutputErrorCode; message: string } | null;
 }
 
 /** `20250102T030405Z`: the UTC start time in file names (ISO 8601 basic format, no colons). */
@@ -454,11 +503,23 @@ export class Recorder {
   #startedAt: string | null = null;
   #stoppedAt: string | null = null;
   #onError: ((err: OutputError) => void) | undefined;
+  #onStop: ((status: RecorderStatus) => void) | undefined;
   #error: OutputError | null = null;
+  #stopReason: { code: OutputErrorCode; message: string } | null = null;
+  #label = '';
+  /** Free-space watch: bytes recorded since the last check, its time, one check at a time. */
+  #space = { sinceBytes: 0, lastMs: 0, checking: false, generation: 0 };
 
-  /** @param options.onError called once per failure of a track (the track stops; the others go on). */
-  constructor(options: { onError?: (err: OutputError) => void } = {}) {
+  /**
+   * @param options.onError called once per failure of a track. A failed block (wrong channel
+   *   count) stops only its track; a failed write (ERR_REC_NO_SPACE, ERR_REC_WRITE_FAILED) stops
+   *   the whole recording.
+   * @param options.onStop called when a recording stopped by itself, once its files are closed,
+   *   with the final status (its `stopReason` says why); not called for stop().
+   */
+  constructor(options: { onError?: (err: OutputError) => void; onStop?: (status: RecorderStatus) => void } = {}) {
     this.#onError = options.onError;
+    this.#onStop = options.onStop;
   }
 
   get recording(): boolean {
@@ -468,36 +529,50 @@ export class Recorder {
   /**
    * Begin a recording into `dir` (created if missing) with the 'raw' track. Files open at the first
    * block, since its sample index, rate and channel count define them.
-   * @throws (rejects) ERR_REC_ALREADY_RECORDING, ERR_REC_BAD_OPTIONS, ERR_REC_EXISTS, ERR_REC_WRITE_FAILED
+   * @throws (rejects) ERR_REC_ALREADY_RECORDING, ERR_REC_BAD_OPTIONS, ERR_REC_EXISTS, ERR_REC_NO_SPACE
+   *   (free space below `minFreeBytes`), ERR_REC_WRITE_FAILED
    */
   async start(options: RecorderStartOptions): Promise<RecorderStatus> {
-    if (this.#recording || this.#stopping) throw outputError('ERR_REC_ALREADY_RECORDING', `recording into ${this.#options?.dir} since ${this.#startedAt}`);
+    if (this.#recording) throw outputError('ERR_REC_ALREADY_RECORDING', `started ${this.#startedAt}`);
+    if (this.#stopping) throw outputError('ERR_REC_ALREADY_RECORDING', `started ${this.#startedAt}, its files are being closed`);
     const prefix = options.prefix ?? 'nullsteer';
     if (!/^[A-Za-z0-9._-]+$/.test(prefix)) throw outputError('ERR_REC_BAD_OPTIONS', `prefix ${JSON.stringify(prefix)}, allowed [A-Za-z0-9._-]+`);
-    const { encoding = 'float32', rotateSeconds, rotateBytes } = options;
+    const { encoding = 'float32', rotateSeconds, rotateBytes, minFreeBytes = 0, spaceCheckMs = 500 } = options;
     checkTrackOptions({ name: 'raw', encoding, rotateSeconds, rotateBytes });
+    if (!(Number.isSafeInteger(minFreeBytes) && minFreeBytes >= 0)) throw outputError('ERR_REC_BAD_OPTIONS', `minFreeBytes ${minFreeBytes}, allowed an integer ≥ 0`);
+    if (!(spaceCheckMs > 0)) throw outputError('ERR_REC_BAD_OPTIONS', `spaceCheckMs ${spaceCheckMs}, allowed a number > 0`);
+    const label = options.dirLabel ?? basename(options.dir);
     const now = Date.now();
+    let existing: string[];
+    let free = Infinity;
     try {
       await mkdir(options.dir, { recursive: true });
       await access(options.dir, 2 /* W_OK */);
+      existing = await readdir(options.dir);
+      if (minFreeBytes > 0) free = await freeBytes(options.dir);
     } catch (e) {
-      throw outputError('ERR_REC_WRITE_FAILED', `directory ${options.dir}: ${(e as Error).message}`, e);
+      throw outputError('ERR_REC_WRITE_FAILED', `folder ${JSON.stringify(label)}: ${fsErrorText(e)}`, e);
     }
+    if (free < minFreeBytes) throw outputError('ERR_REC_NO_SPACE', reserveText('recordings', label, free, minFreeBytes));
+    // Sidecar rewrites of a killed server may have left their temporary files.
+    for (const f of existing) if (f.startsWith(`${prefix}-`) && f.endsWith('.json.tmp')) await rm(join(options.dir, f), { force: true }).catch(() => {});
     // A recording started in the same second as an earlier one gets a suffix: -2, -3 …
-    const existing = await readdir(options.dir);
     let stem = `${prefix}-${fileStamp(now)}`;
     for (let k = 2; existing.some((f) => f.startsWith(`${stem}-`)); k++) {
-      if (k > 99) throw outputError('ERR_REC_EXISTS', `${join(options.dir, stem)}-raw-0001.wav and 98 more this second`);
+      if (k > 99) throw outputError('ERR_REC_EXISTS', `${stem}-raw-0001.wav and 98 more this second`);
       stem = `${prefix}-${fileStamp(now)}-${k}`;
     }
     this.#options = options;
+    this.#label = label;
     this.#stem = stem;
     this.#tracks = new Map();
     this.#error = null;
+    this.#stopReason = null;
     this.#addTrack('raw', undefined, options.encoding); // validates the options
     this.#recording = true;
     this.#startedAt = new Date(now).toISOString();
     this.#stoppedAt = null;
+    this.#space = { sinceBytes: 0, lastMs: performance.now(), checking: false, generation: this.#space.generation + 1 };
     return this.status();
   }
 
@@ -512,12 +587,64 @@ export class Recorder {
 
   /** The raw input: one block of the server's stream. Ignored when not recording; never throws. */
   push(block: Block): void {
-    if (this.#recording) this.#tracks.get('raw')!.push(block);
+    if (!this.#recording) return;
+    const t = this.#tracks.get('raw')!;
+    t.push(block);
+    this.#watchSpace(block.frames * block.channels * bytesPerSample(t.encoding));
   }
 
   /** A block of another track (its sample indices on the same stream clock). Unknown tracks are ignored. */
   pushTrack(name: string, block: Block): void {
-    if (this.#recording) this.#tracks.get(name)?.push(block);
+    if (!this.#recording) return;
+    const t = this.#tracks.get(name);
+    if (t === undefined) return;
+    t.push(block);
+    this.#watchSpace(block.frames * block.channels * bytesPerSample(t.encoding));
+  }
+
+  /**
+   * Look up the folder's free space (in the background) once `spaceCheckMs` have passed or a
+   * quarter of the reserve has been recorded since the last look; below the reserve, stop.
+   */
+  #watchSpace(bytes: number): void {
+    const o = this.#options!;
+    const reserve = o.minFreeBytes ?? 0;
+    if (reserve <= 0) return;
+    const w = this.#space;
+    w.sinceBytes += bytes;
+    const now = performance.now();
+    if (w.checking || (w.sinceBytes < reserve / 4 && now - w.lastMs < (o.spaceCheckMs ?? 500))) return;
+    w.checking = true;
+    w.sinceBytes = 0;
+    w.lastMs = now;
+    const generation = w.generation;
+    const still = () => generation === this.#space.generation && this.#recording;
+    freeBytes(o.dir).then(
+      (free) => {
+        if (still() && free < reserve) this.#halt(outputError('ERR_REC_NO_SPACE', reserveText('recordings', this.#label, free, reserve)));
+      },
+      (e) => {
+        if (still()) this.#halt(outputError('ERR_REC_WRITE_FAILED', `free space of the folder ${JSON.stringify(this.#label)}: ${fsErrorText(e)}`, e));
+      },
+    ).finally(() => {
+      if (generation === this.#space.generation) this.#space.checking = false;
+    });
+  }
+
+  /** Stop by itself: close every track (each keeps what reached its file), then tell onStop. */
+  #halt(err: OutputError): void {
+    if (!this.#recording) return;
+    this.#recording = false;
+    this.#error ??= err;
+    this.#stopReason = { code: err.code, message: err.message };
+    this.#stopping = (async () => {
+      await Promise.all([...this.#tracks.values()].map((t) => t.close()));
+      this.#stoppedAt = new Date().toISOString();
+      this.#stopping = null;
+      const st = this.status();
+      this.#onStop?.(st);
+      return st;
+    })();
   }
 
   /** Parameters changed from `sampleIndex` on; noted in every track's current sidecar. */
@@ -528,11 +655,11 @@ export class Recorder {
 
   /**
    * End the recording: every WAV header and sidecar final. Resolves with the final status.
-   * @throws (rejects) ERR_REC_NOT_RECORDING
+   * @throws (rejects) ERR_REC_NOT_RECORDING, also when the recording has stopped by itself
    */
   async stop(): Promise<RecorderStatus> {
-    if (this.#stopping) return this.#stopping;
-    if (!this.#recording) throw outputError('ERR_REC_NOT_RECORDING', 'stop()');
+    if (this.#stopping && this.#stopReason === null) return this.#stopping;
+    if (!this.#recording) throw outputError('ERR_REC_NOT_RECORDING', this.#stopReason ? `it stopped by itself (${this.#stopReason.message})` : 'stop()');
     this.#recording = false;
     this.#stopping = (async () => {
       await Promise.all([...this.#tracks.values()].map((t) => t.close()));
@@ -555,7 +682,7 @@ export class Recorder {
     }
     return {
       recording: this.#recording,
-      dir: this.#options?.dir ?? null,
+      dir: this.#options ? this.#label : null,
       startedAt: this.#startedAt,
       stoppedAt: this.#stoppedAt,
       frames: tracks.raw?.frames ?? 0,
@@ -563,6 +690,7 @@ export class Recorder {
       files,
       tracks,
       error: this.#error ? { code: this.#error.code, message: this.#error.message } : null,
+      stopReason: this.#stopReason,
     };
   }
 
@@ -586,6 +714,7 @@ export class Recorder {
       onError: (err) => {
         this.#error ??= err;
         this.#onError?.(err);
+        if (err.code === 'ERR_REC_NO_SPACE' || err.code === 'ERR_REC_WRITE_FAILED') this.#halt(err);
       },
     });
     this.#tracks.set(name, track);

@@ -9,10 +9,27 @@
  *
  * Crash safety: the file is replaced atomically (write `<name>.tmp`, then rename over it, which
  * POSIX makes atomic within a directory), at most once per `minIntervalMs` while it changes and once
- * at close with `closed: true`. A killed process leaves the last complete version.
+ * at close with `closed: true`. A killed process leaves the last complete version. A rewrite that
+ * fails (disk full) removes its temporary file and leaves the last complete version too.
  */
-import { rename, writeFile } from 'node:fs/promises';
-import type { RecordingEncoding } from './wav-writer.ts';
+import { rename, rm, writeFile } from 'node:fs/promises';
+import { basename } from 'node:path';
+import { writeError, type RecordingEncoding } from './wav-writer.ts';
+
+/**
+ * Replace `path` with `text` atomically: write `<path>.tmp`, rename it over `path`. On failure the
+ * temporary file is removed and the error rethrown.
+ */
+export async function writeFileAtomic(path: string, text: string): Promise<void> {
+  const tmp = `${path}.tmp`;
+  try {
+    await writeFile(tmp, text);
+    await rename(tmp, path);
+  } catch (e) {
+    await rm(tmp, { force: true }).catch(() => {});
+    throw e;
+  }
+}
 
 export interface ArrayGeometry {
   name: string;
@@ -96,7 +113,10 @@ export interface SidecarDoc {
 export interface SidecarWriterOptions {
   /** Least time between two rewrites while the document changes, ms; default 1000. */
   minIntervalMs?: number;
-  /** Called once if a rewrite fails; later rewrites are still tried. */
+  /**
+   * Called once if a rewrite fails (ERR_REC_NO_SPACE or ERR_REC_WRITE_FAILED, naming the file but
+   * not its folder); later rewrites are still tried.
+   */
   onError?: (err: Error) => void;
 }
 
@@ -199,16 +219,14 @@ export class SidecarWriter {
     this.#dirty = false;
     this.#lastWriteMs = Date.now();
     const text = JSON.stringify(this.#doc, null, 2) + '\n';
-    const tmp = `${this.path}.tmp`;
     this.#writing = (async () => {
       try {
-        await writeFile(tmp, text);
-        await rename(tmp, this.path);
+        await writeFileAtomic(this.path, text);
         this.#writes++;
       } catch (e) {
         if (!this.#reported) {
           this.#reported = true;
-          this.#onError?.(e as Error);
+          this.#onError?.(writeError(`write ${basename(this.path)}`, e));
         }
         if (this.#closed) throw e;
       } finally {

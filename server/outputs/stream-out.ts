@@ -1,18 +1,22 @@
 /**
  * Beam audio to downstream recorders, live: every hop of beam audio becomes ingest frames in our own
  * wire format (shared/frame.ts, float32, one channel per beam, MTU-sized), sent over UDP to a
- * configured host:port and to every WebSocket subscriber of the beam-audio path.
+ * configured host:port and to every WebSocket listener of the beam-audio path.
  *
- * Limits and policies: UDP send errors are counted, never thrown; a WebSocket subscriber with more
- * than `maxBufferedBytes` queued has frames dropped and counted (the sequence numbers show the gap
- * to that subscriber); at most `maxSubscribers` at once (HTTP 503 beyond).
+ * Limits and policies: UDP send errors are counted, never thrown. The WebSocket listeners are a
+ * {@link LiveHub} (server/http/hub.ts), so they get the dashboard's slow-client policy: a frame is
+ * encoded once and handed to every listener; while a listener's socket backlog is above
+ * `maxBufferedBytes` its frames wait in its own queue of at most `queueFrames`, the oldest dropped
+ * and counted (the sequence numbers show the gap to that listener); a listener above the backlog
+ * limit for longer than `slowClientTimeoutMs` is closed with 1013 and its place freed; at most
+ * `maxClients` at once (HTTP 503 beyond). A listener that reads is never held up by one that does not.
  */
 import { createSocket, type Socket } from 'node:dgram';
 import type { IncomingMessage } from 'node:http';
 import type { Duplex } from 'node:stream';
-import { WebSocketServer, type WebSocket } from 'ws';
 import { encodeFrame, maxSamplesPerFrame } from '../../shared/frame.ts';
 import type { BeamAudioHop } from '../engine/beam-audio.ts';
+import { LiveHub } from '../http/hub.ts';
 
 export interface StreamOutOptions {
   sampleRateHz: number;
@@ -20,8 +24,36 @@ export interface StreamOutOptions {
   /** "host:port", or null for no UDP. */
   udpTarget: string | null;
   path: string;
-  maxSubscribers?: number;
+  /** WebSocket listeners at once; default 16. */
+  maxClients?: number;
+  /** Socket backlog above which a listener's frames wait in its queue, bytes; default 1 MiB. */
   maxBufferedBytes?: number;
+  /** Frames a backlogged listener may have waiting (oldest dropped beyond); default 256. */
+  queueFrames?: number;
+  /** A listener backlogged this long without draining is closed with 1013, ms; default 5000. */
+  slowClientTimeoutMs?: number;
+}
+
+export const STREAM_OUT_DEFAULTS = { maxClients: 16, maxBufferedBytes: 1 << 20, queueFrames: 256, slowClientTimeoutMs: 5000 } as const;
+
+/** What status shows of the stream out. */
+export interface StreamOutStats {
+  udpTarget: string | null;
+  wsPath: string;
+  /** WebSocket listeners receiving frames now. */
+  subscribers: number;
+  /** Frames made (each sent over UDP and offered to every listener). */
+  frames: number;
+  samples: number;
+  udpErrors: number;
+  /** Frames handed to listeners' sockets (one per listener per frame). */
+  wsSent: number;
+  /** Frames dropped from backlogged listeners' queues (one per listener per frame). */
+  wsDropped: number;
+  /** Listeners closed with 1013 for not reading. */
+  wsClosedSlow: number;
+  /** Listeners refused with 503 (maxClients reached). */
+  wsRefused: number;
 }
 
 export class BeamStreamOut {
@@ -30,12 +62,10 @@ export class BeamStreamOut {
   #host = '';
   #port = 0;
   #seq = 0;
-  #wss = new WebSocketServer({ noServer: true, perMessageDeflate: false, maxPayload: 1024 });
-  #subs = new Set<WebSocket>();
+  readonly #listeners: LiveHub;
   frames = 0;
   samples = 0;
   udpErrors = 0;
-  wsDropped = 0;
 
   constructor(opts: StreamOutOptions) {
     this.opts = opts;
@@ -46,21 +76,20 @@ export class BeamStreamOut {
       this.#udp = createSocket(this.#host.includes(':') ? 'udp6' : 'udp4');
       this.#udp.on('error', () => this.udpErrors++);
     }
-    this.#wss.on('connection', (ws: WebSocket) => {
-      this.#subs.add(ws);
-      ws.on('close', () => this.#subs.delete(ws));
-      ws.on('error', () => ws.terminate());
+    const d = STREAM_OUT_DEFAULTS;
+    // Listeners send nothing; a message of more than 1 KiB closes with 1009, a binary one with 1003.
+    this.#listeners = new LiveHub({
+      path: opts.path,
+      maxClients: opts.maxClients ?? d.maxClients,
+      maxBufferedBytes: opts.maxBufferedBytes ?? d.maxBufferedBytes,
+      queueRows: opts.queueFrames ?? d.queueFrames,
+      slowClientTimeoutMs: opts.slowClientTimeoutMs ?? d.slowClientTimeoutMs,
+      maxIncomingBytes: 1024,
     });
   }
 
   handleUpgrade(req: IncomingMessage, socket: Duplex, head: Buffer): boolean {
-    if ((req.url ?? '').split('?')[0] !== this.opts.path) return false;
-    if (this.#subs.size >= (this.opts.maxSubscribers ?? 16)) {
-      socket.end('HTTP/1.1 503 Service Unavailable\r\nConnection: close\r\nContent-Length: 0\r\n\r\n');
-      return true;
-    }
-    this.#wss.handleUpgrade(req, socket, head, (ws) => this.#wss.emit('connection', ws, req));
-    return true;
+    return this.#listeners.handleUpgrade(req, socket, head);
   }
 
   /** Send one hop of every beam. The hop before the stream's first sample (the STFT primer) is skipped. */
@@ -68,7 +97,6 @@ export class BeamStreamOut {
     if (hop.sampleIndex < 0) return;
     const m = hop.ids.length;
     const per = maxSamplesPerFrame(m, 'float32');
-    const limit = this.opts.maxBufferedBytes ?? 1 << 20;
     for (let s = 0; s < hop.frames; s += per) {
       const n = Math.min(per, hop.frames - s);
       const x = new Float32Array(n * m);
@@ -80,20 +108,29 @@ export class BeamStreamOut {
       this.#udp?.send(bytes, this.#port, this.#host, (e) => {
         if (e) this.udpErrors++;
       });
-      for (const ws of this.#subs) {
-        if (ws.bufferedAmount > limit) this.wsDropped++;
-        else ws.send(bytes);
-      }
+      this.#listeners.broadcastRowBytes(bytes); // fresh bytes per frame: the listeners' queues may keep them
     }
   }
 
-  stats() {
-    return { udpTarget: this.opts.udpTarget, wsPath: this.opts.path, subscribers: this.#subs.size, frames: this.frames, samples: this.samples, udpErrors: this.udpErrors, wsDropped: this.wsDropped };
+  stats(): StreamOutStats {
+    const h = this.#listeners.stats();
+    return {
+      udpTarget: this.opts.udpTarget,
+      wsPath: this.opts.path,
+      subscribers: h.clients,
+      frames: this.frames,
+      samples: this.samples,
+      udpErrors: this.udpErrors,
+      wsSent: h.rowsSent,
+      wsDropped: h.rowsDropped,
+      wsClosedSlow: h.closedSlow,
+      wsRefused: h.refusedFull,
+    };
   }
 
+  /** Close the listeners (1001, their sockets destroyed after the hub's grace time) and the UDP socket. */
   async close(): Promise<void> {
-    for (const ws of this.#subs) ws.terminate();
-    await new Promise<void>((r) => this.#wss.close(() => r()));
+    await this.#listeners.close();
     await new Promise<void>((r) => (this.#udp ? this.#udp.close(() => r()) : r()));
   }
 }

@@ -15,13 +15,22 @@
  * after it are ignored by readers that trust the data size). That survives kill -9 (the bytes are in
  * the OS page cache); surviving power loss needs `datasync: true`.
  *
+ * A failed write (disk full, quota, I/O error) stops the writer: it is reported once, as
+ * ERR_REC_NO_SPACE when the disk or quota is full, else ERR_REC_WRITE_FAILED. close() then keeps
+ * what reached the file: it cuts the file after the last whole frame written in order, adds the pad
+ * byte, and rewrites the header over exactly those frames ({@link WavStreamWriter.headerFrames}).
+ * Rewriting bytes a file already has needs no new space, so this works on a full disk too. A file
+ * whose header never reached the disk is removed. Messages name the file, never its folder.
+ *
  * Writes never block the caller: samples are quantised into fixed-size chunk buffers that are
  * written in order, one at a time, at their own file positions. The queue of chunks is bounded by
  * `maxQueueBytes`; see {@link WavStreamWriterOptions.maxQueueBytes} for the policy when it is full.
  */
 import { writeSync } from 'node:fs';
-import { open, type FileHandle } from 'node:fs/promises';
+import { open, unlink, type FileHandle } from 'node:fs/promises';
+import { basename } from 'node:path';
 import { bytesPerSample, encodeInterleaved } from '../../shared/frame.ts';
+import { fsErrorText, isNoSpace } from '../io/disk-space.ts';
 import { encodeWavHeader } from '../io/wav.ts';
 
 // ---------------------------------------------------------------------------------------------
@@ -40,6 +49,7 @@ export const OUTPUT_ERRORS = {
   ERR_REC_NOT_RECORDING: { errorClass: Error, httpStatus: 409, message: 'no recording is running' },
   ERR_REC_EXISTS: { errorClass: Error, httpStatus: 409, message: 'recording file already exists' },
   ERR_REC_UNKNOWN_TRACK: { errorClass: RangeError, httpStatus: 400, message: 'unknown recording track' },
+  ERR_REC_NO_SPACE: { errorClass: Error, httpStatus: 507, message: 'not enough free space' },
 } as const satisfies Record<string, { errorClass: ErrorClass; httpStatus: number; message: string }>;
 
 export type OutputErrorCode = keyof typeof OUTPUT_ERRORS;
@@ -47,6 +57,8 @@ export type OutputErrorCode = keyof typeof OUTPUT_ERRORS;
 export interface OutputError extends Error {
   code: OutputErrorCode;
   httpStatus: number;
+  /** The message without the catalogue's prefix. */
+  detail: string;
 }
 
 /** Build the catalogue's error for `code`: message `<prefix>: <detail>`, with `code` and `httpStatus`. */
@@ -55,7 +67,17 @@ export function outputError(code: OutputErrorCode, detail: string, cause?: unkno
   const err = new spec.errorClass(`${spec.message}: ${detail}`, cause === undefined ? undefined : { cause }) as OutputError;
   err.code = code;
   err.httpStatus = spec.httpStatus;
+  err.detail = detail;
   return err;
+}
+
+/**
+ * A failed file operation as the catalogue's error: ERR_REC_NO_SPACE for a full disk or quota,
+ * else ERR_REC_WRITE_FAILED; `what` names the operation and the file (never its folder).
+ */
+export function writeError(what: string, e: unknown): OutputError {
+  if (isOutputError(e)) return e;
+  return outputError(isNoSpace(e) ? 'ERR_REC_NO_SPACE' : 'ERR_REC_WRITE_FAILED', `${what}: ${fsErrorText(e)}`, e);
 }
 
 export function isOutputError(e: unknown): e is OutputError {
@@ -99,7 +121,7 @@ export interface WavStreamWriterOptions {
   datasync?: boolean;
   /** Overwrite an existing file; default false (open fails with EEXIST, wrapped in ERR_REC_WRITE_FAILED). */
   overwrite?: boolean;
-  /** Called once, with ERR_REC_WRITE_FAILED, when a background write fails. */
+  /** Called once, with ERR_REC_NO_SPACE or ERR_REC_WRITE_FAILED, when a background write fails. */
   onError?: (err: OutputError) => void;
 }
 
@@ -200,6 +222,8 @@ function positiveInt(name: string, v: number, min: number, max = Number.MAX_SAFE
  */
 export class WavStreamWriter {
   readonly path: string;
+  /** The file's name without its folder (for messages). */
+  readonly name: string;
   readonly sampleRateHz: number;
   readonly channels: number;
   readonly encoding: RecordingEncoding;
@@ -235,12 +259,18 @@ export class WavStreamWriter {
   #error: OutputError | null = null;
   #syncWrites = 0;
   #maxQueuedBytesSeen = 0;
+  /** The initial header is on file. */
+  #headerWritten = false;
+  #removed = false;
+  /** The chunk whose write failed, and how many of its bytes reached the file before. */
+  #partial: { chunk: Chunk; written: number } | null = null;
 
   private constructor(path: string, o: WavStreamWriterOptions) {
     if (!RECORDING_ENCODINGS.includes(o.encoding)) {
       throw outputError('ERR_REC_BAD_OPTIONS', `encoding ${String(o.encoding)}, allowed ${RECORDING_ENCODINGS.join(', ')}`);
     }
     this.path = path;
+    this.name = basename(path);
     this.sampleRateHz = positiveInt('sampleRateHz', o.sampleRateHz, 1, U32_MAX);
     this.channels = positiveInt('channels', o.channels, 1, 65535);
     this.encoding = o.encoding;
@@ -266,8 +296,9 @@ export class WavStreamWriter {
       const handle = await open(path, o.overwrite ? 'w' : 'wx');
       this.#handle = handle;
       await handle.write(header, 0, header.byteLength, 0);
+      this.#headerWritten = true;
     })();
-    this.#opening.catch((e) => this.#fail(e, `open ${path}`));
+    this.#opening.catch((e) => this.#fail(e, 'open'));
     this.#timer = setInterval(() => void this.refreshHeader().catch(() => {}), refreshMs);
     this.#timer.unref();
     this.#kick();
@@ -279,7 +310,8 @@ export class WavStreamWriter {
     try {
       await w.#opening;
     } catch {
-      throw w.#error ?? outputError('ERR_REC_WRITE_FAILED', `open ${path}`);
+      await w.close().catch(() => {});
+      throw w.#error ?? outputError('ERR_REC_WRITE_FAILED', `open ${w.name}`);
     }
     return w;
   }
@@ -301,7 +333,10 @@ export class WavStreamWriter {
   get bytes(): number {
     return this.#frames * this.blockAlignBytes;
   }
-  /** Frames the header announced at its last refresh (what a reader sees after a kill). */
+  /**
+   * Frames the header announced at its last refresh (what a reader sees after a kill); after
+   * close(), the frames on file, which are all accepted frames unless a write failed.
+   */
   get headerFrames(): number {
     return this.#headerFrames;
   }
@@ -332,6 +367,10 @@ export class WavStreamWriter {
   }
   get closed(): boolean {
     return this.#closed;
+  }
+  /** True once close() has removed the file because its header never reached the disk. */
+  get removed(): boolean {
+    return this.#removed;
   }
 
   /**
@@ -374,7 +413,8 @@ export class WavStreamWriter {
 
   /**
    * Write what is queued, the pad byte of odd-sized data, and the final header; close the file.
-   * Idempotent. Rejects with the background failure if one happened (the file is closed anyway).
+   * Idempotent. Rejects with the background failure if one happened; the file is closed anyway,
+   * holding the frames written before the failure under a header that covers exactly them.
    */
   close(): Promise<{ frames: number; bytes: number }> {
     if (this.#closing) return this.#closing;
@@ -382,22 +422,27 @@ export class WavStreamWriter {
     if (this.#timer) clearInterval(this.#timer);
     this.#timer = null;
     this.#closing = (async () => {
-      try {
-        await this.#opening.catch(() => {});
-        if (!this.#error) {
+      await this.#opening.catch(() => {});
+      if (!this.#error) {
+        try {
           await this.refreshHeader();
           const handle = this.#handle!;
           const dataBytes = this.bytes;
           // RIFF: chunks are word aligned; odd-sized data is followed by one pad byte.
           if (dataBytes & 1) await handle.write(new Uint8Array(1), 0, 1, this.headerBytes + dataBytes);
           if (this.#datasync) await handle.datasync();
+        } catch (e) {
+          this.#fail(e, 'close');
         }
-      } catch (e) {
-        this.#fail(e, 'close');
-      } finally {
-        const handle = this.#handle;
-        this.#handle = null;
-        if (handle) await handle.close().catch((e) => this.#fail(e, 'close'));
+      }
+      let remove = false;
+      if (this.#error) remove = !(await this.#salvage());
+      const handle = this.#handle;
+      this.#handle = null;
+      if (handle) await handle.close().catch((e) => this.#fail(e, 'close'));
+      if (remove) {
+        await unlink(this.path).catch(() => {});
+        this.#removed = true;
       }
       if (this.#error) throw this.#error;
       return { frames: this.#frames, bytes: this.bytes };
@@ -405,12 +450,44 @@ export class WavStreamWriter {
     return this.#closing;
   }
 
+  /**
+   * After a failure: cut the file after the last whole frame written in order (what follows was
+   * not, or not in order), add the pad byte as a zero (ftruncate extends with zeros) and rewrite
+   * the header over those frames. Returns false when the file holds no valid header (to be removed).
+   */
+  async #salvage(): Promise<boolean> {
+    const handle = this.#handle;
+    if (handle === null) return true; // not opened by us (e.g. it existed): not ours to touch
+    await this.#running;
+    let end = this.#current !== null ? this.#current.position : this.#endPosition;
+    const first = this.#queue.find((c) => !c.done);
+    if (first !== undefined) {
+      end = first.position;
+      const p = this.#partial;
+      if (p !== null && p.chunk === first) end += Math.floor(p.written / this.blockAlignBytes) * this.blockAlignBytes;
+    }
+    const dataBytes = end - this.headerBytes;
+    const frames = dataBytes / this.blockAlignBytes;
+    try {
+      await handle.truncate(end + (dataBytes & 1));
+      if (this.#onLimit === 'rf64' && dataBytes > this.#maxDataBytes) this.#rf64 = true;
+      patchHeader(this.#layout, dataBytes, frames, this.#rf64);
+      await handle.write(this.#layout.bytes, 0, this.headerBytes, 0);
+      this.#headerWritten = true;
+      this.#headerFrames = frames;
+      return true;
+    } catch {
+      // The header on file stays as it was (it announces only frames written before it).
+      return this.#headerWritten;
+    }
+  }
+
   #checkAppend(frames: number): void {
-    if (this.#closed) throw outputError('ERR_REC_CLOSED', `write to ${this.path} after close()`);
+    if (this.#closed) throw outputError('ERR_REC_CLOSED', `write to ${this.name} after close()`);
     if (this.#error) throw this.#error;
     if (!Number.isSafeInteger(frames) || frames < 0) throw outputError('ERR_REC_BAD_BLOCK', `frames ${frames}, allowed an integer ≥ 0`);
     if (frames > this.framesLeft) {
-      throw outputError('ERR_REC_FULL', `${frames} frames, ${this.framesLeft} fit below ${this.#maxDataBytes} data bytes in ${this.path}`);
+      throw outputError('ERR_REC_FULL', `${frames} frames, ${this.framesLeft} fit below ${this.#maxDataBytes} data bytes in ${this.name}`);
     }
   }
 
@@ -455,11 +532,14 @@ export class WavStreamWriter {
     const handle = this.#handle;
     if (handle !== null && this.#queuedBytes + chunk.length > this.#maxQueueBytes) {
       // Queue full: write this chunk now, blocking the caller once rather than dropping samples.
+      let off = 0;
       try {
-        let off = 0;
         while (off < chunk.length) off += writeSync(handle.fd, chunk.buf, off, chunk.length - off, chunk.position + off);
       } catch (e) {
-        this.#fail(e, `synchronous write at ${chunk.position}`);
+        // Queued as not written, so that close() knows where the good data ends.
+        this.#partial = { chunk, written: off };
+        this.#queue.push(chunk);
+        this.#fail(e, 'write');
         throw this.#error!;
       }
       this.#syncWrites++;
@@ -505,6 +585,7 @@ export class WavStreamWriter {
       await this.#opening;
       const handle = this.#handle!;
       for (;;) {
+        if (this.#error) return; // a synchronous write failed meanwhile: close() takes over
         const waitingFor = this.#waiters.length > 0 ? this.#waiters[0].target : Infinity;
         // A header that has all its data behind it goes first, so refreshes are not starved by load.
         if (this.#headerWanted && this.#durableEnd() >= Math.min(waitingFor, this.#endPosition)) {
@@ -520,16 +601,21 @@ export class WavStreamWriter {
           return;
         }
         let off = 0;
-        while (off < next.length) {
-          const { bytesWritten } = await handle.write(next.buf, off, next.length - off, next.position + off);
-          off += bytesWritten;
+        try {
+          while (off < next.length) {
+            const { bytesWritten } = await handle.write(next.buf, off, next.length - off, next.position + off);
+            off += bytesWritten;
+          }
+        } catch (e) {
+          this.#partial = { chunk: next, written: off };
+          throw e;
         }
         next.done = true;
         this.#queuedBytes -= next.length;
         this.#retire();
       }
     } catch (e) {
-      this.#fail(e, 'background write');
+      this.#fail(e, 'write');
     }
   }
 
@@ -554,7 +640,7 @@ export class WavStreamWriter {
 
   #fail(e: unknown, what: string): void {
     if (this.#error) return;
-    const err = isOutputError(e) ? e : outputError('ERR_REC_WRITE_FAILED', `${what} of ${this.path}: ${(e as Error)?.message ?? String(e)}`, e);
+    const err = writeError(`${what} ${this.name}`, e);
     this.#error = err;
     for (const w of this.#waiters) w.reject(err);
     this.#waiters = [];

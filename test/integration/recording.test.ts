@@ -7,7 +7,7 @@ import { execFileSync, spawn } from 'node:child_process';
 import { createSocket, type Socket } from 'node:dgram';
 import { mkdtempSync, readdirSync, readFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { join } from 'node:path';
+import { basename, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterEach, describe, expect, it } from 'vitest';
 import { openWav } from '../../server/io/wav.ts';
@@ -141,6 +141,38 @@ describe('recording and stream out', () => {
     }
     expect(got[0].ch).toBe(1);
     expect(got.reduce((n, g) => n + g.n, 0)).toBeGreaterThan(total * N - 2 * 256);
+  });
+
+  it('client mistakes get 409, never 5xx; answers and status name the folder without its absolute path', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'nullsteer-rec-'));
+    svc = await startTestService({ outputs: { dir } });
+    const base = svc.url;
+    const answers: unknown[] = [];
+    const call = async (method: string, path: string, body?: unknown) => {
+      const r = await json(`${base}${path}`, { method, ...(body !== undefined ? { body: JSON.stringify(body) } : {}) });
+      answers.push(r.body);
+      return r;
+    };
+    expect(await call('DELETE', '/api/recording')).toEqual({ status: 409, body: { error: { code: 'ERR_HTTP_NOT_RECORDING', message: 'no recording is running', statusCode: 409 } } });
+    const idle = await call('GET', '/api/recording');
+    expect(idle.body).toMatchObject({ recording: false, dir: null, stopReason: null });
+    const start = await call('POST', '/api/recording', { beams: false });
+    expect(start.status).toBe(200);
+    expect(start.body.dir).toBe(basename(dir)); // an absolute outputs.dir is shown by its last name only
+    const twice = await call('POST', '/api/recording', {});
+    expect(twice).toEqual({
+      status: 409,
+      body: { error: { code: 'ERR_HTTP_RECORDING_ACTIVE', message: `a recording is already running (started ${start.body.startedAt}); stop it first`, statusCode: 409 } },
+    });
+    expect((await call('GET', '/api/recording')).body).toMatchObject({ recording: true, dir: basename(dir) });
+    expect((await call('GET', '/api/status')).body.recording).toMatchObject({ recording: true, dir: basename(dir), stopReason: null });
+    const stop = await call('DELETE', '/api/recording');
+    expect(stop.status).toBe(200);
+    expect(stop.body).toMatchObject({ recording: false, stopReason: null });
+    expect((await call('DELETE', '/api/recording')).status).toBe(409);
+    const all = JSON.stringify(answers);
+    expect(all).not.toContain(dir);
+    expect(all).not.toContain(tmpdir());
   });
 
   it('a recording survives kill -9: the file is readable and misses at most the last second', async () => {

@@ -115,4 +115,22 @@ describe('journal and presets', () => {
     expect(now.map((e: any) => e.kind)).toEqual(['preset-apply', 'preset-delete']);
     expect(now[0].seq).toBe(11);
   });
+
+  it('a preset file with a field the format does not have is listed as invalid and refused with 422', async () => {
+    const data = mkdtempSync(join(tmpdir(), 'nullsteer-session-'));
+    svc = await startTestService({ data: { dir: data } });
+    const saved = await call('PUT', '/api/presets/base', {});
+    expect(saved.status).toBe(200);
+    writeFileSync(join(data, 'presets', 'edited.json'), JSON.stringify({ ...saved.json, name: 'edited', comment: 'tuned by hand' }));
+    const list = (await call('GET', '/api/presets')).json.presets;
+    expect(list).toEqual([
+      { name: 'base', savedAt: saved.json.savedAt, valid: true },
+      { name: 'edited', valid: false, error: 'comment: unknown field; known: name, savedAt, params' },
+    ]);
+    expect(await call('POST', '/api/presets/edited/apply')).toEqual({
+      status: 422,
+      json: { error: { code: 'ERR_HTTP_PRESET_INVALID', message: 'preset "edited" cannot be used: comment: unknown field; known: name, savedAt, params', statusCode: 422 } },
+    });
+    expect((await call('GET', '/api/presets/edited')).status).toBe(422);
+  });
 });

@@ -54,8 +54,10 @@ describe('PresetStore', () => {
     writeFileSync(join(dir, 'truncated.json'), '{"name": "truncated", "savedAt": "2026-12-02T10:00:00Z", "par');
     writeFileSync(join(dir, 'renamed.json'), JSON.stringify({ name: 'other', savedAt: '2026-12-02T10:00:00Z', params: BASE }));
     writeFileSync(join(dir, 'out-of-range.json'), JSON.stringify({ name: 'out-of-range', savedAt: '2026-12-02T10:00:00Z', params: { ...BASE, spectrumRateHz: 500 } }));
+    writeFileSync(join(dir, 'extra.json'), JSON.stringify({ name: 'extra', savedAt: '2026-12-02T10:00:00Z', params: BASE, note: 'hand-edited' }));
     const list = s.list();
     expect(list.map((p) => [p.name, p.valid])).toEqual([
+      ['extra', false],
       ['good', true],
       ['out-of-range', false],
       ['renamed', false],
@@ -63,6 +65,9 @@ describe('PresetStore', () => {
     ]);
     const err = (n: string) => (list.find((p) => p.name === n) as { error: string }).error;
     expect(err('truncated')).toMatch(/^not valid JSON/);
+    // Closed schema, like a REST body: a field the format does not have makes the file invalid.
+    expect(err('extra')).toBe('note: unknown field; known: name, savedAt, params');
+    expect(() => s.get('extra')).toThrow(expect.objectContaining({ kind: 'invalid', message: 'note: unknown field; known: name, savedAt, params' }));
     expect(err('renamed')).toBe('names itself "other", not "renamed"');
     expect(err('out-of-range')).toMatch(/^spectrumRateHz: /);
     expect(() => s.get('truncated')).toThrow(expect.objectContaining({ kind: 'invalid' }));

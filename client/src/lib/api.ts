@@ -90,6 +90,8 @@ export interface RecordingStatus {
   bytes: number;
   files: { track: string; wav: string; frames: number; closed: boolean }[];
   error: { code: string; message: string } | null;
+  /** Why the last recording stopped by itself (e.g. the disk filled); null when stopped on request. */
+  stopReason: { code: string; message: string } | null;
 }
 export interface RecordingRequest {
   raw?: boolean;

@@ -2,8 +2,14 @@
  * Recording: `GET /api/recording` (status), `POST /api/recording` { raw?, beams?, encoding?,
  * rotateSeconds?, rotateBytes? } starts one, `DELETE /api/recording` stops it and answers the final status. The
  * folder is the configured `outputs.dir`; a request cannot choose another.
+ *
+ * Errors: a bad body 400 ERR_HTTP_VALIDATION; starting while recording 409 ERR_HTTP_RECORDING_ACTIVE;
+ * stopping when idle 409 ERR_HTTP_NOT_RECORDING; free space below `outputs.minFreeBytes` 507
+ * ERR_HTTP_INSUFFICIENT_STORAGE; only a folder the server cannot write is a 5xx
+ * (ERR_HTTP_RECORDING_FAILED). No answer carries a folder's absolute path.
  */
 import type { FastifyPluginAsync } from 'fastify';
+import { isOutputError } from '../../outputs/wav-writer.ts';
 import { HttpError } from '../errors.ts';
 
 export interface RecordingRequest {
@@ -42,6 +48,25 @@ export function parseRecordingRequest(body: unknown): RecordingRequest {
   return { raw, beams, encoding, rotateSeconds: rotateSeconds as number | null, rotateBytes: rotateBytes as number | null };
 }
 
+/** The recorder's errors (server/outputs/wav-writer.ts catalogue) as the API's; others pass (internal). */
+export function recordingHttpError(e: unknown): unknown {
+  if (!isOutputError(e)) return e;
+  switch (e.code) {
+    case 'ERR_REC_ALREADY_RECORDING':
+      return new HttpError('ERR_HTTP_RECORDING_ACTIVE', { detail: e.detail });
+    case 'ERR_REC_NOT_RECORDING':
+      return new HttpError('ERR_HTTP_NOT_RECORDING');
+    case 'ERR_REC_NO_SPACE':
+      return new HttpError('ERR_HTTP_INSUFFICIENT_STORAGE', { detail: e.detail });
+    case 'ERR_REC_EXISTS':
+      return new HttpError('ERR_HTTP_RECORDING_EXISTS', { detail: e.detail });
+    case 'ERR_REC_BAD_OPTIONS':
+      return bad(`(recording): ${e.detail}`);
+    default:
+      return new HttpError('ERR_HTTP_RECORDING_FAILED', { detail: e.detail });
+  }
+}
+
 export function recordingRoutes(c: RecordingController): FastifyPluginAsync {
   return async (app) => {
     app.get('/recording', async () => c.status());
@@ -50,10 +75,15 @@ export function recordingRoutes(c: RecordingController): FastifyPluginAsync {
       try {
         return await c.start(r);
       } catch (e) {
-        const err = e as Error & { code?: string };
-        throw bad(`(recording): ${err.code ? `${err.code}: ` : ''}${err.message}`);
+        throw recordingHttpError(e);
       }
     });
-    app.delete('/recording', async () => c.stop());
+    app.delete('/recording', async () => {
+      try {
+        return await c.stop();
+      } catch (e) {
+        throw recordingHttpError(e);
+      }
+    });
   };
 }

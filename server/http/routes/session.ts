@@ -7,7 +7,9 @@
  *   POST   /api/presets/:name/apply        → { params, derived } as applied (like PUT /api/processing)
  *   DELETE /api/presets/:name              → 204
  * A bad name is 400 ERR_HTTP_VALIDATION, a missing preset 404 ERR_HTTP_PRESET_NOT_FOUND, a preset
- * file that does not validate 422 ERR_HTTP_PRESET_INVALID naming the reason.
+ * file that does not validate 422 ERR_HTTP_PRESET_INVALID naming the reason, a save while the data
+ * folder's free space is below `data.minFreeBytes` (or that fails for want of space) 507
+ * ERR_HTTP_INSUFFICIENT_STORAGE; another write failure 500 ERR_HTTP_PRESET_WRITE_FAILED.
  */
 import type { FastifyPluginAsync } from 'fastify';
 import type { ProcessingParams } from '../../engine/params.ts';
@@ -32,6 +34,8 @@ function toHttp(e: unknown): unknown {
   if (!(e instanceof PresetError)) return e;
   if (e.kind === 'bad-name') return new HttpError('ERR_HTTP_VALIDATION', { detail: e.message });
   if (e.kind === 'not-found') return new HttpError('ERR_HTTP_PRESET_NOT_FOUND', { name: JSON.stringify(e.presetName) });
+  if (e.kind === 'no-space') return new HttpError('ERR_HTTP_INSUFFICIENT_STORAGE', { detail: e.message });
+  if (e.kind === 'write-failed') return new HttpError('ERR_HTTP_PRESET_WRITE_FAILED', { detail: e.message });
   return new HttpError('ERR_HTTP_PRESET_INVALID', { name: JSON.stringify(e.presetName), detail: e.message });
 }
 
