@@ -45,7 +45,7 @@ describe('disk full while recording', () => {
     });
     const answers: unknown[] = [];
     const call = async (method: string, path: string, body?: unknown) => {
-      const r = await fetch(`${svc!.url}${path}`, { method, headers: body !== undefined ? { 'content-type': 'application/json' } : {}, body: body === undefined ? undefined : JSON.stringify(body) });
+      const r = await fetch(`${svc!.url}${path}`, { method, headers: method !== 'GET' ? { 'content-type': 'application/json' } : {}, body: body === undefined ? undefined : JSON.stringify(body) });
       const text = await r.text();
       const json = text ? JSON.parse(text) : null;
       answers.push(json);

@@ -43,7 +43,8 @@ function hasPython(): boolean {
 }
 
 async function json(url: string, init?: RequestInit): Promise<any> {
-  const r = await fetch(url, { ...(init?.body ? { headers: { 'content-type': 'application/json' } } : {}), ...init });
+  // Every change carries the JSON content type, with a body or without (the server refuses others).
+  const r = await fetch(url, { ...(init?.method && init.method !== 'GET' ? { headers: { 'content-type': 'application/json' } } : {}), ...init });
   return { status: r.status, body: r.status === 204 ? null : await r.json() };
 }
 
