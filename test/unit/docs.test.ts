@@ -1,5 +1,6 @@
 /** Checks that generated documentation is up to date and the README carries what it must. */
 import { readFileSync } from 'node:fs';
+import semver from 'semver';
 import { describe, expect, it } from 'vitest';
 import { configReference } from '../../scripts/config-reference.ts';
 import { FRAME_REJECT_REASONS } from '../../shared/frame.ts';
@@ -24,5 +25,15 @@ describe('documentation', () => {
 
   it('the wire-format document names every reject reason the server counts', () => {
     for (const r of [...FRAME_REJECT_REASONS, ...STREAM_REJECT_REASONS, 'not_binary', 'too_large']) expect(wire).toContain(`\`${r}\``);
+  });
+
+  it('every locked dependency supports the Node.js version package.json and the README state (no engine warning on npm ci)', () => {
+    const pkg = JSON.parse(readFileSync(new URL('../../package.json', import.meta.url), 'utf8')) as { engines: { node: string } };
+    const lock = JSON.parse(readFileSync(new URL('../../package-lock.json', import.meta.url), 'utf8')) as { packages: Record<string, { engines?: { node?: string } }> };
+    const least = semver.minVersion(pkg.engines.node)!.version;
+    expect(least).toBe('20.19.0');
+    expect(readme).toContain(`Node.js ${least.replace(/\.0$/, '')} or newer`);
+    const unmet = Object.entries(lock.packages).flatMap(([name, p]) => (p.engines?.node && !semver.satisfies(least, p.engines.node) ? [`${name} needs node ${p.engines.node}`] : []));
+    expect(unmet).toEqual([]);
   });
 });
