@@ -139,7 +139,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
       kind: 'object',
       fields: {
         seed: { kind: 'int', min: 0, max: 0xffffffff, doc: 'Seed of the built-in scenario (same seed, same signals).' },
-        blockFrames: { kind: 'int', min: 16, max: 16384, doc: 'Samples per channel in each simulated block.' },
+        blockFrames: { kind: 'int', min: 16, max: 16384, doc: 'Samples per channel in each simulated block; with more than 64 channels the blocks are shortened in proportion (at least 32), so that rendering one never holds the server for long.' },
         speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound used to place the simulated sources, m/s.' },
       },
     },

@@ -163,6 +163,8 @@ export class Engine {
   scansDropped = 0;
   /** Scan requests put off to a later hop because every result slot was still waiting to be read. */
   scansDeferred = 0;
+  /** Memory of the plan in force (plan-budget.ts), bytes. */
+  #planBytes = 0;
   /** Values of a row found not finite by the combiner and written as no power (should stay 0). */
   nonFiniteValues = 0;
   #stftMs = 0;
@@ -336,6 +338,7 @@ export class Engine {
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
     this.#pool.commit(epoch);
+    this.#planBytes = cost.totalBytes;
     this.opts.budget?.hold(this, cost.totalBytes);
     // Per-channel calibration, undone on the band's bins of each slot before anyone reads them.
     const bandFreqs = Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * fs) / this.#stft.fftSize);
@@ -833,6 +836,7 @@ export class Engine {
       flaggedBins: { singular: sum(STAT_SINGULAR), nonFinite: sum(STAT_NON_FINITE), covarianceRestarts: sum(STAT_RESTARTS), rowValuesNotFinite: this.nonFiniteValues },
       bins: p.bins,
       directions: p.grid.count,
+      planMiB: Math.round(this.#planBytes / 2 ** 20),
       stages: {
         stftMsPerHop: this.hops ? this.#stftMs / this.hops : 0,
         stftTransform: this.#stft.accelerated ? 'wasm-simd' : 'fft.js',

@@ -20,12 +20,21 @@ export interface SimulatorSourceOptions {
   now?: () => number;
   /** Longest backlog rendered in one burst after a stall, seconds; the rest is skipped. Default 1. */
   maxCatchUpS?: number;
+  /**
+   * Longest a tick renders before it yields to the rest of the server, ms (default 10): blocks
+   * still due wait for the next tick, and a backlog beyond maxCatchUpS is skipped as after a stall.
+   * So a scene too large to render in real time (hundreds of channels) slows the stream, never
+   * the server: REST and status stay answered.
+   */
+  maxTickMs?: number;
 }
 
 export interface SimulatorSourceStats {
   blocks: number;
   samples: number;
   skippedSamples: number;
+  /** Ticks that ran out of time with blocks still due (the scene renders slower than real time). */
+  yields: number;
 }
 
 /**
@@ -38,13 +47,14 @@ export class SimulatorSource {
   readonly #sim: PacedGenerator;
   readonly #now: () => number;
   readonly #maxBurstBlocks: number;
+  readonly #maxTickMs: number;
   #timer: ReturnType<typeof setInterval> | null = null;
   #sink: BlockSink | null = null;
   #onError: ((err: unknown) => void) | undefined;
   #startMs = 0;
   /** Samples handed out or skipped since start(): the stream's position on the wall clock. */
   #accounted = 0;
-  #stats: SimulatorSourceStats = { blocks: 0, samples: 0, skippedSamples: 0 };
+  #stats: SimulatorSourceStats = { blocks: 0, samples: 0, skippedSamples: 0, yields: 0 };
 
   constructor(sim: PacedGenerator, options: SimulatorSourceOptions = {}) {
     if (typeof sim !== 'object' || sim === null || typeof sim.next !== 'function' || typeof sim.skip !== 'function') {
@@ -57,6 +67,8 @@ export class SimulatorSource {
     this.#sim = sim;
     this.#now = options.now ?? (() => performance.now());
     this.#maxBurstBlocks = Math.max(1, Math.ceil((maxCatchUpS * sim.sampleRateHz) / sim.blockFrames));
+    this.#maxTickMs = options.maxTickMs ?? 10;
+    if (!(this.#maxTickMs > 0 && this.#maxTickMs <= 1000)) throw Object.assign(new RangeError(`SimulatorSource: maxTickMs must be in (0, 1000], got ${this.#maxTickMs}`), { code: 'ERR_SIM_OPTION' });
   }
 
   /**
@@ -92,7 +104,8 @@ export class SimulatorSource {
   #tick(): void {
     const sim = this.#sim;
     const frames = sim.blockFrames;
-    const elapsedSamples = Math.floor(((this.#now() - this.#startMs) / 1000) * sim.sampleRateHz);
+    const tickStart = this.#now();
+    const elapsedSamples = Math.floor(((tickStart - this.#startMs) / 1000) * sim.sampleRateHz);
     let due = Math.floor((elapsedSamples - this.#accounted) / frames);
     if (due > this.#maxBurstBlocks) {
       const skipped = (due - this.#maxBurstBlocks) * frames;
@@ -104,6 +117,11 @@ export class SimulatorSource {
     for (let k = 0; k < due; k++) {
       const sink = this.#sink;
       if (sink === null) return; // stopped by the sink itself
+      // The tick's time is up: the rest stays due for the next tick (or is skipped if it grows).
+      if (k > 0 && this.#now() - tickStart >= this.#maxTickMs) {
+        this.#stats.yields++;
+        return;
+      }
       const block = sim.next();
       this.#accounted += frames;
       this.#stats.blocks += 1;

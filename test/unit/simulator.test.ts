@@ -10,7 +10,7 @@ import { spawnSync } from 'node:child_process';
 import { readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import FFT from 'fft.js';
-import { describe, expect, it } from 'vitest';
+import { describe, expect, it, vi } from 'vitest';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { BandNoise } from '../../server/ingest/band-noise.ts';
 import { accumulateDelayed, accumulateInteger, besselI0, DelayLine, FractionalDelay } from '../../server/ingest/fractional-delay.ts';
@@ -18,6 +18,7 @@ import { Prng } from '../../server/ingest/prng.ts';
 import { TARNWICK_YARD, type TonalSpec } from '../../server/ingest/scenario.ts';
 import { SceneSimulator, SimulatorSource } from '../../server/ingest/simulator.ts';
 import { TonalSource } from '../../server/ingest/tonal.ts';
+import { simulatorBlockFrames } from '../../server/service.ts';
 
 const ROOT = fileURLToPath(new URL('../../', import.meta.url));
 const FS_HZ = 48000;
@@ -582,12 +583,63 @@ describe('SimulatorSource', () => {
     await new Promise((r) => setTimeout(r, 60));
     src.stop();
     // 3.5 s = 350 blocks due; 100 (1 s) rendered, 250 skipped.
-    expect(src.stats()).toEqual({ blocks: 100, samples: 48000, skippedSamples: 250 * 480 });
+    expect(src.stats()).toEqual({ blocks: 100, samples: 48000, skippedSamples: 250 * 480, yields: 0 });
     expect(got[0]).toMatchObject({ sampleIndex: 250 * 480, discontinuity: true });
     got.slice(1).forEach((b, i) => {
       expect(b.sampleIndex).toBe((251 + i) * 480);
       expect(b.discontinuity).toBe(false);
     });
+  });
+
+  it('a scene slower than real time never holds the server longer than a tick: it yields, then skips the backlog', () => {
+    // A generator that takes 30 ms of the (fake) clock per block: three times slower than real time.
+    let nowMs = 0;
+    const slow = {
+      sampleRateHz: FS_HZ,
+      blockFrames: 480,
+      index: 0,
+      next(): Block {
+        nowMs += 30;
+        const b = { streamId: 0, sampleIndex: this.index, sampleRateHz: FS_HZ, channels: 1, frames: 480, data: new Float32Array(480), gap: false, discontinuity: this.jumped };
+        this.jumped = false;
+        this.index += 480;
+        return b;
+      },
+      jumped: false,
+      skip(frames: number) {
+        this.index += frames;
+        this.jumped = true;
+      },
+    };
+    vi.useFakeTimers();
+    const src = new SimulatorSource(slow, { now: () => nowMs, maxTickMs: 20, maxCatchUpS: 0.5 });
+    const perTick: number[] = [];
+    let inTick = 0;
+    try {
+      src.start(() => inTick++);
+      for (let t = 0; t < 60; t++) {
+        inTick = 0;
+        nowMs += 5; // the wall clock between ticks
+        vi.advanceTimersByTime(5); // exactly one tick of the 5 ms timer
+        perTick.push(inTick);
+      }
+    } finally {
+      src.stop();
+      vi.useRealTimers();
+    }
+    // A tick renders one block (30 ms ≥ the 20 ms budget) and yields; the clock runs faster than
+    // the rendering, so the backlog passes 0.5 s and is skipped, flagged on the next block.
+    expect(Math.max(...perTick)).toBe(1);
+    const st = src.stats();
+    expect(st.yields).toBeGreaterThan(0);
+    expect(st.skippedSamples).toBeGreaterThan(0);
+    expect(st.skippedSamples % 480).toBe(0);
+    expect(st.samples + st.skippedSamples).toBeLessThanOrEqual(Math.floor(nowMs / 1000 * FS_HZ));
+  });
+
+  it('blocks are shortened for large arrays so one render stays short: 480 up to 64 channels, then in proportion, at least 32', () => {
+    expect([24, 64, 128, 256, 1024].map((m) => simulatorBlockFrames(480, m))).toEqual([480, 480, 240, 120, 32]);
+    expect(simulatorBlockFrames(100, 512)).toBe(32);
   });
 
   it('a throwing sink stops the source and is reported once', async () => {
