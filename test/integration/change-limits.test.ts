@@ -48,7 +48,9 @@ describe('changes the engine cannot plan', () => {
     await waitFor(() => s.engine.rows >= 5, 20_000, 'rows before');
     const before = (await call(s, 'GET', '/api/processing')).json;
 
+    const t0 = performance.now();
     const refused = await call(s, 'PATCH', '/api/processing', HUGE);
+    console.log(`oversized change (17 951 directions, FFT 4096) answered ${refused.status} in ${(performance.now() - t0).toFixed(1)} ms`);
     expect(refused.status).toBe(422);
     expect(refused.json.error.code).toBe('ERR_HTTP_PLAN_TOO_LARGE');
     // 4096-point FFT at 48 kHz: bins 26–512 of the 300–6000 Hz band (487), 17 951 directions,
