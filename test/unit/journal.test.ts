@@ -104,7 +104,7 @@ describe('ParameterJournal', () => {
     mkdirSync(join(dir2, JOURNAL_OLD_FILE));
     writeFileSync(join(dir2, JOURNAL_FILE), `${JSON.stringify(good)}\n`);
     const k = new ParameterJournal(dir2);
-    expect(k.readError).toBe("EISDIR: illegal operation on a directory, read");
+    expect(k.readError).toBe('illegal operation on a directory (EISDIR)');
     expect(k.readError).not.toContain(dir2);
     expect(k.query()).toEqual([good]);
   });
