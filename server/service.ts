@@ -85,6 +85,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         sampleRateHz: config.input.sampleRateHz,
         channels,
         encodings: config.input.encodings,
+        maxFloatLevelDbfs: config.input.maxFloatLevelDbfs,
         streamId: config.input.streamId,
         maxStreams: config.ingest.maxStreams,
         sequencer: {

@@ -134,8 +134,24 @@ export function decodeFrame(bytes: Uint8Array): DecodeResult {
  * @returns false if a float32 payload holds NaN or ±∞ (out is then partly written and must be discarded)
  */
 export function decodeSamples(frame: DecodedFrame, out: Float32Array): boolean {
-  return decodeInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out);
+  return convertInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out, Infinity) === 'ok';
 }
+
+/** Outcome of a checked sample conversion: the samples are usable, or why not. */
+export type SampleCheck = 'ok' | 'non_finite' | 'beyond_bound';
+
+/**
+ * Like {@link decodeSamples}, and float32 samples must also satisfy |x| ≤ maxAbs (full-scale
+ * units; e.g. 1000 for +60 dBFS). Integer encodings cannot exceed full scale, so the bound only
+ * applies to float32. The first offending sample decides the answer.
+ * @param out length ≥ channels·samplesPerChannel, planar; partly written when the answer is not 'ok'
+ */
+export function decodeSamplesChecked(frame: DecodedFrame, out: Float32Array, maxAbs = Infinity): SampleCheck {
+  return convertInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out, maxAbs);
+}
+
+/** Largest finite float32, (2 − 2^−23)·2^127 (IEEE 754 binary32). */
+const FLOAT32_MAX = 3.4028234663852886e38;
 
 /** True when this machine stores numbers little-endian (typed arrays use the host's order). */
 const LITTLE_ENDIAN_HOST = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
@@ -148,9 +164,17 @@ const LITTLE_ENDIAN_HOST = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
  * @returns false if float32 input holds NaN or ±∞
  */
 export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: number, encoding: SampleEncoding, out: Float32Array): boolean {
+  return convertInterleaved(bytes, channels, frames, encoding, out, Infinity) === 'ok';
+}
+
+/** The one conversion loop behind the decoders above; float32 samples must be finite and |x| ≤ maxAbs. */
+function convertInterleaved(bytes: Uint8Array, channels: number, frames: number, encoding: SampleEncoding, out: Float32Array, maxAbs: number): SampleCheck {
   const m = channels;
   const n = frames;
   const payload = bytes;
+  // ±∞ lie beyond the largest float32, so this one range test also refuses them (and NaN, which
+  // fails every comparison); which of the two it was is sorted out only for the refused sample.
+  const bound = Math.min(maxAbs, FLOAT32_MAX);
   // Typed-array views read the little-endian samples directly when the host is little-endian and
   // the payload is aligned; otherwise the DataView reads below.
   if (LITTLE_ENDIAN_HOST && encoding === 'float32' && payload.byteOffset % 4 === 0) {
@@ -158,23 +182,23 @@ export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: n
     for (let i = 0, p = 0; i < n; i++) {
       for (let c = 0; c < m; c++, p++) {
         const v = f[p];
-        if (v - v !== 0) return false; // NaN or ±Infinity
+        if (!(v <= bound && v >= -bound)) return v - v !== 0 ? 'non_finite' : 'beyond_bound';
         out[c * n + i] = v;
       }
     }
-    return true;
+    return 'ok';
   }
   if (LITTLE_ENDIAN_HOST && encoding === 'int16' && payload.byteOffset % 2 === 0) {
     const q = new Int16Array(payload.buffer, payload.byteOffset, m * n);
     for (let i = 0, p = 0; i < n; i++) for (let c = 0; c < m; c++, p++) out[c * n + i] = q[p] / 32768;
-    return true;
+    return 'ok';
   }
   const dv = new DataView(payload.buffer, payload.byteOffset, payload.byteLength);
   let p = 0;
   switch (encoding) {
     case 'int16':
       for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 2) out[c * n + i] = dv.getInt16(p, true) / 32768;
-      return true;
+      return 'ok';
     case 'int24':
       for (let i = 0; i < n; i++) {
         for (let c = 0; c < m; c++, p += 3) {
@@ -182,19 +206,19 @@ export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: n
           out[c * n + i] = ((u << 8) >> 8) / 8388608;
         }
       }
-      return true;
+      return 'ok';
     case 'int32':
       for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 4) out[c * n + i] = dv.getInt32(p, true) / 2147483648;
-      return true;
+      return 'ok';
     case 'float32':
       for (let i = 0; i < n; i++) {
         for (let c = 0; c < m; c++, p += 4) {
           const v = dv.getFloat32(p, true);
-          if (!Number.isFinite(v)) return false;
+          if (!(v <= bound && v >= -bound)) return v - v !== 0 ? 'non_finite' : 'beyond_bound';
           out[c * n + i] = v;
         }
       }
-      return true;
+      return 'ok';
   }
 }
 

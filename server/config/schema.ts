@@ -52,6 +52,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
         sampleRateHz: { kind: 'int', min: 8000, max: 384000, doc: 'Sample rate every stream must carry; other rates are rejected and counted.' },
         encodings: { kind: 'enumList', values: ENCODINGS, minItems: 1, doc: 'Sample encodings accepted; frames in others are rejected and counted.' },
         streamId: { kind: 'int', min: 0, max: 0xffffffff, nullable: true, doc: 'Only this stream id is processed (others are counted and dropped); null = the first stream that arrives.' },
+        maxFloatLevelDbfs: { kind: 'number', min: 0, max: 771, doc: 'A float32 sample above this level (20·log10|x|, full scale 0 dBFS; +60 = 1000) refuses its frame, counted `beyond_bound`. Integer samples cannot exceed 0 dBFS.' },
       },
     },
     ingest: {
@@ -141,7 +142,7 @@ export interface Config {
   access: { openStatus: boolean; controlRatePerS: number; controlBurst: number };
   source: { kind: 'simulator' | 'network' };
   array: { file: string };
-  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null };
+  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null; maxFloatLevelDbfs: number };
   ingest: {
     udp: { enabled: boolean; port: number; receiveBufferBytes: number };
     websocket: { enabled: boolean; path: string; maxMessageBytes: number; maxConnections: number };

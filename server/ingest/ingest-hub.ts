@@ -10,14 +10,14 @@
  * Only the selected stream (config input.streamId, or the first stream with
  * an accepted frame) feeds the block sink; the others are sequenced and counted so status shows them.
  */
-import { decodeFrame, decodeSamples, FRAME_REJECT_REASONS, type SampleEncoding } from '../../shared/frame.ts';
+import { decodeFrame, decodeSamplesChecked, FRAME_REJECT_REASONS, type SampleEncoding } from '../../shared/frame.ts';
 import type { BlockSink } from '../../shared/types.ts';
 import { Sequencer, type SequencerCounters, type SequencerOptions } from './sequencer.ts';
 
 export type Transport = 'udp' | 'websocket';
 
 /** Reasons a decodable frame is refused for its stream. */
-export const STREAM_REJECT_REASONS = ['rate_mismatch', 'channel_mismatch', 'encoding_mismatch', 'non_finite', 'out_of_range'] as const;
+export const STREAM_REJECT_REASONS = ['rate_mismatch', 'channel_mismatch', 'encoding_mismatch', 'non_finite', 'beyond_bound', 'out_of_range'] as const;
 export type StreamRejectReason = (typeof STREAM_REJECT_REASONS)[number];
 /** Reasons a message is refused before it reaches a stream. */
 export const INGEST_REJECT_REASONS = [...FRAME_REJECT_REASONS.filter((r) => r !== 'non_finite'), 'too_many_streams', 'not_binary', 'too_large'] as const;
@@ -27,6 +27,11 @@ export interface IngestHubOptions {
   sampleRateHz: number;
   channels: number;
   encodings: readonly SampleEncoding[];
+  /**
+   * Float32 samples above this level (20·log10|x| dBFS, full scale = 0 dBFS) refuse their frame as
+   * `beyond_bound`: finite but absurd values would swamp every covariance they enter.
+   */
+  maxFloatLevelDbfs: number;
   /** Only this stream feeds the sink; null = the first stream with an accepted frame. */
   streamId: number | null;
   maxStreams: number;
@@ -111,10 +116,13 @@ export class IngestHub {
   readonly #sink: BlockSink;
   readonly #streams = new Map<number, StreamState>();
   readonly #t0Ms: number;
+  /** The float32 bound as an amplitude, full-scale units. */
+  readonly #maxFloatAbs: number;
   #selected: number | null;
 
   constructor(opts: IngestHubOptions, sink: BlockSink, nowMs = performance.now()) {
     this.#opts = opts;
+    this.#maxFloatAbs = 10 ** (opts.maxFloatLevelDbfs / 20);
     this.#sink = sink;
     this.#selected = opts.streamId;
     this.#t0Ms = nowMs;
@@ -156,7 +164,9 @@ export class IngestHub {
     let data: Float32Array | null = null;
     if (why === null) {
       data = new Float32Array(f.channels * f.samplesPerChannel);
-      if (!decodeSamples(f, data)) [why, detail] = ['non_finite', 'float32 payload holds NaN or ±Infinity'];
+      const check = decodeSamplesChecked(f, data, this.#maxFloatAbs);
+      if (check === 'non_finite') [why, detail] = ['non_finite', 'float32 payload holds NaN or ±Infinity'];
+      else if (check === 'beyond_bound') [why, detail] = ['beyond_bound', `float32 sample beyond ${o.maxFloatLevelDbfs} dBFS (|x| > ${this.#maxFloatAbs.toPrecision(6)} full scale)`];
     }
     if (why !== null || data === null) {
       st.rejected[why!]++;
