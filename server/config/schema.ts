@@ -78,6 +78,9 @@ export const CONFIG_SCHEMA: FieldSpec = {
         reorderWindowFrames: { kind: 'int', min: 1, max: 1024, doc: 'Frames held while waiting for a missing one; when full, the gap is zero-filled.' },
         reorderHoldMs: { kind: 'int', min: 0, max: 10000, doc: 'Longest a frame waits for a missing predecessor before the gap is zero-filled.' },
         maxGapSeconds: { kind: 'number', min: 0.01, max: 3600, doc: 'Larger clock jumps resynchronise the stream (flagged discontinuity) instead of zero-filling.' },
+        jumpToleranceSeconds: { kind: 'number', min: 0, max: 60, doc: 'Zero-fill beyond the wall-clock time since the previous frame, at most; earned back by data received. A frame further ahead is dropped (`ahead_of_clock`) unless the next frame confirms it, which resynchronises the stream.' },
+        resyncLimit: { kind: 'int', min: 1, max: 1000, doc: 'Resynchronisations allowed within ingest.resyncWindowSeconds; beyond them confirmed far-off frames are dropped (`resync_limited`) and status reports a resync storm.' },
+        resyncWindowSeconds: { kind: 'number', min: 0, max: 86400, doc: 'The window of ingest.resyncLimit, seconds.' },
         maxStreams: { kind: 'int', min: 1, max: 256, doc: 'Streams tracked at once; frames of further stream ids are rejected and counted.' },
       },
     },
@@ -149,6 +152,9 @@ export interface Config {
     reorderWindowFrames: number;
     reorderHoldMs: number;
     maxGapSeconds: number;
+    jumpToleranceSeconds: number;
+    resyncLimit: number;
+    resyncWindowSeconds: number;
     maxStreams: number;
   };
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number };

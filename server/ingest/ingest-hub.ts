@@ -17,8 +17,16 @@ import { Sequencer, type SequencerCounters, type SequencerOptions } from './sequ
 export type Transport = 'udp' | 'websocket';
 
 /** Reasons a decodable frame is refused for its stream. */
-export const STREAM_REJECT_REASONS = ['rate_mismatch', 'channel_mismatch', 'encoding_mismatch', 'non_finite', 'beyond_bound', 'out_of_range'] as const;
+export const STREAM_REJECT_REASONS = ['rate_mismatch', 'channel_mismatch', 'encoding_mismatch', 'non_finite', 'beyond_bound', 'out_of_range', 'ahead_of_clock', 'resync_limited'] as const;
 export type StreamRejectReason = (typeof STREAM_REJECT_REASONS)[number];
+/** The reasons the sequencer counts (the others are decided here, before sequencing). */
+const SEQUENCER_REASONS = { out_of_range: 'outOfRange', ahead_of_clock: 'aheadOfClock', resync_limited: 'resyncLimited' } as const satisfies Partial<Record<StreamRejectReason, keyof SequencerCounters>>;
+type SequencerReason = keyof typeof SEQUENCER_REASONS;
+const SEQUENCER_DETAIL: Record<SequencerReason, string> = {
+  out_of_range: "is far from the stream's clock (beyond ingest.maxGapSeconds)",
+  ahead_of_clock: 'is further ahead than the wall clock allows (ingest.jumpToleranceSeconds) and no following frame confirmed it',
+  resync_limited: 'belongs to a confirmed jump while resyncs are at ingest.resyncLimit',
+};
 /** Reasons a message is refused before it reaches a stream. */
 export const INGEST_REJECT_REASONS = [...FRAME_REJECT_REASONS.filter((r) => r !== 'non_finite'), 'too_many_streams', 'not_binary', 'too_large'] as const;
 export type IngestRejectReason = (typeof INGEST_REJECT_REASONS)[number];
@@ -47,7 +55,14 @@ export interface RejectNote {
   atS: number;
 }
 
-export interface StreamStatus extends Omit<SequencerCounters, 'outOfRange'> {
+/** A resync storm in status: times in seconds since the hub started. */
+export interface StormStatus {
+  sinceS: number;
+  lastS: number;
+  framesDropped: number;
+}
+
+export interface StreamStatus extends Omit<SequencerCounters, 'outOfRange' | 'aheadOfClock' | 'resyncLimited'> {
   streamId: number;
   selected: boolean;
   transport: Transport | 'simulator';
@@ -58,6 +73,8 @@ export interface StreamStatus extends Omit<SequencerCounters, 'outOfRange'> {
   firstSample: number | null;
   nextSample: number | null;
   rejected: Record<StreamRejectReason, number>;
+  /** Confirmed jumps being refused at the resync limit (null when none within the window). */
+  resyncStorm: StormStatus | null;
   inputRateHz: number;
   lastFrameAgoS: number | null;
 }
@@ -176,10 +193,14 @@ export class IngestHub {
     st.remote = remote;
     st.encoding = f.encoding;
     if (st.firstSample === null) st.firstSample = f.firstSample;
-    const before = st.sequencer.counters.outOfRange;
+    const sc = st.sequencer.counters;
+    const far = sc.outOfRange;
+    const ahead = sc.aheadOfClock;
+    const limited = sc.resyncLimited;
     st.sequencer.push({ sequence: f.sequence, firstSample: f.firstSample, frames: f.samplesPerChannel, data }, nowMs);
-    if (st.sequencer.counters.outOfRange !== before) {
-      this.lastRejected = { reason: 'out_of_range', detail: `firstSample ${f.firstSample} is far from the stream's clock`, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
+    const dropped: SequencerReason | null = sc.resyncLimited > limited ? 'resync_limited' : sc.aheadOfClock > ahead ? 'ahead_of_clock' : sc.outOfRange > far ? 'out_of_range' : null;
+    if (dropped !== null) {
+      this.lastRejected = { reason: dropped, detail: `firstSample ${f.firstSample} ${SEQUENCER_DETAIL[dropped]}`, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
     }
     st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
   }
@@ -199,8 +220,9 @@ export class IngestHub {
 
   status(nowMs = performance.now()): StreamStatus[] {
     return [...this.#streams.values()].map((st) => {
-      const { outOfRange, ...counters } = st.sequencer.counters;
+      const { outOfRange, aheadOfClock, resyncLimited, ...counters } = st.sequencer.counters;
       const next = st.sequencer.nextSample;
+      const storm = st.sequencer.stormAt(nowMs);
       return {
         streamId: st.streamId,
         selected: st.streamId === this.#selected,
@@ -212,7 +234,8 @@ export class IngestHub {
         firstSample: st.firstSample,
         nextSample: next < 0 ? null : next,
         ...counters,
-        rejected: { ...st.rejected, out_of_range: outOfRange },
+        rejected: { ...st.rejected, out_of_range: outOfRange, ahead_of_clock: aheadOfClock, resync_limited: resyncLimited },
+        resyncStorm: storm === null ? null : { sinceS: (storm.sinceMs - this.#t0Ms) / 1000, lastS: (storm.lastMs - this.#t0Ms) / 1000, framesDropped: storm.framesDropped },
         inputRateHz: st.meter.rate(nowMs),
         lastFrameAgoS: st.lastFrameMs === null ? null : (nowMs - st.lastFrameMs) / 1000,
       };
@@ -227,7 +250,7 @@ export class IngestHub {
       if (!idle) return null;
       this.#streams.delete(idle.streamId);
       // Keep its counts: the messages were refused and must stay counted once.
-      for (const r of STREAM_REJECT_REASONS) this.rejected[r] += r === 'out_of_range' ? idle.sequencer.counters.outOfRange : idle.rejected[r];
+      for (const r of STREAM_REJECT_REASONS) this.rejected[r] += r in SEQUENCER_REASONS ? idle.sequencer.counters[SEQUENCER_REASONS[r as SequencerReason]] : idle.rejected[r];
     }
     const st = new StreamState(id, transport, remote, () =>
       new Sequencer(id, this.#opts.sampleRateHz, this.#opts.channels, this.#opts.sequencer, (block) => {
