@@ -15,16 +15,19 @@
  * gap ahead of the furthest position so far only up to
  *   (time since the previous placed frame arrived)·fs·(1 + WALL_SLACK) + credit,
  * where the credit starts at `jumpToleranceSamples`, pays for the part of each gap the wall clock
- * does not cover, and is earned back one sample per data sample received (never above the
- * tolerance). So a stream at real time zero-fills any outage, a fast replay zero-fills its losses
- * as long as they stay below its data, and a few datagrams cannot create more zeros than the
- * tolerance plus the data they carry. A frame further ahead is `ahead_of_clock`: dropped, unless
+ * does not cover, and is earned back FILL_PER_DATA_SAMPLE samples per data sample received (never
+ * above the tolerance). So a stream at real time zero-fills any outage, a fast replay zero-fills
+ * its losses up to 90 % of its frames, and a few datagrams cannot create more zeros than the
+ * tolerance plus nine times the samples they carry. A frame further ahead is `ahead_of_clock`: dropped, unless
  * the next frame continues it (sequence +1, contiguous), which confirms a jump: the stream then
  * resynchronises to it (a `discontinuity`, no zeros), as for a jump beyond `maxGapSamples`.
  *
  * Resynchronisations are limited to `resyncLimit` within any `resyncWindowMs`; beyond that a
  * confirmed far-off run is dropped (`resync_limited`) and the sequencer reports a resync storm
  * (since when, frames dropped) instead of breaking the timeline (and any recording) each time.
+ * During a storm a timeline that has received nothing for resyncWindowMs / resyncLimit may still
+ * be left for a confirmed run, at most once per that time: a live timeline is kept, a dead one is
+ * not held on to for a whole window.
  */
 import type { Block, BlockSink } from '../../shared/types.ts';
 
@@ -66,6 +69,13 @@ export const DEFAULT_SEQUENCER_OPTIONS: SequencerOptions = {
  * wall clock justifies (1 + WALL_SLACK)·fs samples per second.
  */
 export const WALL_SLACK = 0.02;
+
+/**
+ * Zero-fill credit earned per data sample received. A stream faster than real time (a replay) that
+ * loses frames is zero-filled while it loses less than FILL_PER_DATA_SAMPLE / (1 + FILL_PER_DATA_SAMPLE)
+ * (90 %) of them; a sender's own datagrams can buy at most this many zeros per sample they carry.
+ */
+export const FILL_PER_DATA_SAMPLE = 9;
 
 /** A resync storm: confirmed far-off runs refused because the resync limit was reached. */
 export interface ResyncStorm {
@@ -252,7 +262,7 @@ export class Sequencer {
       return;
     }
     // Placed: pay for the gap it opens, earn credit for its data (never above the tolerance).
-    this.#credit = Math.min(this.#opts.jumpToleranceSamples, this.#credit - unpaid + frame.frames);
+    this.#credit = Math.min(this.#opts.jumpToleranceSamples, this.#credit - unpaid + FILL_PER_DATA_SAMPLE * frame.frames);
     if (nowMs > this.#lastPlacedMs) this.#lastPlacedMs = nowMs;
     // Reordered: its sequence number is below one seen before it (the RFC 4737 sense). A frame that
     // lands beyond every position seen so far is in order whatever its number: a sequence that went
@@ -353,9 +363,19 @@ export class Sequencer {
     return dt > 0 ? dt * this.#samplesPerMs : 0;
   }
 
-  /** Whether a resync now stays within resyncLimit in the window. */
+  /**
+   * Whether a resync may happen now: while fewer than resyncLimit happened in the window; beyond
+   * that, only away from a timeline that has had no frame for window/limit, and no sooner than
+   * window/limit after the last resync (a stream whose sender jumped for good is not dropped for a
+   * whole window, and a live timeline is never taken away during a storm).
+   */
   #resyncAllowed(nowMs: number): boolean {
-    return nowMs - this.#resyncTimes[this.#resyncNext] >= this.#opts.resyncWindowMs;
+    const times = this.#resyncTimes;
+    const windowMs = this.#opts.resyncWindowMs;
+    if (nowMs - times[this.#resyncNext] >= windowMs) return true;
+    const spacingMs = windowMs / times.length;
+    const lastMs = times[(this.#resyncNext + times.length - 1) % times.length];
+    return nowMs - this.#lastPlacedMs >= spacingMs && nowMs - lastMs >= spacingMs;
   }
 
   #farFrame(frame: SequencedFrame, nowMs: number, kind: 'outOfRange' | 'aheadOfClock'): void {

@@ -295,8 +295,8 @@ describe('Sequencer: zero-fill bounded by the wall clock', () => {
     const step = 0.9 * FS;
     for (let j = 1; j <= 50; j++) s.push(frame(20 + j * 1000, 20 * N + j * step), t + j * 0.5);
     s.flush();
-    // Zeros at most: wall clock passed (25 ms) + the tolerance (1 s) + one sample per data sample received.
-    const bound = (0.025 * 1.02 + 1) * FS + 70 * N;
+    // Zeros at most: wall clock passed (25 ms) + the tolerance (1 s) + 9 samples per data sample received.
+    const bound = (0.025 * 1.02 + 1) * FS + 9 * 70 * N;
     expect(s.counters.gapSamples).toBeLessThanOrEqual(bound);
     expect(s.counters.gapSamples).toBeGreaterThan(0); // the first step is within the tolerance
     expect(s.counters.aheadOfClock).toBeGreaterThanOrEqual(9); // steps 2–11, until beyond maxGap
@@ -358,6 +358,50 @@ describe('Sequencer: zero-fill bounded by the wall clock', () => {
     expect(s.resyncStorm).not.toBeNull();
     expect(s.resyncStorm!.framesDropped).toBeGreaterThan(0);
     expect(accounted(s)).toBe(50 + 200 * 4);
+  });
+
+  it('zero-fills a 10× replay losing 83 % of its frames; one losing 95 % stops at the credit (ahead_of_clock)', () => {
+    // Credit: 9 zero samples per data sample (losses up to 9/10 of the frames), at most 1 s banked.
+    for (const keepEvery of [6, 20]) {
+      const { sink } = collector();
+      const s = new Sequencer(1, FS, M, opts, sink);
+      let kept = 0;
+      let lastMs = 0;
+      for (let k = 0; k < 6000; k += k < 50 ? 1 : keepEvery, kept++) s.push(frame(k, k * N), (lastMs = due(k * N, 10)));
+      s.flush();
+      const c = s.counters;
+      expect(c.resyncs, `1 in ${keepEvery}`).toBe(0);
+      if (keepEvery === 6) {
+        expect(c).toMatchObject({ aheadOfClock: 0, framesAccepted: kept, gapSamples: c.framesLost * N });
+      } else {
+        // Zeros at most: the wall clock (with its slack) + the 1 s tolerance + 9 per data sample.
+        expect(c.gapSamples).toBeLessThanOrEqual((lastMs / 1000) * 1.02 * FS + FS + 9 * c.samplesAccepted);
+        expect(c.aheadOfClock).toBeGreaterThan(0);
+        expect(c.framesAccepted + c.aheadOfClock).toBe(kept);
+      }
+    }
+  });
+
+  it('during a storm leaves a timeline that has had no frame for window/limit, not sooner', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    const restart = (base: number, at: number) => {
+      for (let j = 0; j < 3; j++) s.push(frame(j, base + j * N), at + j * 0.1);
+    };
+    s.push(frame(0, 0), 0);
+    s.flush();
+    for (let r = 1; r <= 4; r++) restart(r * 20 * FS, r); // the limit: 4 in 30 s
+    // A sender that jumped for good streams on at real time from 10 ms: refused until the old
+    // timeline has been silent for 30 s / 4 = 7.5 s, then taken (the 5th resync).
+    const base = 200 * FS;
+    const t0 = 10;
+    for (let k = 0; k < (10 * FS) / N; k++) s.push(frame(100 + k, base + k * N), t0 + (k * N * 1000) / FS);
+    s.flush();
+    expect(s.counters.resyncs).toBe(5);
+    const lastOld = 4 + 0.2; // arrival of the last frame placed on the old timeline
+    const firstTaken = Math.ceil(((lastOld + 7500 - t0) * FS) / 1000 / N); // first frame due at or after 7.5 s
+    expect(s.counters.resyncLimited).toBe(firstTaken - 1); // the frame before it is the candidate it confirms
+    expect(blocks[blocks.length - 1].sampleIndex + blocks[blocks.length - 1].frames).toBe(base + ((10 * FS) / N) * N);
   });
 
   it('allows resyncs again once the window has passed', () => {
