@@ -223,6 +223,45 @@ export class Sequencer {
     return this.#storm === null ? null : { ...this.#storm };
   }
 
+  /**
+   * Whether a frame starting at `firstSample` is simply the next one: the stream has started,
+   * nothing is held or pending, and it begins exactly where the output ends. Such a frame needs no
+   * placement; the caller may take its samples itself and report it with {@link acceptNext}.
+   */
+  isNext(firstSample: number): boolean {
+    return this.#next >= 0 && firstSample === this.#next && this.#held.length === 0 && !this.#pendingDiscontinuity;
+  }
+
+  /**
+   * Count a frame for which {@link isNext} held as accepted and advance the output past it, without
+   * emitting a block: the caller publishes its samples (the hub assembles runs of such frames into
+   * one block). Same state and counters as {@link push} would leave.
+   */
+  acceptNext(sequence: number, firstSample: number, frames: number, nowMs: number): void {
+    if (!this.isNext(firstSample) || !(frames >= 1)) throw new RangeError(`frame at ${firstSample} (${frames} samples) is not the next one (${this.#next})`);
+    this.#resyncCandidate = null;
+    this.#placed(frames, 0, nowMs);
+    // In order by construction: it starts at the end of everything seen so far.
+    this.#maxSeq = sequence;
+    const end = firstSample + frames;
+    if (end > this.#maxEnd) this.#maxEnd = end;
+    this.#accepted(sequence, frames);
+    this.#next = end;
+  }
+
+  /** A frame is placed on the timeline: it pays for the gap it opens and earns credit for its data. */
+  #placed(frames: number, unpaid: number, nowMs: number): void {
+    this.#credit = Math.min(this.#opts.jumpToleranceSamples, this.#credit - unpaid + FILL_PER_DATA_SAMPLE * frames);
+    if (nowMs > this.#lastPlacedMs) this.#lastPlacedMs = nowMs;
+  }
+
+  /** A frame's samples (`frames` of them, after any trimmed head) reach the output. */
+  #accepted(sequence: number, frames: number): void {
+    this.counters.framesAccepted++;
+    this.counters.samplesAccepted += frames;
+    this.#nextSeq = (sequence + 1) % U32;
+  }
+
   /** Take one decoded frame. `nowMs` is a monotonic clock (performance.now()). */
   push(frame: SequencedFrame, nowMs: number): void {
     const c = this.counters;
@@ -261,9 +300,7 @@ export class Sequencer {
       c.framesDuplicated++;
       return;
     }
-    // Placed: pay for the gap it opens, earn credit for its data (never above the tolerance).
-    this.#credit = Math.min(this.#opts.jumpToleranceSamples, this.#credit - unpaid + FILL_PER_DATA_SAMPLE * frame.frames);
-    if (nowMs > this.#lastPlacedMs) this.#lastPlacedMs = nowMs;
+    this.#placed(frame.frames, unpaid, nowMs);
     // Reordered: its sequence number is below one seen before it (the RFC 4737 sense). A frame that
     // lands beyond every position seen so far is in order whatever its number: a sequence that went
     // backwards there is a sender that reset its counter (placement is by sample index).
@@ -482,8 +519,6 @@ export class Sequencer {
   }
 
   #emitData(f: SequencedFrame, skip: number): void {
-    const c = this.counters;
-    c.framesAccepted++;
     let data = f.data;
     let frames = f.frames;
     if (skip > 0) {
@@ -493,8 +528,7 @@ export class Sequencer {
         data.set(f.data.subarray(ch * f.frames + skip, (ch + 1) * f.frames), ch * frames);
       }
     }
-    c.samplesAccepted += frames;
-    this.#nextSeq = (f.sequence + 1) % U32;
+    this.#accepted(f.sequence, frames);
     this.#emit(f.firstSample + skip, frames, data, false);
   }
 

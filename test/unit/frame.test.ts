@@ -5,6 +5,7 @@ import {
   decodeInterleaved,
   decodeSamples,
   decodeSamplesChecked,
+  decodeSamplesInto,
   encodeFrame,
   encodeFrameRaw,
   FRAME_HEADER_BYTES,
@@ -126,6 +127,39 @@ describe('frame codec', () => {
     const big = decoded(encodeFrame({ ...H, channels: 1, samplesPerChannel: 2, encoding: 'float32' }, [3e38, -3e38]));
     expect(decodeSamplesChecked(big, new Float32Array(2))).toBe('ok');
     expect(decodeSamples(big, new Float32Array(2))).toBe(true);
+  });
+
+  it('decodes into a wider planar buffer at an offset exactly as into its own', () => {
+    for (const enc of SAMPLE_ENCODINGS) {
+      const m = 3;
+      const n = 5;
+      const x = Array.from({ length: m * n }, (_, k) => Math.sin(k) * 0.7);
+      const f = decoded(encodeFrame({ ...H, channels: m, samplesPerChannel: n, encoding: enc }, x));
+      const own = new Float32Array(m * n);
+      expect(decodeSamplesChecked(f, own, 1000)).toBe('ok');
+      const stride = 16;
+      const wide = new Float32Array(m * stride).fill(-9);
+      expect(decodeSamplesInto(f, wide, stride, 7, 1000)).toBe('ok');
+      for (let c = 0; c < m; c++) {
+        for (let i = 0; i < stride; i++) expect(wide[c * stride + i]).toBe(i >= 7 && i < 7 + n ? own[c * n + i - 7] : -9);
+      }
+      expect(() => decodeSamplesInto(f, wide, stride, 12, 1000)).toThrow(RangeError); // 12 + 5 > 16
+    }
+  });
+
+  it('reads firstSample up to 2^53 − 1 exactly and refuses 2^53', () => {
+    const at = (v: bigint) => {
+      const b = encodeFrame(H, [0, 0, 0, 0]);
+      new DataView(b.buffer).setBigUint64(16, v, true);
+      return decodeFrame(b);
+    };
+    const ok = at(2n ** 53n - 1n);
+    expect(ok.ok && ok.frame.firstSample).toBe(2 ** 53 - 1);
+    const mid = at(2n ** 32n + 5n); // both halves of the field in use
+    expect(mid.ok && mid.frame.firstSample).toBe(2 ** 32 + 5);
+    const over = at(2n ** 53n);
+    expect(over.ok).toBe(false);
+    if (!over.ok) expect(over.detail).toMatch(/9007199254740992/);
   });
 
   it('sign-extends int24 and clips out-of-range input to the encoding range', () => {
