@@ -62,6 +62,21 @@ export interface ServiceOptions {
   logger?: boolean | object;
 }
 
+/** The UDP listener in status: the kernel's figures for its socket (null where not reported) and the receive queue. */
+function udpStatus(udp: UdpIngest, queueBytes: number): Record<string, unknown> {
+  const k = udp.kernel();
+  return {
+    port: udp.port,
+    receiveBufferBytes: udp.receiveBufferBytes,
+    kernelDrops: k ? k.drops : null,
+    kernelQueuedBytes: k ? k.queuedBytes : null,
+    queueBytes,
+    queuedBytes: udp.queuedBytes,
+    queueDrops: udp.queueDrops,
+    receiverRestarts: udp.receiverRestarts,
+  };
+}
+
 function urlHost(host: string): string {
   return host.includes(':') && !host.startsWith('[') ? `[${host}]` : host;
 }
@@ -228,7 +243,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
       listeners: {
         http: { host: config.server.host, port: httpPort },
-        udp: udp ? { port: udp.port, receiveBufferBytes: udp.receiveBufferBytes } : null,
+        udp: udp ? udpStatus(udp, config.ingest.udp.queueBytes) : null,
         websocket: wsIngest ? { path: config.ingest.websocket.path, connections: wsIngest.connections } : null,
       },
       ingest: hub ? { messages: hub.messages, rejected: hub.rejected, lastRejected: hub.lastRejected } : null,
@@ -433,7 +448,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     await app.listen({ host: config.server.host, port: config.server.httpPort });
     httpPort = (app.server.address() as { port: number }).port;
     if (hub && config.ingest.udp.enabled) {
-      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, config.ingest.udp.receiveBufferBytes);
+      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, { receiveBufferBytes: config.ingest.udp.receiveBufferBytes, queueBytes: config.ingest.udp.queueBytes });
     }
   } catch (e) {
     await app.close();

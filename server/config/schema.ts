@@ -63,7 +63,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
           fields: {
             enabled: { kind: 'bool', doc: 'Listen for frames on UDP (network source only).' },
             port: { kind: 'int', min: 0, max: 65535, doc: 'UDP port; 0 picks a free port (printed at start).' },
-            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer (SO_RCVBUF); a short burst beyond it is lost in the kernel.' },
+            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer (SO_RCVBUF; Linux grants at most net.core.rmem_max); a burst beyond it is lost in the kernel, counted in status as `listeners.udp.kernelDrops`.' },
+            queueBytes: { kind: 'int', min: 1048576, max: 1073741824, doc: 'Queue between the UDP receive thread and the service thread; it absorbs stalls of the service thread. When full a datagram is dropped and counted `queue_full`.' },
           },
         },
         websocket: {
@@ -147,7 +148,7 @@ export interface Config {
   array: { file: string };
   input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null; maxFloatLevelDbfs: number };
   ingest: {
-    udp: { enabled: boolean; port: number; receiveBufferBytes: number };
+    udp: { enabled: boolean; port: number; receiveBufferBytes: number; queueBytes: number };
     websocket: { enabled: boolean; path: string; maxMessageBytes: number; maxConnections: number };
     reorderWindowFrames: number;
     reorderHoldMs: number;

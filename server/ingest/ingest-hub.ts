@@ -31,7 +31,7 @@ const SEQUENCER_DETAIL: Record<SequencerReason, string> = {
   resync_limited: 'belongs to a confirmed jump while resyncs are at ingest.resyncLimit',
 };
 /** Reasons a message is refused before it reaches a stream. */
-export const INGEST_REJECT_REASONS = [...FRAME_REJECT_REASONS.filter((r) => r !== 'non_finite'), 'too_many_streams', 'not_binary', 'too_large'] as const;
+export const INGEST_REJECT_REASONS = [...FRAME_REJECT_REASONS.filter((r) => r !== 'non_finite'), 'too_many_streams', 'not_binary', 'too_large', 'queue_full'] as const;
 export type IngestRejectReason = (typeof INGEST_REJECT_REASONS)[number];
 
 export interface IngestHubOptions {
@@ -164,10 +164,10 @@ export class IngestHub {
     return this.#selected;
   }
 
-  /** Count a message refused by its transport before decoding (text message, oversize). */
-  refuse(reason: IngestRejectReason, detail: string, transport: Transport, nowMs = performance.now()): void {
-    this.messages++;
-    this.rejected[reason]++;
+  /** Count `count` messages refused by their transport before decoding (text message, oversize, queue full). */
+  refuse(reason: IngestRejectReason, detail: string, transport: Transport, nowMs = performance.now(), count = 1): void {
+    this.messages += count;
+    this.rejected[reason] += count;
     this.lastRejected = { reason, detail, transport, streamId: null, atS: (nowMs - this.#t0Ms) / 1000 };
   }
 
