@@ -33,7 +33,7 @@ export function benchIngest(channels: number, encoding: SampleEncoding, fs = 480
   let sink = 0;
   const t = time(() => {
     const hub = new IngestHub(
-      { sampleRateHz: fs, channels, encodings: [encoding], streamId: null, maxStreams: 4, sequencer: DEFAULT_SEQUENCER_OPTIONS },
+      { sampleRateHz: fs, channels, encodings: [encoding], maxFloatLevelDbfs: 60, streamId: null, maxStreams: 4, sequencer: DEFAULT_SEQUENCER_OPTIONS },
       (b) => (sink += b.frames),
       0,
     );

@@ -1,6 +1,7 @@
 /**
  * `npm run bench [-- --workload W32] [--json] [--quick]`: the project's benchmark. A script, not a
- * test: it prints medians and ratios and asserts nothing.
+ * test: it prints medians and ratios and asserts nothing. `--ingest` runs only the ingest benches
+ * (with `--background N`: N busy processes beside the server, standing in for other work).
  *
  * Per workload of ../shared/DESIGN.md §4: the full live engine offline as fast as it goes (rtf,
  * cpu_rtf, one pooled MVDR spectrum update), then paced in real time (row latency), peak RSS; for
@@ -14,15 +15,17 @@ import { join } from 'node:path';
 import { parseArgs } from 'node:util';
 import { PROJECT_CONFIG_DIR } from '../server/config/load.ts';
 import { benchW32Spectrum } from './dsp.ts';
-import { FFT, FS, geometryOf, maxRealtimeMics, paramsFor, runOffline, runPaced, sceneBlocks, WORKLOADS, type Workload } from './engine.ts';
+import { FFT, FS, geometryOf, maxRealtimeMics, paramsFor, ringGeometry, runOffline, runPaced, sceneBlocks, WORKLOADS, type Workload } from './engine.ts';
 import { benchIngest } from './ingest.ts';
+import { ingestLoadBench, type IngestLoadResults } from './ingest-load.ts';
+import { loadGeometry } from '../server/config/array-file.ts';
 import { interleaveInto, runNumpyPeer, writeRawFloat32, type PeerResult } from './peer.ts';
 import { benchSimulator } from './simulator.ts';
 import { peakRssMiB } from './util.ts';
 import { openRaw } from '../server/io/raw.ts';
 import { runTimeline } from '../server/tools/timeline.ts';
 
-const { values } = parseArgs({ options: { json: { type: 'boolean' }, workload: { type: 'string' }, quick: { type: 'boolean' }, workers: { type: 'string' } } });
+const { values } = parseArgs({ options: { json: { type: 'boolean' }, workload: { type: 'string' }, quick: { type: 'boolean' }, workers: { type: 'string' }, ingest: { type: 'boolean' }, background: { type: 'string' } } });
 const workers = values.workers ? Number(values.workers) : availableParallelism();
 const seconds = values.quick ? 3 : 8;
 const say = (s: string) => {
@@ -139,7 +142,21 @@ async function runWorkload(w: Workload, withMics: boolean): Promise<WorkloadResu
   return result;
 }
 
-if (values.workload) {
+/** The ingest benches: the single-thread path, then the live server over UDP from another process. */
+async function runIngest(): Promise<{ ingest: ReturnType<typeof benchIngest>[]; ingestLoad: IngestLoadResults }> {
+  const ingest = [benchIngest(8, 'int24'), benchIngest(24, 'int16'), benchIngest(32, 'float32'), benchIngest(64, 'int24')];
+  say('\ningest (decode + check + sequence, MTU-sized UDP frames, 5 % loss, local reordering), one thread');
+  for (const r of ingest) say(`  ${r.name.padEnd(24)} ${String(r.samplesPerFrame).padStart(3)} samples/frame  ${r.framesPerS.toFixed(0).padStart(7)} frames/s  rtf ${r.rtf.toFixed(4)}`);
+  const ring24 = await loadGeometry(`${PROJECT_CONFIG_DIR}/arrays/ring-24.json`);
+  const ingestLoad = await ingestLoadBench({ quick: values.quick ?? false, background: Number(values.background ?? 0), ring24, ring: ringGeometry, say });
+  return { ingest, ingestLoad };
+}
+
+if (values.ingest) {
+  say(`nullsteer ingest benchmark (${process.version}, ${availableParallelism()} cores)`);
+  const r = await runIngest();
+  if (values.json) console.log(JSON.stringify({ node: process.version, ...r }));
+} else if (values.workload) {
   const w = WORKLOADS.find((x) => x.name === values.workload);
   if (!w) {
     console.error(`unknown workload ${values.workload}; known: ${WORKLOADS.map((x) => x.name).join(', ')}`);
@@ -157,13 +174,11 @@ if (values.workload) {
       `${r.workload.padEnd(8)}${String(r.channels).padStart(4)}${String(r.directions).padStart(6)}${String(r.spectrum_rate_hz).padStart(6)}${r.rtf.toFixed(3).padStart(8)}${r.cpu_rtf.toFixed(3).padStart(9)}${r.mvdr_spectrum_ms_p50.toFixed(2).padStart(13)}${r.latency_ms_p50.toFixed(1).padStart(9)}${r.latency_ms_p99.toFixed(1).padStart(9)}${r.rss_mb_peak.toFixed(0).padStart(9)}    ${r.ratio_spectrum?.toFixed(2) ?? '—'}, ${r.ratio_chain?.toFixed(2) ?? '—'}`,
     );
   }
-  const ingest = [benchIngest(8, 'int24'), benchIngest(24, 'int16'), benchIngest(32, 'float32'), benchIngest(64, 'int24')];
   const simulator = [await benchSimulator('ring-24.json'), await benchSimulator('line-8.json')];
   const dsp = await benchW32Spectrum();
-  say('\ningest (decode + check + sequence, MTU-sized UDP frames, 5 % loss, local reordering), one thread');
-  for (const r of ingest) say(`  ${r.name.padEnd(24)} ${String(r.samplesPerFrame).padStart(3)} samples/frame  ${r.framesPerS.toFixed(0).padStart(7)} frames/s  rtf ${r.rtf.toFixed(4)}`);
+  const { ingest, ingestLoad } = await runIngest();
   say('\nbuilt-in scene generator, 48 kHz, one thread');
   for (const r of simulator) say(`  ${r.name.padEnd(24)} ${String(r.channels).padStart(3)} ch  rtf ${r.rtf.toFixed(4)}`);
   say(`\nsingle-thread plain kernels, W32: MVDR update ${dsp.mvdrUpdateMs.toFixed(2)} ms, conventional ${dsp.conventionalUpdateMs.toFixed(2)} ms, STFT ${dsp.stftHopMs.toFixed(3)} ms/hop (fft.js; ${dsp.stftFastHopMs.toFixed(3)} ms/hop as the engine runs it, WebAssembly, band only), covariance ${dsp.covarianceHopMs.toFixed(3)} ms/hop`);
-  if (values.json) console.log(JSON.stringify({ node: process.version, workloads: results, ingest, simulator, dsp }));
+  if (values.json) console.log(JSON.stringify({ node: process.version, workloads: results, ingest, ingestLoad, simulator, dsp }));
 }

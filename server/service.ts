@@ -77,6 +77,21 @@ export function simulatorBlockFrames(configured: number, channels: number): numb
   return channels <= 64 ? configured : Math.max(32, Math.min(configured, Math.floor((configured * 64) / channels)));
 }
 
+/** The UDP listener in status: the kernel's figures for its socket (null where not reported) and the receive queue. */
+function udpStatus(udp: UdpIngest, queueBytes: number): Record<string, unknown> {
+  const k = udp.kernel();
+  return {
+    port: udp.port,
+    receiveBufferBytes: udp.receiveBufferBytes,
+    kernelDrops: k ? k.drops : null,
+    kernelQueuedBytes: k ? k.queuedBytes : null,
+    queueBytes,
+    queuedBytes: udp.queuedBytes,
+    queueDrops: udp.queueDrops,
+    receiverRestarts: udp.receiverRestarts,
+  };
+}
+
 function urlHost(host: string): string {
   return host.includes(':') && !host.startsWith('[') ? `[${host}]` : host;
 }
@@ -100,6 +115,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         sampleRateHz: config.input.sampleRateHz,
         channels,
         encodings: config.input.encodings,
+        maxFloatLevelDbfs: config.input.maxFloatLevelDbfs,
         streamId: config.input.streamId,
         maxStreams: config.ingest.maxStreams,
         sequencer: {
@@ -107,6 +123,9 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
           reorderHoldMs: config.ingest.reorderHoldMs,
           maxGapSamples: Math.round(config.ingest.maxGapSeconds * config.input.sampleRateHz),
           maxGapBlockFrames: 4096,
+          jumpToleranceSamples: Math.round(config.ingest.jumpToleranceSeconds * config.input.sampleRateHz),
+          resyncLimit: config.ingest.resyncLimit,
+          resyncWindowMs: config.ingest.resyncWindowSeconds * 1000,
         },
       },
       bus.publish,
@@ -265,7 +284,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
       listeners: {
         http: { host: config.server.host, port: httpPort },
-        udp: udp ? { port: udp.port, receiveBufferBytes: udp.receiveBufferBytes } : null,
+        udp: udp ? udpStatus(udp, config.ingest.udp.queueBytes) : null,
         websocket: wsIngest ? { path: config.ingest.websocket.path, connections: wsIngest.connections } : null,
       },
       ingest: hub ? { messages: hub.messages, rejected: hub.rejected, lastRejected: hub.lastRejected } : null,
@@ -494,7 +513,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     await app.listen({ host: config.server.host, port: config.server.httpPort });
     httpPort = (app.server.address() as { port: number }).port;
     if (hub && config.ingest.udp.enabled) {
-      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, config.ingest.udp.receiveBufferBytes);
+      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, { receiveBufferBytes: config.ingest.udp.receiveBufferBytes, queueBytes: config.ingest.udp.queueBytes });
     }
   } catch (e) {
     await app.close();

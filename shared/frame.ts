@@ -97,9 +97,11 @@ export function decodeFrame(bytes: Uint8Array): DecodeResult {
   if (headerBytes < FRAME_HEADER_BYTES || headerBytes > bytes.byteLength) {
     return reject('bad_header_length', `headerBytes ${headerBytes} (datagram ${bytes.byteLength} bytes)`);
   }
-  const firstSampleBig = dv.getBigUint64(16, true);
-  if (firstSampleBig > BigInt(Number.MAX_SAFE_INTEGER)) {
-    return reject('bad_field', `firstSample ${firstSampleBig} exceeds 2^53−1`);
+  // firstSample as two 32-bit halves: a frame's hot path needs no BigInt. < 2^53 ⇔ high half < 2^21.
+  const firstLow = dv.getUint32(16, true);
+  const firstHigh = dv.getUint32(20, true);
+  if (firstHigh >= 0x200000) {
+    return reject('bad_field', `firstSample ${dv.getBigUint64(16, true)} exceeds 2^53−1`);
   }
   const sampleRateHz = dv.getUint32(24, true);
   const channels = dv.getUint16(28, true);
@@ -118,7 +120,7 @@ export function decodeFrame(bytes: Uint8Array): DecodeResult {
       encoding,
       streamId: dv.getUint32(8, true),
       sequence: dv.getUint32(12, true),
-      firstSample: Number(firstSampleBig),
+      firstSample: firstHigh * 0x1_0000_0000 + firstLow,
       sampleRateHz,
       channels,
       samplesPerChannel,
@@ -134,8 +136,36 @@ export function decodeFrame(bytes: Uint8Array): DecodeResult {
  * @returns false if a float32 payload holds NaN or ±∞ (out is then partly written and must be discarded)
  */
 export function decodeSamples(frame: DecodedFrame, out: Float32Array): boolean {
-  return decodeInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out);
+  return convertInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out, Infinity, frame.samplesPerChannel, 0) === 'ok';
 }
+
+/** Outcome of a checked sample conversion: the samples are usable, or why not. */
+export type SampleCheck = 'ok' | 'non_finite' | 'beyond_bound';
+
+/**
+ * Like {@link decodeSamples}, and float32 samples must also satisfy |x| ≤ maxAbs (full-scale
+ * units; e.g. 1000 for +60 dBFS). Integer encodings cannot exceed full scale, so the bound only
+ * applies to float32. The first offending sample decides the answer.
+ * @param out length ≥ channels·samplesPerChannel, planar; partly written when the answer is not 'ok'
+ */
+export function decodeSamplesChecked(frame: DecodedFrame, out: Float32Array, maxAbs = Infinity): SampleCheck {
+  return convertInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out, maxAbs, frame.samplesPerChannel, 0);
+}
+
+/**
+ * {@link decodeSamplesChecked} into a wider planar buffer: channel c, sample i lands at
+ * out[c·stride + offset + i] (appending a frame to a block being assembled).
+ * @param stride ≥ offset + samplesPerChannel; out length ≥ (channels − 1)·stride + offset + samplesPerChannel
+ */
+export function decodeSamplesInto(frame: DecodedFrame, out: Float32Array, stride: number, offset: number, maxAbs = Infinity): SampleCheck {
+  if (offset < 0 || offset + frame.samplesPerChannel > stride || out.length < (frame.channels - 1) * stride + offset + frame.samplesPerChannel) {
+    throw new RangeError(`${frame.channels} × ${frame.samplesPerChannel} samples at offset ${offset} do not fit stride ${stride} in ${out.length}`);
+  }
+  return convertInterleaved(frame.payload, frame.channels, frame.samplesPerChannel, frame.encoding, out, maxAbs, stride, offset);
+}
+
+/** Largest finite float32, (2 − 2^−23)·2^127 (IEEE 754 binary32). */
+const FLOAT32_MAX = 3.4028234663852886e38;
 
 /** True when this machine stores numbers little-endian (typed arrays use the host's order). */
 const LITTLE_ENDIAN_HOST = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
@@ -148,9 +178,20 @@ const LITTLE_ENDIAN_HOST = new Uint8Array(new Uint16Array([1]).buffer)[0] === 1;
  * @returns false if float32 input holds NaN or ±∞
  */
 export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: number, encoding: SampleEncoding, out: Float32Array): boolean {
+  return convertInterleaved(bytes, channels, frames, encoding, out, Infinity, frames, 0) === 'ok';
+}
+
+/**
+ * The one conversion loop behind the decoders above; float32 samples must be finite and |x| ≤ maxAbs.
+ * Channel c, sample i lands at out[c·stride + offset + i].
+ */
+function convertInterleaved(bytes: Uint8Array, channels: number, frames: number, encoding: SampleEncoding, out: Float32Array, maxAbs: number, stride: number, offset: number): SampleCheck {
   const m = channels;
   const n = frames;
   const payload = bytes;
+  // ±∞ lie beyond the largest float32, so this one range test also refuses them (and NaN, which
+  // fails every comparison); which of the two it was is sorted out only for the refused sample.
+  const bound = Math.min(maxAbs, FLOAT32_MAX);
   // Typed-array views read the little-endian samples directly when the host is little-endian and
   // the payload is aligned; otherwise the DataView reads below.
   if (LITTLE_ENDIAN_HOST && encoding === 'float32' && payload.byteOffset % 4 === 0) {
@@ -158,43 +199,43 @@ export function decodeInterleaved(bytes: Uint8Array, channels: number, frames: n
     for (let i = 0, p = 0; i < n; i++) {
       for (let c = 0; c < m; c++, p++) {
         const v = f[p];
-        if (v - v !== 0) return false; // NaN or ±Infinity
-        out[c * n + i] = v;
+        if (!(v <= bound && v >= -bound)) return v - v !== 0 ? 'non_finite' : 'beyond_bound';
+        out[c * stride + offset + i] = v;
       }
     }
-    return true;
+    return 'ok';
   }
   if (LITTLE_ENDIAN_HOST && encoding === 'int16' && payload.byteOffset % 2 === 0) {
     const q = new Int16Array(payload.buffer, payload.byteOffset, m * n);
-    for (let i = 0, p = 0; i < n; i++) for (let c = 0; c < m; c++, p++) out[c * n + i] = q[p] / 32768;
-    return true;
+    for (let i = 0, p = 0; i < n; i++) for (let c = 0; c < m; c++, p++) out[c * stride + offset + i] = q[p] / 32768;
+    return 'ok';
   }
   const dv = new DataView(payload.buffer, payload.byteOffset, payload.byteLength);
   let p = 0;
   switch (encoding) {
     case 'int16':
-      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 2) out[c * n + i] = dv.getInt16(p, true) / 32768;
-      return true;
+      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 2) out[c * stride + offset + i] = dv.getInt16(p, true) / 32768;
+      return 'ok';
     case 'int24':
       for (let i = 0; i < n; i++) {
         for (let c = 0; c < m; c++, p += 3) {
           const u = payload[p] | (payload[p + 1] << 8) | (payload[p + 2] << 16);
-          out[c * n + i] = ((u << 8) >> 8) / 8388608;
+          out[c * stride + offset + i] = ((u << 8) >> 8) / 8388608;
         }
       }
-      return true;
+      return 'ok';
     case 'int32':
-      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 4) out[c * n + i] = dv.getInt32(p, true) / 2147483648;
-      return true;
+      for (let i = 0; i < n; i++) for (let c = 0; c < m; c++, p += 4) out[c * stride + offset + i] = dv.getInt32(p, true) / 2147483648;
+      return 'ok';
     case 'float32':
       for (let i = 0; i < n; i++) {
         for (let c = 0; c < m; c++, p += 4) {
           const v = dv.getFloat32(p, true);
-          if (!Number.isFinite(v)) return false;
-          out[c * n + i] = v;
+          if (!(v <= bound && v >= -bound)) return v - v !== 0 ? 'non_finite' : 'beyond_bound';
+          out[c * stride + offset + i] = v;
         }
       }
-      return true;
+      return 'ok';
   }
 }
 

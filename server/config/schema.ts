@@ -57,6 +57,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
         sampleRateHz: { kind: 'int', min: 8000, max: 384000, doc: 'Sample rate every stream must carry; other rates are rejected and counted.' },
         encodings: { kind: 'enumList', values: ENCODINGS, minItems: 1, doc: 'Sample encodings accepted; frames in others are rejected and counted.' },
         streamId: { kind: 'int', min: 0, max: 0xffffffff, nullable: true, doc: 'Only this stream id is processed (others are counted and dropped); null = the first stream that arrives.' },
+        maxFloatLevelDbfs: { kind: 'number', min: 0, max: 771, doc: 'A float32 sample above this level (20·log10|x|, full scale 0 dBFS; +60 = 1000) refuses its frame, counted `beyond_bound`. Integer samples cannot exceed 0 dBFS.' },
       },
     },
     ingest: {
@@ -67,7 +68,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
           fields: {
             enabled: { kind: 'bool', doc: 'Listen for frames on UDP (network source only).' },
             port: { kind: 'int', min: 0, max: 65535, doc: 'UDP port; 0 picks a free port (printed at start).' },
-            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer (SO_RCVBUF); a short burst beyond it is lost in the kernel.' },
+            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer (SO_RCVBUF; Linux grants at most net.core.rmem_max); a burst beyond it is lost in the kernel, counted in status as `listeners.udp.kernelDrops`.' },
+            queueBytes: { kind: 'int', min: 1048576, max: 1073741824, doc: 'Queue between the UDP receive thread and the service thread; it absorbs stalls of the service thread. When full a datagram is dropped and counted `queue_full`.' },
           },
         },
         websocket: {
@@ -82,6 +84,9 @@ export const CONFIG_SCHEMA: FieldSpec = {
         reorderWindowFrames: { kind: 'int', min: 1, max: 1024, doc: 'Frames held while waiting for a missing one; when full, the gap is zero-filled.' },
         reorderHoldMs: { kind: 'int', min: 0, max: 10000, doc: 'Longest a frame waits for a missing predecessor before the gap is zero-filled.' },
         maxGapSeconds: { kind: 'number', min: 0.01, max: 3600, doc: 'Larger clock jumps resynchronise the stream (flagged discontinuity) instead of zero-filling.' },
+        jumpToleranceSeconds: { kind: 'number', min: 0, max: 60, doc: 'Zero-fill beyond the wall-clock time since the previous frame, at most; earned back by data received. A frame further ahead is dropped (`ahead_of_clock`) unless the next frame confirms it, which resynchronises the stream.' },
+        resyncLimit: { kind: 'int', min: 1, max: 1000, doc: 'Resynchronisations allowed within ingest.resyncWindowSeconds; beyond them confirmed far-off frames are dropped (`resync_limited`) and status reports a resync storm.' },
+        resyncWindowSeconds: { kind: 'number', min: 0, max: 86400, doc: 'The window of ingest.resyncLimit, seconds.' },
         maxStreams: { kind: 'int', min: 1, max: 256, doc: 'Streams tracked at once; frames of further stream ids are rejected and counted.' },
       },
     },
@@ -152,13 +157,16 @@ export interface Config {
   access: { openStatus: boolean; controlRatePerS: number; controlBurst: number; authFailureRatePerS: number; authFailureBurst: number };
   source: { kind: 'simulator' | 'network' };
   array: { file: string };
-  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null };
+  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null; maxFloatLevelDbfs: number };
   ingest: {
-    udp: { enabled: boolean; port: number; receiveBufferBytes: number };
+    udp: { enabled: boolean; port: number; receiveBufferBytes: number; queueBytes: number };
     websocket: { enabled: boolean; path: string; maxMessageBytes: number; maxConnections: number };
     reorderWindowFrames: number;
     reorderHoldMs: number;
     maxGapSeconds: number;
+    jumpToleranceSeconds: number;
+    resyncLimit: number;
+    resyncWindowSeconds: number;
     maxStreams: number;
   };
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };

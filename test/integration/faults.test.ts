@@ -119,7 +119,10 @@ describe('network faults', () => {
     svc = await startTestService();
     const blocks = collectBlocks(svc);
     const missing = (2 * FS) / N; // 800 frames = 96 000 samples
-    await send([...run(0, 50), ...run(50 + missing, 100 + missing)]);
+    // A real outage: the sender is silent for the 2 s its frames would have taken.
+    await send(run(0, 50));
+    await sleep(2000);
+    await send(run(50 + missing, 100 + missing));
     await waitFor(() => total(blocks) >= (100 + missing) * N, 3000, 'the timeline');
     const segs = timeline(blocks);
     expect(segs).toEqual([{ start: START, end: START + (100 + missing) * N, gaps: [[START + 50 * N, START + 50 * N + 2 * FS]] }]);
@@ -206,6 +209,52 @@ describe('network faults', () => {
     expect(st.streams[0].rejected.out_of_range).toBe(1);
     expect(st.streams[0]).toMatchObject({ framesAccepted: 30, gaps: 0, gapSamples: 0, resyncs: 0, nextSample: START + 30 * N });
     expect(st.timeline).toMatchObject({ samples: 30 * N, gapSamples: 0, discontinuities: 0 });
+  });
+
+  it('20 frames each ~479 000 samples ahead (under maxGapSeconds) in no time are refused, not zero-filled', async () => {
+    // Issue 12, item 4: these made 200 s of zeros (a 308 MB recording). The wall clock has not
+    // passed, so none may be filled up to (tolerance ingest.jumpToleranceSeconds = 1 s).
+    svc = await startTestService();
+    const blocks = collectBlocks(svc);
+    // Between live frames: each ~479 000 samples ahead of the stream, none continuing another.
+    const ahead = (j: number): F => ({ seq: 5000 + 2 * j, first: START + 30 * N + 479_000 - 101 * j });
+    await send([...run(0, 30), ...Array.from({ length: 20 }, (_, j) => [ahead(j), ...run(30 + j, 31 + j)]).flat(), ...run(50, 80)]);
+    await waitFor(() => total(blocks) >= 80 * N, 3000, 'the timeline');
+    await sleep(60);
+    expect(timeline(blocks)).toEqual([{ start: START, end: START + 80 * N, gaps: [] }]);
+    const st = await getStatus(svc);
+    expect(st.streams[0].rejected).toMatchObject({ ahead_of_clock: 20, out_of_range: 0, resync_limited: 0 });
+    expect(st.streams[0]).toMatchObject({ framesAccepted: 80, gaps: 0, gapSamples: 0, resyncs: 0, nextSample: START + 80 * N });
+    expect(st.ingest.lastRejected).toMatchObject({ reason: 'ahead_of_clock', streamId: 1 });
+    expect(st.timeline).toMatchObject({ samples: 80 * N, gapSamples: 0, discontinuities: 0 });
+  });
+
+  it('200 pairs of far-off frames make at most ingest.resyncLimit resyncs; the rest are dropped and a storm reported', async () => {
+    // Issue 12, item 4: these made 380 resyncs (783 recording files). Each pair agrees on a new
+    // position, and the live stream answers by agreeing on its own again.
+    svc = await startTestService({ ingest: { resyncLimit: 4, resyncWindowSeconds: 30 } });
+    const blocks = collectBlocks(svc);
+    const frames: F[] = [...run(0, 50)];
+    for (let p = 0; p < 200; p++) {
+      const at = START + 1_000_000_000 + p * 10_000_000;
+      frames.push({ seq: 7_000_000 + 2 * p, first: at }, { seq: 7_000_001 + 2 * p, first: at + N }, ...run(50 + 2 * p, 52 + 2 * p));
+    }
+    await send(frames);
+    await waitFor(async () => (await getStatus(svc!)).ingest.messages >= frames.length, 5000, 'every datagram');
+    svc.hub!.flush();
+    const st = await getStatus(svc);
+    const s0 = st.streams[0];
+    // Pair 0 and pair 1 each take the stream away and the live stream takes it back: 4 resyncs;
+    // the 198 later pairs (396 frames) are dropped; every live frame is accepted.
+    expect(s0).toMatchObject({ resyncs: 4, framesAccepted: 50 + 400 + 4, framesLost: 0, gapSamples: 0 });
+    expect(s0.rejected).toMatchObject({ resync_limited: 396, out_of_range: 0, ahead_of_clock: 0 });
+    expect(s0.resyncStorm).toMatchObject({ framesDropped: 396 });
+    expect(s0.resyncStorm.sinceS).toBeLessThanOrEqual(s0.resyncStorm.lastS);
+    expect(blocks.filter((b) => b.discontinuity)).toHaveLength(4);
+    expect(st.timeline.discontinuities).toBe(4);
+    expect(st.ingest.lastRejected).toMatchObject({ reason: 'resync_limited', streamId: 1 });
+    // Every frame sent is in exactly one counter.
+    expect(s0.framesAccepted + s0.rejected.resync_limited).toBe(frames.length);
   });
 
   it('a sender restarting its clock at 0 resynchronises: a discontinuity block, counted in resyncs', async () => {

@@ -204,6 +204,33 @@ describe('ingest over real sockets', () => {
     expect(st.ingest.lastRejected).toMatchObject({ reason: 'non_finite', transport: 'udp', streamId: 11 });
   });
 
+  it('refuses float32 frames beyond input.maxFloatLevelDbfs as beyond_bound; ±1000 (+60 dBFS) passes', async () => {
+    // Default bound +60 dBFS = 10^(60/20) = 1000 full-scale units (dB of an amplitude; common practice).
+    svc = await startTestService();
+    const blocks = collectBlocks(svc);
+    udp = await openUdp();
+    const at = (k: number, v: number | null) => {
+      const x = interleaved(k * N);
+      if (v !== null) x[5] = v;
+      return encodeFrame(header(k, k * N, 'float32'), x);
+    };
+    // Frame 1 carries the 3e38 samples of the issue; frame 3 −3e38; frames 2 and 4 the bound itself.
+    const frames = [at(0, null), at(1, 3e38), at(2, 1000), at(3, -3e38), at(4, -1000), at(5, null)];
+    for (const f of frames) await sendUdp(udp, svc.udpPort!, f);
+    await waitFor(() => svc!.hub!.status()[0]?.framesAccepted === 4, 3000, 'the four acceptable frames');
+    svc.hub!.flush();
+    const st = await getStatus(svc);
+    expect(st.streams[0].rejected).toMatchObject({ beyond_bound: 2, non_finite: 0 });
+    // Refused frames leave a gap of their length (zeros), as any lost frame does.
+    expect(st.streams[0]).toMatchObject({ framesAccepted: 4, framesLost: 2, gapSamples: 2 * N });
+    expect(st.ingest.lastRejected).toMatchObject({ reason: 'beyond_bound', transport: 'udp', streamId: 11 });
+    expect(st.ingest.lastRejected.detail).toMatch(/60 dBFS/);
+    const t = timeline(blocks);
+    expect(t.values[1][2 * N + 1]).toBe(1000); // sample 1, channel 1 of frame 2 (x[5], M = 4)
+    expect(t.values[1][4 * N + 1]).toBe(-1000);
+    expect(t.gap[N]).toBe(true);
+  });
+
   it('counts text and oversize WebSocket messages, closing with 1009 on oversize', async () => {
     svc = await startTestService({ ingest: { websocket: { maxMessageBytes: 4096 } } });
     const blocks = collectBlocks(svc);

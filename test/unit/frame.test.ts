@@ -4,6 +4,8 @@ import {
   decodeFrame,
   decodeInterleaved,
   decodeSamples,
+  decodeSamplesChecked,
+  decodeSamplesInto,
   encodeFrame,
   encodeFrameRaw,
   FRAME_HEADER_BYTES,
@@ -87,6 +89,77 @@ describe('frame codec', () => {
       expect(decodeInterleaved(bytes, m, n, 'float32', new Float32Array(m * n))).toBe(false);
       expect(decodeInterleaved(unaligned.subarray(1), m, n, 'float32', new Float32Array(m * n))).toBe(false);
     }
+  });
+
+  it('refuses float32 samples beyond a level bound, and names which check failed', () => {
+    // +60 dBFS as an amplitude: 10^(60/20) = 1000 full-scale units (dB of an amplitude ratio,
+    // 20·log10; common practice). 1000 is exact in float32, so the bound itself is accepted.
+    const bound = 10 ** (60 / 20);
+    expect(bound).toBe(1000);
+    const m = 3;
+    const n = 7;
+    const at = (v: number, k = m * n - 2) => {
+      const x = new Float32Array(m * n).fill(0.25);
+      x[k] = v;
+      return x;
+    };
+    for (const aligned of [true, false]) {
+      const check = (x: Float32Array) => {
+        const bytes = encodeFrame({ ...H, channels: m, samplesPerChannel: n, encoding: 'float32' }, x);
+        // An odd header length moves the payload off 4-byte alignment: the DataView path runs.
+        const b = aligned ? bytes : Uint8Array.from([...bytes.subarray(0, FRAME_HEADER_BYTES), 0, ...bytes.subarray(FRAME_HEADER_BYTES)]);
+        if (!aligned) new DataView(b.buffer).setUint16(6, FRAME_HEADER_BYTES + 1, true);
+        return decodeSamplesChecked(decoded(b), new Float32Array(m * n), bound);
+      };
+      expect(check(at(3e38)), 'the frame of issue 12').toBe('beyond_bound');
+      expect(check(at(-3e38))).toBe('beyond_bound');
+      expect(check(at(1000))).toBe('ok');
+      expect(check(at(-1000))).toBe('ok');
+      expect(check(at(1000.001))).toBe('beyond_bound'); // float32 rounds it to 1000.0009765625
+      expect(check(at(Number.NaN))).toBe('non_finite');
+      expect(check(at(Number.NEGATIVE_INFINITY, 0))).toBe('non_finite');
+      expect(check(at(0.5))).toBe('ok');
+    }
+    // Integers never exceed full scale: the bound does not apply to them.
+    const q = decoded(encodeFrame({ ...H, channels: 1, samplesPerChannel: 2, encoding: 'int16' }, [-1, 32767 / 32768]));
+    expect(decodeSamplesChecked(q, new Float32Array(2), 0.5)).toBe('ok');
+    // Without a bound only non-finite values are refused (what decodeSamples checks).
+    const big = decoded(encodeFrame({ ...H, channels: 1, samplesPerChannel: 2, encoding: 'float32' }, [3e38, -3e38]));
+    expect(decodeSamplesChecked(big, new Float32Array(2))).toBe('ok');
+    expect(decodeSamples(big, new Float32Array(2))).toBe(true);
+  });
+
+  it('decodes into a wider planar buffer at an offset exactly as into its own', () => {
+    for (const enc of SAMPLE_ENCODINGS) {
+      const m = 3;
+      const n = 5;
+      const x = Array.from({ length: m * n }, (_, k) => Math.sin(k) * 0.7);
+      const f = decoded(encodeFrame({ ...H, channels: m, samplesPerChannel: n, encoding: enc }, x));
+      const own = new Float32Array(m * n);
+      expect(decodeSamplesChecked(f, own, 1000)).toBe('ok');
+      const stride = 16;
+      const wide = new Float32Array(m * stride).fill(-9);
+      expect(decodeSamplesInto(f, wide, stride, 7, 1000)).toBe('ok');
+      for (let c = 0; c < m; c++) {
+        for (let i = 0; i < stride; i++) expect(wide[c * stride + i]).toBe(i >= 7 && i < 7 + n ? own[c * n + i - 7] : -9);
+      }
+      expect(() => decodeSamplesInto(f, wide, stride, 12, 1000)).toThrow(RangeError); // 12 + 5 > 16
+    }
+  });
+
+  it('reads firstSample up to 2^53 − 1 exactly and refuses 2^53', () => {
+    const at = (v: bigint) => {
+      const b = encodeFrame(H, [0, 0, 0, 0]);
+      new DataView(b.buffer).setBigUint64(16, v, true);
+      return decodeFrame(b);
+    };
+    const ok = at(2n ** 53n - 1n);
+    expect(ok.ok && ok.frame.firstSample).toBe(2 ** 53 - 1);
+    const mid = at(2n ** 32n + 5n); // both halves of the field in use
+    expect(mid.ok && mid.frame.firstSample).toBe(2 ** 32 + 5);
+    const over = at(2n ** 53n);
+    expect(over.ok).toBe(false);
+    if (!over.ok) expect(over.detail).toMatch(/9007199254740992/);
   });
 
   it('sign-extends int24 and clips out-of-range input to the encoding range', () => {

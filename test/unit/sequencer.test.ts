@@ -213,3 +213,209 @@ describe('Sequencer', () => {
     expect(timeline(blocks).end).toBe(5 * N);
   });
 });
+
+/**
+ * Zero-fill against the wall clock (issue 12, item 4). The arrival times passed as `nowMs` are the
+ * wall clock; a stream at real time delivers fs samples per 1000 ms. Options: fs 48 kHz, tolerance
+ * 1 s (48 000 samples), maxGap 10 s (480 000 samples), at most 4 resyncs in 30 s.
+ */
+describe('Sequencer: zero-fill bounded by the wall clock', () => {
+  const FS = 48000;
+  const opts = { ...DEFAULT_SEQUENCER_OPTIONS, maxGapSamples: 10 * FS, jumpToleranceSamples: FS, resyncLimit: 4, resyncWindowMs: 30_000 };
+  /** Arrival time of a frame starting at sample s of a stream sent at `speed` × real time from t0. */
+  const due = (s: number, speed = 1, t0 = 0) => t0 + (s / FS / speed) * 1000;
+  /** Frames [from, to) of a contiguous real-time stream (sequence k, first sample k·N). */
+  function realTime(s: Sequencer, from: number, to: number, speed = 1) {
+    for (let k = from; k < to; k++) s.push(frame(k, k * N), due(k * N, speed));
+  }
+  /** Every frame the sequencer was given is in exactly one counter (or still held). */
+  function accounted(s: Sequencer): number {
+    const c = s.counters;
+    return c.framesAccepted + c.framesDuplicated + c.framesLate + c.outOfRange + c.aheadOfClock + c.resyncLimited + s.heldFrames;
+  }
+
+  it('refuses 20 frames each ~479 000 samples ahead that arrive within milliseconds (no zero-fill)', () => {
+    // The case of the issue: each jump is under maxGap (480 000), yet together they were 200 s of zeros.
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 100);
+    const t = due(100 * N);
+    // Each 479 000 samples beyond the one before (the first within maxGap of the stream, the others
+    // beyond it), then 20 more each ~479 000 ahead of the stream itself (all within maxGap).
+    for (let j = 1; j <= 20; j++) s.push(frame(100 + j, 100 * N + j * 479_000), t + j);
+    for (let j = 1; j <= 20; j++) s.push(frame(200 + 2 * j, 100 * N + 479_000 - 997 * j), t + 20 + j);
+    realTime(s, 100, 200);
+    s.flush();
+    expect(s.counters).toMatchObject({ aheadOfClock: 21, outOfRange: 19, gaps: 0, gapSamples: 0, resyncs: 0, framesAccepted: 200 });
+    expect(timeline(blocks)).toMatchObject({ start: 0, end: 200 * N });
+    expect(accounted(s)).toBe(240);
+  });
+
+  it('zero-fills an outage of 2 s exactly when 2 s of wall clock passed', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 50);
+    const missing = (2 * FS) / N; // 1500 frames of 64 samples
+    realTime(s, 50 + missing, 100 + missing);
+    s.flush();
+    expect(s.counters).toMatchObject({ gaps: 1, gapSamples: missing * N, framesLost: missing, resyncs: 0, aheadOfClock: 0 });
+    expect(timeline(blocks).end).toBe((100 + missing) * N);
+  });
+
+  it('zero-fills a 5 s outage (beyond the tolerance, under maxGap) when the wall clock justifies it', () => {
+    const { sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 10);
+    const missing = (5 * FS) / N;
+    realTime(s, 10 + missing, 20 + missing);
+    s.flush();
+    expect(s.counters).toMatchObject({ gaps: 1, gapSamples: missing * N, resyncs: 0, aheadOfClock: 0 });
+  });
+
+  it('turns a confirmed jump the wall clock does not justify into a resynchronisation, not zeros', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 50);
+    // The sender skips 5 s ahead (under maxGap) in no time: 2 consecutive frames agree on it.
+    const t = due(50 * N);
+    const far = 50 * N + 5 * FS;
+    for (let j = 0; j < 10; j++) s.push(frame(50 + j, far + j * N), t + j * 0.1);
+    s.flush();
+    expect(s.counters).toMatchObject({ resyncs: 1, gaps: 0, gapSamples: 0, aheadOfClock: 0, framesAccepted: 60 });
+    const d = blocks.filter((b) => b.discontinuity);
+    expect(d.map((b) => b.sampleIndex)).toEqual([far]);
+  });
+
+  it('bounds zero-fill by the data received: frames walking 0.9 s ahead each are refused after the tolerance', () => {
+    // Each step is within the tolerance on its own; together they would outrun the wall clock.
+    const { sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 20);
+    const t = due(20 * N);
+    const step = 0.9 * FS;
+    for (let j = 1; j <= 50; j++) s.push(frame(20 + j * 1000, 20 * N + j * step), t + j * 0.5);
+    s.flush();
+    // Zeros at most: wall clock passed (25 ms) + the tolerance (1 s) + 9 samples per data sample received.
+    const bound = (0.025 * 1.02 + 1) * FS + 9 * 70 * N;
+    expect(s.counters.gapSamples).toBeLessThanOrEqual(bound);
+    expect(s.counters.gapSamples).toBeGreaterThan(0); // the first step is within the tolerance
+    expect(s.counters.aheadOfClock).toBeGreaterThanOrEqual(9); // steps 2–11, until beyond maxGap
+    expect(s.counters.aheadOfClock + s.counters.outOfRange).toBe(49);
+    expect(accounted(s)).toBe(70);
+  });
+
+  it('accepts a contiguous replay at 10× real time in full, and zero-fills its 5 % loss exactly', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    const total = 3000; // 4 s of signal in 0.4 s of wall clock
+    const r = rng(7);
+    let lost = 0;
+    for (let k = 0; k < total; k++) {
+      if (k > 0 && k < total - 1 && r() < 0.05) {
+        lost++;
+        continue;
+      }
+      s.push(frame(k, k * N), due(k * N, 10));
+    }
+    s.flush();
+    expect(s.counters).toMatchObject({ framesAccepted: total - lost, framesLost: lost, gapSamples: lost * N, resyncs: 0, aheadOfClock: 0, outOfRange: 0 });
+    expect(timeline(blocks).end).toBe(total * N);
+  });
+
+  it('counts frames skipped at a resynchronisation as lost (sequence distance)', () => {
+    const { sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    realTime(s, 0, 30);
+    // Frames 30–49 never arrive; 50… continue 3 s further on the sender's clock but at once on ours
+    // (ahead of the wall clock, within maxGap): a resync, and the 20 frames skipped are lost.
+    const t = due(30 * N);
+    for (let k = 50; k < 60; k++) s.push(frame(k, k * N + 3 * FS), t + (k - 50) * 0.1);
+    s.flush();
+    expect(s.counters).toMatchObject({ resyncs: 1, framesLost: 20, gapSamples: 0, framesAccepted: 40 });
+  });
+
+  it('rate-limits resyncs: 200 pairs of far-off frames among a live stream make at most 4, and a storm is reported', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    let k = 0;
+    let t = 0;
+    const live = (n: number) => {
+      for (let j = 0; j < n; j++, k++) s.push(frame(k, k * N), (t = due(k * N)));
+    };
+    live(50);
+    for (let p = 0; p < 200; p++) {
+      // A pair: two consecutive frames agreeing on a far position (behind, beyond maxGap).
+      const at = 1_000_000_000 + p * 10_000_000;
+      s.push(frame(7_000_000 + 2 * p, at), t + 0.01);
+      s.push(frame(7_000_000 + 2 * p + 1, at + N), t + 0.02);
+      live(2);
+    }
+    s.flush();
+    const c = s.counters;
+    expect(c.resyncs).toBeLessThanOrEqual(4);
+    expect(blocks.filter((b) => b.discontinuity).length).toBe(c.resyncs);
+    expect(c.resyncLimited).toBeGreaterThan(0);
+    expect(s.resyncStorm).not.toBeNull();
+    expect(s.resyncStorm!.framesDropped).toBeGreaterThan(0);
+    expect(accounted(s)).toBe(50 + 200 * 4);
+  });
+
+  it('zero-fills a 10× replay losing 83 % of its frames; one losing 95 % stops at the credit (ahead_of_clock)', () => {
+    // Credit: 9 zero samples per data sample (losses up to 9/10 of the frames), at most 1 s banked.
+    for (const keepEvery of [6, 20]) {
+      const { sink } = collector();
+      const s = new Sequencer(1, FS, M, opts, sink);
+      let kept = 0;
+      let lastMs = 0;
+      for (let k = 0; k < 6000; k += k < 50 ? 1 : keepEvery, kept++) s.push(frame(k, k * N), (lastMs = due(k * N, 10)));
+      s.flush();
+      const c = s.counters;
+      expect(c.resyncs, `1 in ${keepEvery}`).toBe(0);
+      if (keepEvery === 6) {
+        expect(c).toMatchObject({ aheadOfClock: 0, framesAccepted: kept, gapSamples: c.framesLost * N });
+      } else {
+        // Zeros at most: the wall clock (with its slack) + the 1 s tolerance + 9 per data sample.
+        expect(c.gapSamples).toBeLessThanOrEqual((lastMs / 1000) * 1.02 * FS + FS + 9 * c.samplesAccepted);
+        expect(c.aheadOfClock).toBeGreaterThan(0);
+        expect(c.framesAccepted + c.aheadOfClock).toBe(kept);
+      }
+    }
+  });
+
+  it('during a storm leaves a timeline that has had no frame for window/limit, not sooner', () => {
+    const { blocks, sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    const restart = (base: number, at: number) => {
+      for (let j = 0; j < 3; j++) s.push(frame(j, base + j * N), at + j * 0.1);
+    };
+    s.push(frame(0, 0), 0);
+    s.flush();
+    for (let r = 1; r <= 4; r++) restart(r * 20 * FS, r); // the limit: 4 in 30 s
+    // A sender that jumped for good streams on at real time from 10 ms: refused until the old
+    // timeline has been silent for 30 s / 4 = 7.5 s, then taken (the 5th resync).
+    const base = 200 * FS;
+    const t0 = 10;
+    for (let k = 0; k < (10 * FS) / N; k++) s.push(frame(100 + k, base + k * N), t0 + (k * N * 1000) / FS);
+    s.flush();
+    expect(s.counters.resyncs).toBe(5);
+    const lastOld = 4 + 0.2; // arrival of the last frame placed on the old timeline
+    const firstTaken = Math.ceil(((lastOld + 7500 - t0) * FS) / 1000 / N); // first frame due at or after 7.5 s
+    expect(s.counters.resyncLimited).toBe(firstTaken - 1); // the frame before it is the candidate it confirms
+    expect(blocks[blocks.length - 1].sampleIndex + blocks[blocks.length - 1].frames).toBe(base + ((10 * FS) / N) * N);
+  });
+
+  it('allows resyncs again once the window has passed', () => {
+    const { sink } = collector();
+    const s = new Sequencer(1, FS, M, opts, sink);
+    const restart = (base: number, at: number) => {
+      for (let j = 0; j < 3; j++) s.push(frame(j, base + j * N), at + j * 0.1);
+    };
+    s.push(frame(0, 0), 0);
+    s.flush();
+    for (let r = 1; r <= 5; r++) restart(r * 20 * FS, r); // the 5th within the window: refused
+    expect(s.counters.resyncs).toBe(4);
+    expect(s.resyncStorm).not.toBeNull();
+    restart(200 * FS, 40_000); // 40 s later
+    expect(s.counters.resyncs).toBe(5);
+  });
+});
