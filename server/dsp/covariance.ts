@@ -76,6 +76,14 @@ export class CovarianceBank {
     for (let m = 0; m < channels; m++) this.#active[m] = m;
   }
 
+  /**
+   * c_k of the recursion (module comment): the weight state the next update continues from, also
+   * after hops left out with λ^k (so not recursionWeightSum(λ, updates) then).
+   */
+  get weightSum(): number {
+    return this.#weightSum;
+  }
+
   /** Snapshots folded in since construction or the last `reset()` (either mode). */
   get updates(): number {
     return this.#updates;

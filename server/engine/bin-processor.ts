@@ -47,9 +47,10 @@ export class BinProcessor {
     const [tracker, mvdr] = await Promise.all([ConventionalTracker.create(table), FastMvdrScanner.create(table)]);
     if (table !== this.#table) return; // a newer grid won the race; it builds its own
     // Synchronous from here: no hop runs between seeding and installing.
-    const old = this.#tracker;
     tracker.setMask(this.#active);
-    if (this.bank.updates > 0) tracker.seedFrom(this.bank, old ? old.weightSum : undefined);
+    // The bank's own weight state: the tracker continues its recursion from there (a tracker made
+    // for a new grid has seen none of the bank's updates, and hops left out vary λ).
+    if (this.bank.updates > 0) tracker.seedFrom(this.bank, this.bank.weightSum);
     this.#tracker = tracker;
     this.#fastMvdr = mvdr;
   }
@@ -171,7 +172,7 @@ export class BinProcessor {
   /** Test hook: make bin 0's covariance (and its tracked power) not finite, as corrupted memory would. */
   poison(): void {
     this.bank.data.fill(Number.NaN, 0, 2 * this.channels * this.channels);
-    if (this.#tracker) this.#tracker.seedFrom(this.bank, this.#tracker.weightSum);
+    if (this.#tracker) this.#tracker.seedFrom(this.bank, this.bank.weightSum);
   }
 
   /**
@@ -215,7 +216,7 @@ export class BinProcessor {
     this.#active = Array.from(active, Boolean);
     if (this.#tracker) {
       this.#tracker.setMask(active);
-      if (this.bank.updates > 0) this.#tracker.seedFrom(this.bank, this.#tracker.weightSum);
+      if (this.bank.updates > 0) this.#tracker.seedFrom(this.bank, this.bank.weightSum);
     }
   }
 

@@ -160,3 +160,29 @@ describe.each(['js', 'wasm'] as const)('ConventionalTracker (%s)', (backend) => 
     expect(recursionWeightSum(0.5, 2)).toBe(0.75);
   });
 });
+
+describe('BinProcessor with the fast kernels', () => {
+  it('a new grid after hops left out (λ^k) seeds the tracker from the bank: the conventional spectrum equals the plain scan', async () => {
+    const { BinProcessor, SCAN_CONVENTIONAL } = await import('../../server/engine/bin-processor.ts');
+    const { rng } = setup(11, 6, 12, [1000, 1500, 2000]);
+    const positions = Array.from({ length: 6 }, (_, m) => [0.05 * m, 0.02 * (m % 2), 0] as [number, number, number]);
+    const freqsHz = Float64Array.from([1000, 1500, 2000]);
+    const grid = (n: number) => directionGrid({ azimuthDeg: { startDeg: 0, stopDeg: 360 - 360 / n, stepDeg: 360 / n } });
+    const proc = await BinProcessor.create({ positions, freqsHz, grid: grid(12), speedOfSoundMps: C, snapshotScale: 1, fast: true });
+    const snap = new Float64Array(2 * 6 * 3);
+    // λ varies from hop to hop, as when hops are left out (the engine sends λ^k).
+    for (const lambda of [0.9, 0.9, 0.729, 0.9, 0.81, 0.9]) {
+      for (let i = 0; i < snap.length; i++) snap[i] = rng.gaussian();
+      proc.hop(snap, lambda);
+    }
+    await proc.setGrid(grid(24)); // shedding or a re-plan: new tables, the covariance kept
+    const conv = new Float64Array(24);
+    const mvdr = new Float64Array(24);
+    proc.scan(SCAN_CONVENTIONAL, { mode: 'fixed', delta: 0 }, conv, mvdr);
+    const table = new SteeringTable({ positions, grid: grid(24), freqsHz: Array.from(freqsHz), speedOfSoundMps: C });
+    const perBin = plainConventional(table, proc.bank);
+    const want = new Float64Array(24);
+    for (let b = 0; b < 3; b++) for (let d = 0; d < 24; d++) want[d] += perBin[b * 24 + d];
+    expect(maxRelativeError(conv, want)).toBeLessThan(1e-9);
+  });
+});
