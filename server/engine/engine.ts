@@ -19,7 +19,8 @@ import { ParamError, type ProcessingParams, needsReplan } from './params.ts';
 import { PlanError, planCost, planFields, RING_SLOTS, type PlanBudget, type PlanDemand } from './plan-budget.ts';
 import { BeamAudio, type BeamAudioHop } from './beam-audio.ts';
 import { BeamSet, type BeamState } from './beam-set.ts';
-import { BinPool, splitBins, type WorkerRange } from './pool.ts';
+import { BinPool } from './pool.ts';
+import { gridMessage, layoutPlan, type Plan } from './plan-layout.ts';
 import {
   CTRL_DONE,
   CTRL_WRITE,
@@ -44,7 +45,6 @@ import {
   STAT_RESTARTS,
   STAT_SINGULAR,
   type FromWorker,
-  type PlanMessage,
 } from './protocol.ts';
 import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from './shedding.ts';
 
@@ -104,24 +104,6 @@ export interface EngineOptions {
   maxPeaks?: number;
 }
 
-interface Plan {
-  epoch: number;
-  grid: DirectionGrid;
-  baseGrid: DirectionGrid;
-  bins: number;
-  startBin: number;
-  ranges: WorkerRange[];
-  ctrl: Int32Array;
-  meta: Float64Array;
-  ring: Float64Array;
-  results: Float64Array;
-  stats: Float64Array;
-  slotDoubles: number;
-  resultDirections: number;
-  weightDoubles: number;
-  finder: PeakFinder;
-  writeSeq: number;
-}
 
 function coarser(spec: ProcessingParams['grid'], k: number): ProcessingParams['grid'] {
   if (k === 1) return spec;
@@ -264,62 +246,23 @@ export class Engine {
     if (!stft.accelerated) await stft.accelerate();
     const coarsening = shedEffect(this.#shedder.step).gridCoarsening;
     const grid = directionGrid(coarser(p.grid, coarsening));
-    const ranges = splitBins(band.count, this.#pool.size);
-    const slotDoubles = 2 * M * stft.bins;
-    const W = this.#pool.size;
-    const resultDirections = baseGrid.count;
-    const sab = (n: number) => new SharedArrayBuffer(n);
-    const ctrlBuf = sab(4 * (16 + W));
-    const metaBuf = sab(8 * META_STRIDE * RING_SLOTS);
-    // One extra slot at the end takes hops that are skipped (ring full or decimated).
-    const ringBuf = sab(8 * slotDoubles * (RING_SLOTS + 1));
-    const weightDoubles = Math.max(...ranges.map((r) => r.count)) * 2 * M;
-    const resultsBuf = sab(8 * W * RESULT_SLOTS * resultStride(resultDirections, weightDoubles));
-    const statsBuf = sab(8 * STATS_STRIDE * W);
     const epoch = ++this.#epoch;
-    const gridMsg = (g: DirectionGrid) => ({ azimuthDeg: Array.from(g.azimuthDeg), elevationDeg: Array.from(g.elevationDeg), nAz: g.nAz, nEl: g.nEl });
-    const plans: PlanMessage[] = ranges.map((r, i) => ({
-      type: 'plan',
+    const { plan, messages: plans } = layoutPlan({
       epoch,
-      workerIndex: i,
-      staged: true,
-      ctrl: ctrlBuf,
-      meta: metaBuf,
-      ring: ringBuf,
-      results: resultsBuf,
-      stats: statsBuf,
-      slots: RING_SLOTS,
-      slotDoubles,
-      binOffsetDoubles: 2 * M * (band.startBin + r.start),
-      resultDirections,
-      weightDoubles,
+      band,
+      fftSize: stft.fftSize,
+      sampleRateHz: fs,
+      workers: this.#pool.size,
       positions: this.opts.geometry.positions,
-      freqsHz: Array.from({ length: r.count }, (_, k) => ((band.startBin + r.start + k) * fs) / stft.fftSize),
-      grid: gridMsg(grid),
-      speedOfSoundMps: this.opts.speedOfSoundMps,
-      snapshotScale: 2 / stft.fftSize,
-      active: [...this.#active],
-      fast,
-      beams: this.#beams.specs(grid),
-    }));
-    const plan: Plan = {
-      epoch,
       grid,
       baseGrid,
-      bins: band.count,
-      startBin: band.startBin,
-      ranges,
-      ctrl: new Int32Array(ctrlBuf),
-      meta: new Float64Array(metaBuf),
-      ring: new Float64Array(ringBuf),
-      results: new Float64Array(resultsBuf),
-      stats: new Float64Array(statsBuf),
-      slotDoubles,
-      resultDirections,
-      weightDoubles,
+      speedOfSoundMps: this.opts.speedOfSoundMps,
+      active: this.#active,
+      fast,
+      beams: this.#beams.specs(grid),
       finder: this.#finder(grid, p),
-      writeSeq: 0,
-    };
+    });
+    const W = plan.ranges.length;
     try {
       await this.#pool.prepare(plans, this.opts.planTimeoutMs ?? PLAN_TIMEOUT_MS);
     } catch (e) {
@@ -719,7 +662,7 @@ export class Engine {
   #applyGrid(k: number): void {
     const p = this.#plan;
     const grid = directionGrid(coarser(this.#params.grid, k));
-    const msg = { azimuthDeg: Array.from(grid.azimuthDeg), elevationDeg: Array.from(grid.elevationDeg), nAz: grid.nAz, nEl: grid.nEl };
+    const msg = gridMessage(grid);
     this.#pool.updatePlans((pl) => (pl.grid = msg));
     this.#pool.broadcast({ type: 'grid', epoch: p.epoch, grid: msg });
     p.grid = grid;
