@@ -105,7 +105,8 @@ export class SimulatorSource {
     const sim = this.#sim;
     const frames = sim.blockFrames;
     const tickStart = this.#now();
-    const elapsedSamples = Math.floor(((tickStart - this.#startMs) / 1000) * sim.sampleRateHz);
+    // Multiplied before dividing: (290 / 1000) · 48 000 rounds to 13 919.99…, a block late.
+    const elapsedSamples = Math.floor(((tickStart - this.#startMs) * sim.sampleRateHz) / 1000);
     let due = Math.floor((elapsedSamples - this.#accounted) / frames);
     if (due > this.#maxBurstBlocks) {
       const skipped = (due - this.#maxBurstBlocks) * frames;

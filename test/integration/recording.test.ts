@@ -196,9 +196,12 @@ describe('recording and stream out', () => {
       const r = await openWav(join(dir, wav));
       expect(r.info.channels).toBe(24);
       expect(r.info.sampleRateHz).toBe(48000);
-      // All but at most the last second (headers are refreshed every 0.5 s).
+      // All but at most the last second of what the server said it had recorded just before the
+      // kill (headers are refreshed every 0.5 s); and that was most of the run, on the stream's
+      // clock (the scene skips, counted, only if the machine stalls for over a second).
+      console.log(`kill -9: ${r.info.frames} frames readable of ${framesBefore} reported before the kill, ${elapsedS.toFixed(2)} s after the start`);
+      expect(framesBefore).toBeGreaterThan(48000);
       expect(r.info.frames).toBeGreaterThanOrEqual(framesBefore - 48000);
-      expect(r.info.frames).toBeGreaterThan((elapsedS - 1.5) * 48000);
       await r.close();
     } finally {
       child.kill('SIGKILL');
