@@ -2,23 +2,13 @@
 // from the socket into the shared queue and stamps their arrival time, so it is ready whenever the
 // kernel has one, whatever the service's thread is busy with (a garbage collection, a spectrum row,
 // an HTTP request). Plain JavaScript: a worker does not inherit the tsx loader, and this file needs
-// nothing from the TypeScript sources; the layout constants are repeated here and checked by
-// udp.ts at start (the `layout` field of workerData).
+// nothing from the TypeScript sources; the queue's layout comes from udp-queue.mjs, as udp.ts's does.
 import { createSocket } from 'node:dgram';
 import { parentPort, workerData } from 'node:worker_threads';
+import { DROPPED, HEAD, KIND_DATAGRAM, KIND_REMOTE, MAX_REMOTES, RECORD_HEADER, SLEEPING, TAIL } from './udp-queue.mjs';
 
-const HEAD = 0;
-const TAIL = 1;
-const SLEEPING = 2;
-const DROPPED = 3;
-const RECORD_HEADER = 20;
-const KIND_DATAGRAM = 1;
-const KIND_REMOTE = 2;
-const MAX_REMOTES = 256;
-const LAYOUT = 'head,tail,sleeping,dropped;size:u32,kind:u16,remote:u16,arrivalMs:f64,length:u32;v1';
 
-const { host, port, receiveBufferBytes, queue, ctrl, layout } = workerData;
-if (layout !== LAYOUT) throw new Error(`udp-receiver: queue layout ${layout}, this receiver writes ${LAYOUT}`);
+const { host, port, receiveBufferBytes, queue, ctrl } = workerData;
 const bytes = new Uint8Array(queue);
 const view = new DataView(queue);
 const c = new Int32Array(ctrl);

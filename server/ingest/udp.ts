@@ -25,17 +25,9 @@
 import { readFileSync } from 'node:fs';
 import { Worker } from 'node:worker_threads';
 import type { IngestHub } from './ingest-hub.ts';
+import { DROPPED, HEAD, KIND_DATAGRAM, KIND_REMOTE, RECORD_HEADER, SLEEPING, TAIL } from './udp-queue.mjs';
 
 const RECEIVER = new URL('./udp-receiver.mjs', import.meta.url);
-const HEAD = 0;
-const TAIL = 1;
-const SLEEPING = 2;
-const DROPPED = 3;
-const RECORD_HEADER = 20;
-const KIND_DATAGRAM = 1;
-const KIND_REMOTE = 2;
-/** Must equal the receiver's LAYOUT: it refuses to start otherwise. */
-const LAYOUT = 'head,tail,sleeping,dropped;size:u32,kind:u16,remote:u16,arrivalMs:f64,length:u32;v1';
 /** Datagrams handled before this thread lets timers and sockets run again. */
 const SLICE = 256;
 /** Longest wait for the receive thread's doorbell before the queue is looked at anyway, ms. */
@@ -116,7 +108,7 @@ export async function startUdpIngest(hub: IngestHub, host: string, port: number,
 
   const spawn = (bindPort: number) =>
     new Promise<Started>((resolve, reject) => {
-      const worker = new Worker(RECEIVER, { workerData: { host, port: bindPort, receiveBufferBytes: opts.receiveBufferBytes, queue, ctrl, layout: LAYOUT } });
+      const worker = new Worker(RECEIVER, { workerData: { host, port: bindPort, receiveBufferBytes: opts.receiveBufferBytes, queue, ctrl } });
       const fail = (e: Error) => {
         void worker.terminate();
         reject(e);

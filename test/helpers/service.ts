@@ -1,5 +1,6 @@
 /** Start a real service on free loopback ports for integration tests. */
 import { mkdtempSync } from 'node:fs';
+import WebSocket from 'ws';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -50,4 +51,28 @@ export async function waitFor(pred: () => boolean | Promise<boolean>, ms = 5000,
     await sleep(10);
   }
   throw new Error(`timed out waiting for ${what}`);
+}
+
+/**
+ * Open a WebSocket to `url` with these headers: 'open' (then closed at once), or the refused
+ * upgrade's HTTP status and JSON body (null when it had none).
+ */
+export function tryUpgrade(url: string, headers: Record<string, string> = {}): Promise<'open' | { status: number; json: any }> {
+  const ws = new WebSocket(url, { headers });
+  ws.on('error', () => undefined);
+  return new Promise((resolve) => {
+    ws.on('open', () => {
+      ws.terminate();
+      resolve('open');
+    });
+    ws.on('unexpected-response', (req, res) => {
+      let text = '';
+      res.setEncoding('utf8');
+      res.on('data', (d) => (text += d));
+      res.on('end', () => {
+        req.destroy();
+        resolve({ status: res.statusCode ?? 0, json: text ? JSON.parse(text) : null });
+      });
+    });
+  });
 }

@@ -10,11 +10,10 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import WebSocket from 'ws';
 import { buildApp } from '../../server/http/app.ts';
 import { CLIENT_DIST, type Service } from '../../server/service.ts';
 import { encodeFrame } from '../../shared/frame.ts';
-import { getStatus, startTestService } from '../helpers/service.ts';
+import { getStatus, startTestService, tryUpgrade } from '../helpers/service.ts';
 
 const BIN = fileURLToPath(new URL('../../bin/nullsteer.mjs', import.meta.url));
 const ROOT = fileURLToPath(new URL('../../', import.meta.url));
@@ -279,20 +278,9 @@ describe('access.openStatus false', () => {
 });
 
 /** Open a WebSocket to `path`; resolves 'open' (then closes it) or the HTTP status of a refused upgrade. */
-function upgrade(svc: Service, path: string, headers: Record<string, string> = {}): Promise<number | 'open'> {
-  const ws = new WebSocket(`${svc.url.replace(/^http/, 'ws')}${path}`, { headers });
-  ws.on('error', () => undefined);
-  return new Promise((resolve) => {
-    ws.on('open', () => {
-      ws.terminate();
-      resolve('open');
-    });
-    ws.on('unexpected-response', (req, res) => {
-      resolve(res.statusCode ?? 0);
-      res.resume();
-      req.destroy();
-    });
-  });
+async function upgrade(svc: Service, path: string, headers: Record<string, string> = {}): Promise<number | 'open'> {
+  const r = await tryUpgrade(`${svc.url.replace(/^http/, 'ws')}${path}`, headers);
+  return r === 'open' ? r : r.status;
 }
 
 describe('WebSocket upgrades with a token', () => {

@@ -8,9 +8,8 @@
  */
 import { request } from 'node:http';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import WebSocket from 'ws';
 import type { Service } from '../../server/service.ts';
-import { getStatus, startTestService } from '../helpers/service.ts';
+import { getStatus, startTestService, tryUpgrade } from '../helpers/service.ts';
 
 /** One request with exactly these headers, Host included or left out (fetch will not send a foreign Host). */
 function raw(svc: Service, method: string, path: string, headers: Record<string, string>, body?: string): Promise<{ status: number; json: any }> {
@@ -27,25 +26,7 @@ function raw(svc: Service, method: string, path: string, headers: Record<string,
 }
 
 /** Open a WebSocket with these headers: 'open', or the refused upgrade's status and JSON body. */
-function upgrade(svc: Service, path: string, headers: Record<string, string>): Promise<'open' | { status: number; json: any }> {
-  const ws = new WebSocket(`ws://127.0.0.1:${svc.httpPort}${path}`, { headers });
-  ws.on('error', () => undefined);
-  return new Promise((resolve) => {
-    ws.on('open', () => {
-      ws.terminate();
-      resolve('open');
-    });
-    ws.on('unexpected-response', (req, res) => {
-      let text = '';
-      res.setEncoding('utf8');
-      res.on('data', (d) => (text += d));
-      res.on('end', () => {
-        req.destroy();
-        resolve({ status: res.statusCode ?? 0, json: text ? JSON.parse(text) : null });
-      });
-    });
-  });
-}
+const upgrade = (svc: Service, path: string, headers: Record<string, string>) => tryUpgrade(`ws://127.0.0.1:${svc.httpPort}${path}`, headers);
 
 const EVIL = 'http://evil.example';
 
