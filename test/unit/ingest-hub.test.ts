@@ -9,24 +9,13 @@ import { encodeFrame, type SampleEncoding } from '../../shared/frame.ts';
 import type { Block } from '../../shared/types.ts';
 import { COALESCE_FRAMES, IngestHub } from '../../server/ingest/ingest-hub.ts';
 import { DEFAULT_SEQUENCER_OPTIONS } from '../../server/ingest/sequencer.ts';
+import { mulberry32 } from '../helpers/random.ts';
 
 const FS = 48000;
 
-/** Seeded PRNG (mulberry32) so the pattern is the same on every run. */
-function rng(seed: number) {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
 /** Datagrams of a stream with loss, local reordering, duplicates, a refused frame and a restart. */
 function datagrams(m: number, n: number, encoding: SampleEncoding, seed: number): { bytes: Uint8Array; atMs: number }[] {
-  const r = rng(seed);
+  const r = mulberry32(seed);
   const out: { bytes: Uint8Array; atMs: number }[] = [];
   const frame = (seq: number, first: number, bad = false) => {
     const x = new Float32Array(m * n);

@@ -1,6 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { DEFAULT_SEQUENCER_OPTIONS, Sequencer, type SequencedFrame } from '../../server/ingest/sequencer.ts';
 import type { Block } from '../../shared/types.ts';
+import { mulberry32 } from '../helpers/random.ts';
 
 const M = 3;
 const N = 64;
@@ -38,18 +39,6 @@ function timeline(blocks: Block[]) {
   return { start, end: next, values, gap };
 }
 
-/** Seeded PRNG (mulberry32) so the loss pattern is the same on every run. */
-function rng(seed: number) {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
 describe('Sequencer', () => {
   it('passes an in-order stream through unchanged', () => {
     const { blocks, sink } = collector();
@@ -66,7 +55,7 @@ describe('Sequencer', () => {
 
   it('fills lost frames with zeros of the exact length and counts loss, duplicates and reordering', () => {
     const total = 2000;
-    const r = rng(42);
+    const r = mulberry32(42);
     const lost = new Set<number>();
     for (let k = 1; k < total - 1; k++) if (r() < 0.05) lost.add(k);
     const order: number[] = [];
@@ -308,7 +297,7 @@ describe('Sequencer: zero-fill bounded by the wall clock', () => {
     const { blocks, sink } = collector();
     const s = new Sequencer(1, FS, M, opts, sink);
     const total = 3000; // 4 s of signal in 0.4 s of wall clock
-    const r = rng(7);
+    const r = mulberry32(7);
     let lost = 0;
     for (let k = 0; k < total; k++) {
       if (k > 0 && k < total - 1 && r() < 0.05) {
