@@ -10,6 +10,29 @@ export interface ArrayGeometry {
   positions: [number, number, number][];
   /** Measured per-channel response, corrected in the front end (absent: all channels nominal). */
   calibration?: ChannelCalibration;
+  /**
+   * Where each position's samples come from when the array is fed by several inputs (acquisition
+   * units, RTP sessions, own-format streams); absent: one input carries every position in order.
+   */
+  inputs?: InputMapping[];
+}
+
+/**
+ * One input (a "member") of an array fed by several: channel `channels[i]` of the source's own
+ * stream feeds array position `positions[i]`. Every position is fed by exactly one member.
+ */
+export interface InputMapping {
+  /** An RTP session name (ingest.rtp.sessions), `stream:ID` for own-format frames, or `capture`. */
+  source: string;
+  channels: number[];
+  positions: number[];
+  /**
+   * A channel of the source's stream fed the same signal as the other members' reference channels
+   * (it need not feed a position): the offset and drift between members are measured on it.
+   */
+  referenceChannel?: number;
+  /** A measured fixed offset of this member, microseconds, corrected like a calibration delay. */
+  offsetUs?: number;
 }
 
 /**
@@ -47,6 +70,12 @@ export interface Block {
    * fill): sampleIndex does not continue the previous block.
    */
   discontinuity: boolean;
+  /**
+   * Per channel, 1 where the samples are zeros standing in for a member of a merged array that
+   * had not delivered them (late or stopped): the covariance leaves those channels out for the
+   * span. Absent or null: every channel is real.
+   */
+  absent?: Uint8Array | null;
 }
 
 /** A stage that produces blocks: live ingest or the simulator. */

@@ -5,7 +5,7 @@
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
-import type { ArrayGeometry, ChannelCalibration } from '../../shared/types.ts';
+import type { ArrayGeometry, ChannelCalibration, InputMapping } from '../../shared/types.ts';
 import { ConfigError, type ConfigIssue } from './validate.ts';
 
 export const MAX_SENSORS = 1024;
@@ -48,10 +48,83 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
     }
   }
   const calibration = o.calibration === undefined ? undefined : validateCalibration(o.calibration, pos.length, add);
+  const inputs = o.inputs === undefined ? undefined : validateInputs(o.inputs, pos.length, add);
   if (issues.length > 0) throw new ConfigError(issues);
   const g: ArrayGeometry = { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
   if (calibration) g.calibration = calibration;
+  if (inputs) g.inputs = inputs;
   return g;
+}
+
+/** Most inputs (members) one array may have. */
+export const MAX_INPUTS = 64;
+/** `stream:ID` (own-format frames), `capture`, or an RTP session name. */
+export const INPUT_SOURCE = /^(stream:(0|[1-9]\d{0,9})|[A-Za-z0-9._-]{1,64})$/;
+
+/** The `inputs` list: each position fed by exactly one member, channels and positions whole numbers. */
+function validateInputs(value: unknown, m: number, add: (path: string, v: unknown, msg: string) => void): InputMapping[] | undefined {
+  if (!Array.isArray(value) || value.length < 1 || value.length > MAX_INPUTS) {
+    add('inputs', Array.isArray(value) ? `${value.length} entries` : value, `must be a list of 1–${MAX_INPUTS} { "source", "channels", "positions" } objects`);
+    return undefined;
+  }
+  const FIELDS = ['source', 'channels', 'positions', 'referenceChannel', 'offsetUs'];
+  const fedBy: (number | undefined)[] = Array(m).fill(undefined);
+  const sources = new Set<string>();
+  const out: InputMapping[] = [];
+  value.forEach((e, i) => {
+    const at = `inputs[${i}]`;
+    if (typeof e !== 'object' || e === null || Array.isArray(e)) {
+      add(at, e, 'must be an object { "source", "channels", "positions" }');
+      return;
+    }
+    const r = e as Record<string, unknown>;
+    for (const k of Object.keys(r)) if (!FIELDS.includes(k)) add(`${at}.${k}`, r[k], `is not an inputs field (${FIELDS.join(', ')})`);
+    const source = r.source;
+    if (typeof source !== 'string' || !INPUT_SOURCE.test(source) || (source.startsWith('stream:') && Number(source.slice(7)) > 0xffffffff)) {
+      add(`${at}.source`, source, 'must be an RTP session name (letters, digits, . _ -), "capture", or "stream:ID" (ID 0–4294967295)');
+      return;
+    }
+    if (sources.has(source)) add(`${at}.source`, source, 'appears twice: list all of a source\'s channels in one entry');
+    sources.add(source);
+    const ints = (key: 'channels' | 'positions', max: number): number[] | null => {
+      const v = r[key];
+      if (!Array.isArray(v) || v.length < 1 || v.length > MAX_SENSORS || !v.every((x) => Number.isInteger(x) && x >= 0 && x < max)) {
+        add(`${at}.${key}`, v, `must be a list of 1–${MAX_SENSORS} whole numbers in 0–${max - 1}`);
+        return null;
+      }
+      if (new Set(v).size !== v.length) {
+        add(`${at}.${key}`, v, 'lists a number twice');
+        return null;
+      }
+      return v as number[];
+    };
+    const channels = ints('channels', 65535);
+    const positions = ints('positions', m);
+    if (!channels || !positions) return;
+    if (channels.length !== positions.length) {
+      add(`${at}.positions`, `${positions.length} entries`, `must pair with channels one to one (${channels.length} channels)`);
+      return;
+    }
+    for (const p of positions) {
+      if (fedBy[p] !== undefined) add(`${at}.positions`, p, `position ${p} is already fed by inputs[${fedBy[p]}]`);
+      else fedBy[p] = i;
+    }
+    const entry: InputMapping = { source, channels, positions };
+    if (r.referenceChannel !== undefined) {
+      if (!Number.isInteger(r.referenceChannel) || (r.referenceChannel as number) < 0 || (r.referenceChannel as number) > 65534) add(`${at}.referenceChannel`, r.referenceChannel, 'must be a channel number of the source\'s stream, 0–65534');
+      else entry.referenceChannel = r.referenceChannel as number;
+    }
+    if (r.offsetUs !== undefined) {
+      if (typeof r.offsetUs !== 'number' || !Number.isFinite(r.offsetUs) || Math.abs(r.offsetUs) > MAX_CALIBRATION_DELAY_US) add(`${at}.offsetUs`, r.offsetUs, `must be a number within ±${MAX_CALIBRATION_DELAY_US} µs`);
+      else entry.offsetUs = r.offsetUs;
+    }
+    out.push(entry);
+  });
+  const unfed = fedBy.flatMap((f, p) => (f === undefined ? [p] : []));
+  if (unfed.length > 0 && out.length === value.length) add('inputs', `${unfed.length} unfed`, `must feed every position; no input feeds ${unfed.slice(0, 8).join(', ')}${unfed.length > 8 ? ', …' : ''}`);
+  const refs = out.filter((e) => e.referenceChannel !== undefined).length;
+  if (refs > 0 && refs < out.length) add('inputs', `${refs} of ${out.length}`, 'referenceChannel must be given for every input or for none');
+  return out;
 }
 
 /** Largest calibration gain accepted, ±dB: beyond it the channel is faulty, not mismatched. */

@@ -70,7 +70,21 @@ export function parseFieldText(path: string, text: string): unknown {
       return text === 'true' ? true : text === 'false' ? false : text;
     case 'enumList':
     case 'stringList':
+      // A JSON list where items may hold commas (an argv list): --set capture.command='["arecord","-c","16"]'.
+      if (text.trimStart().startsWith('[')) {
+        try {
+          return JSON.parse(text) as unknown;
+        } catch {
+          return text;
+        }
+      }
       return text.split(',').map((s) => s.trim()).filter((s) => s.length > 0);
+    case 'recordList':
+      try {
+        return JSON.parse(text) as unknown;
+      } catch {
+        return text;
+      }
     default:
       return text;
   }

@@ -12,7 +12,12 @@ export type FieldSpec =
   | { kind: 'enumList'; values: readonly string[]; doc: string; minItems: number }
   | { kind: 'stringList'; pattern: RegExp; patternDoc: string; maxItems: number; maxLength: number; doc: string }
   | { kind: 'bool'; doc: string }
+  /** A list of small records, each with the same closed set of leaf fields (all required). */
+  | { kind: 'recordList'; fields: Record<string, LeafSpec>; maxItems: number; doc: string }
   | { kind: 'object'; fields: Record<string, FieldSpec>; doc?: string };
+
+/** A field that is not an object or a list of records. */
+export type LeafSpec = Exclude<FieldSpec, { kind: 'object' } | { kind: 'recordList' }>;
 
 const ENCODINGS = ['int16', 'int24', 'int32', 'float32'] as const;
 
@@ -42,7 +47,19 @@ export const CONFIG_SCHEMA: FieldSpec = {
     source: {
       kind: 'object',
       fields: {
-        kind: { kind: 'enum', values: ['simulator', 'network'], doc: '`simulator`: the built-in scenario; `network`: frames over UDP and WebSocket.' },
+        kind: { kind: 'enum', values: ['simulator', 'network', 'capture'], doc: '`simulator`: the built-in scenario; `network`: frames over UDP and WebSocket, and RTP sessions (ingest.rtp.sessions); `capture`: the PCM a local command (capture.command) writes to its standard output.' },
+      },
+    },
+    capture: {
+      kind: 'object',
+      fields: {
+        command: { kind: 'stringList', maxItems: 64, maxLength: 4096, pattern: /^[^\0]+$/, patternDoc: 'an argv list (program, then its arguments; no shell)', doc: 'The capture command for `source.kind` capture, e.g. ["arecord","-D","hw:2","-c","16","-r","48000","-f","S32_LE","-t","raw"]. Run without a shell; its standard output is raw interleaved PCM. On the command line: --set capture.command=\'["arecord","-c","16"]\' (a JSON list).' },
+        channels: { kind: 'int', min: 1, max: 1024, doc: 'Channels in the capture command\'s output (interleaved). The array file\'s `inputs` may map them to positions; without it they must equal the array\'s positions.' },
+        encoding: { kind: 'enum', values: ENCODINGS, doc: 'Sample format of the capture output, little-endian: int16 (S16_LE), int24 (packed 3 bytes, S24_3LE), int32 (S32_LE), float32 (FLOAT_LE).' },
+        sampleRateHz: { kind: 'int', min: 8000, max: 384000, nullable: true, doc: 'Sample rate of the capture output; null = input.sampleRateHz. Must equal input.sampleRateHz.' },
+        restartMinMs: { kind: 'int', min: 10, max: 60000, doc: 'First wait before the capture command is started again after it exits; doubled after each exit that follows a short run, up to capture.restartMaxMs.' },
+        restartMaxMs: { kind: 'int', min: 10, max: 600000, doc: 'Longest wait between restarts of the capture command.' },
+        queueMs: { kind: 'int', min: 10, max: 60000, doc: 'Captured audio waiting for the server\'s thread at most, milliseconds; beyond it the oldest is dropped and counted (the capture command is never blocked).' },
       },
     },
     array: {
@@ -56,7 +73,10 @@ export const CONFIG_SCHEMA: FieldSpec = {
       fields: {
         sampleRateHz: { kind: 'int', min: 8000, max: 384000, doc: 'Sample rate every stream must carry; other rates are rejected and counted.' },
         encodings: { kind: 'enumList', values: ENCODINGS, minItems: 1, doc: 'Sample encodings accepted; frames in others are rejected and counted.' },
-        streamId: { kind: 'int', min: 0, max: 0xffffffff, nullable: true, doc: 'Only this stream id is processed (others are counted and dropped); null = the first stream that arrives.' },
+        select: { kind: 'enum', values: ['latest-active', 'pinned'], doc: 'Which own-format stream is processed when the array file maps no `inputs`: `pinned` = only input.streamId; `latest-active` = a stream becomes eligible after input.eligibleAfterMs of consecutive valid frames, and when the processed one has been silent for input.switchAfterS while another is active, the server switches to it (discontinuity flagged, journaled). PUT /api/input/stream switches by hand.' },
+        streamId: { kind: 'int', min: 0, max: 0xffffffff, nullable: true, doc: 'The stream processed: with input.select pinned the only one (others are counted and dropped); with latest-active the first choice (null = the first stream to become eligible).' },
+        eligibleAfterMs: { kind: 'int', min: 0, max: 60000, doc: 'With input.select latest-active: consecutive valid frames for this long (on the stream\'s own sample clock) before a stream may be processed; one stray datagram never takes over.' },
+        switchAfterS: { kind: 'number', min: 0.1, max: 3600, doc: 'With input.select latest-active: silence of the processed stream after which another active stream takes over.' },
         maxFloatLevelDbfs: { kind: 'number', min: 0, max: 771, doc: 'A float32 sample above this level (20·log10|x|, full scale 0 dBFS; +60 = 1000) refuses its frame, counted `beyond_bound`. Integer samples cannot exceed 0 dBFS.' },
       },
     },
@@ -88,6 +108,24 @@ export const CONFIG_SCHEMA: FieldSpec = {
         resyncLimit: { kind: 'int', min: 1, max: 1000, doc: 'Resynchronisations allowed within ingest.resyncWindowSeconds; beyond them confirmed far-off frames are dropped (`resync_limited`) and status reports a resync storm.' },
         resyncWindowSeconds: { kind: 'number', min: 0, max: 86400, doc: 'The window of ingest.resyncLimit, seconds.' },
         maxStreams: { kind: 'int', min: 1, max: 256, doc: 'Streams tracked at once; frames of further stream ids are rejected and counted.' },
+        groupHoldMs: { kind: 'int', min: 1, max: 10000, doc: 'With several inputs (the array file\'s `inputs`): a span is released once every member has it, or this long after the first member had it; a late or missing member\'s channels are zeros for that span, masked from the covariance and counted.' },
+        rtp: {
+          kind: 'object',
+          fields: {
+            sessions: {
+              kind: 'recordList',
+              maxItems: 64,
+              fields: {
+                name: { kind: 'string', maxLength: 64, pattern: /^[A-Za-z0-9._-]+$/, patternDoc: 'letters, digits, . _ -', doc: 'Name of the session (an `inputs` source in the array file).' },
+                sdp: { kind: 'string', maxLength: 4096, doc: 'SDP file describing the session (relative: to the working directory).' },
+              },
+              doc: 'RTP sessions received (network source): [{ "name": "unit-a", "sdp": "unit-a.sdp" }]; `serve --sdp FILE` adds one named after the file. L16/L24 payloads, unicast or multicast as the SDP says.',
+            },
+            jitterMs: { kind: 'number', min: 0, max: 1000, doc: 'Jitter buffer of each RTP session, milliseconds: packets are released in order once they are this old (or the buffer is full); a packet missing by then is lost and becomes zeros of exactly its length.' },
+            receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer of each RTP socket (SO_RCVBUF).' },
+            queueBytes: { kind: 'int', min: 1048576, max: 1073741824, doc: 'Queue between each RTP receive thread and the service thread; when full a packet is dropped and counted.' },
+          },
+        },
       },
     },
     engine: {
@@ -155,9 +193,10 @@ export const CONFIG_SCHEMA: FieldSpec = {
 export interface Config {
   server: { host: string; httpPort: number; token: string | null; allowedHosts: string[]; allowedOrigins: string[] };
   access: { openStatus: boolean; controlRatePerS: number; controlBurst: number; authFailureRatePerS: number; authFailureBurst: number };
-  source: { kind: 'simulator' | 'network' };
+  source: { kind: 'simulator' | 'network' | 'capture' };
+  capture: { command: string[]; channels: number; encoding: 'int16' | 'int24' | 'int32' | 'float32'; sampleRateHz: number | null; restartMinMs: number; restartMaxMs: number; queueMs: number };
   array: { file: string };
-  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; streamId: number | null; maxFloatLevelDbfs: number };
+  input: { sampleRateHz: number; encodings: ('int16' | 'int24' | 'int32' | 'float32')[]; select: 'latest-active' | 'pinned'; streamId: number | null; eligibleAfterMs: number; switchAfterS: number; maxFloatLevelDbfs: number };
   ingest: {
     udp: { enabled: boolean; port: number; receiveBufferBytes: number; queueBytes: number };
     websocket: { enabled: boolean; path: string; maxMessageBytes: number; maxConnections: number };
@@ -168,6 +207,8 @@ export interface Config {
     resyncLimit: number;
     resyncWindowSeconds: number;
     maxStreams: number;
+    groupHoldMs: number;
+    rtp: { sessions: { name: string; sdp: string }[]; jitterMs: number; receiveBufferBytes: number; queueBytes: number };
   };
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
@@ -201,5 +242,7 @@ export function allowedText(spec: Exclude<FieldSpec, { kind: 'object' }>): strin
       return `list of ${spec.patternDoc} (at most ${spec.maxItems}, each ≤ ${spec.maxLength} characters)`;
     case 'bool':
       return 'true or false';
+    case 'recordList':
+      return `list of at most ${spec.maxItems} { ${Object.entries(spec.fields).map(([k, f]) => `"${k}": ${allowedText(f)}`).join(', ')} }`;
   }
 }

@@ -82,6 +82,11 @@ function check(value: unknown, spec: FieldSpec, path: string, issues: ConfigIssu
     case 'bool':
       if (typeof value !== 'boolean') return bad('not a boolean');
       return;
+    case 'recordList':
+      if (!Array.isArray(value)) return bad('not a list');
+      if (value.length > spec.maxItems) return bad('too many items');
+      value.forEach((item, i) => check(item, { kind: 'object', fields: spec.fields }, `${path}[${i}]`, issues));
+      return;
   }
 }
 

@@ -54,7 +54,7 @@ describe('configuration', () => {
     expect(msgs).toContain('input.sampleRateHz = 48000.5: not an integer; allowed integer 8000–384000');
     expect(msgs).toContain('input.encodings = ["int16","int8"]: item "int8" not allowed; allowed list of int16, int24, int32, float32 (at least 1)');
     expect(msgs).toContain('ingest.reorderWindowFrames = 0: out of range; allowed integer 1–1024');
-    expect(msgs).toContain('source.kind = "cassette": not allowed; allowed one of simulator, network');
+    expect(msgs).toContain('source.kind = "cassette": not allowed; allowed one of simulator, network, capture');
     expect(msgs.some((m) => m.startsWith('extra: unknown field'))).toBe(true);
     expect(msgs).toHaveLength(6);
   });
