@@ -36,16 +36,17 @@ import { writeFileAtomic } from './outputs/sidecar.ts';
 import { BeamStreamOut } from './outputs/stream-out.ts';
 import { basename, resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
-import { IngestHub, RateMeter, type StreamStatus } from './ingest/ingest-hub.ts';
+import { RateMeter, type IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
+import { InputChoiceError, Inputs } from './ingest/inputs.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
-import { startUdpIngest, type UdpIngest } from './ingest/udp.ts';
-import { attachUpgrades, createWebSocketIngest, type WebSocketIngest } from './ingest/websocket.ts';
+import type { UdpIngest } from './ingest/udp.ts';
+import { attachUpgrades } from './ingest/websocket.ts';
+import { InputMask } from './engine/input-mask.ts';
+import { HttpError } from './http/errors.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
 export const CLIENT_DIST = fileURLToPath(new URL('../client/dist/', import.meta.url));
-/** How often held frames are checked against the reorder hold time. */
-const TICK_MS = 10;
 
 export interface Service {
   readonly app: FastifyInstance;
@@ -102,34 +103,16 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const bus = new BlockBus();
   const channels = geometry.positions.length;
 
-  let hub: IngestHub | null = null;
   let sim: SimulatorSource | null = null;
   let scene: SceneSimulator | null = null;
-  let udp: UdpIngest | null = null;
-  let wsIngest: WebSocketIngest | null = null;
-  let ticker: NodeJS.Timeout | null = null;
+  let inputs: Inputs | null = null;
+  // The processed stream changed: journaled as a change of the server's own (journalNote is set below).
+  let noteSwitch: (text: string, from: number | null, to: number) => void = () => {};
 
-  if (config.source.kind === 'network') {
-    hub = new IngestHub(
-      {
-        sampleRateHz: config.input.sampleRateHz,
-        channels,
-        encodings: config.input.encodings,
-        maxFloatLevelDbfs: config.input.maxFloatLevelDbfs,
-        streamId: config.input.streamId,
-        maxStreams: config.ingest.maxStreams,
-        sequencer: {
-          reorderWindowFrames: config.ingest.reorderWindowFrames,
-          reorderHoldMs: config.ingest.reorderHoldMs,
-          maxGapSamples: Math.round(config.ingest.maxGapSeconds * config.input.sampleRateHz),
-          maxGapBlockFrames: 4096,
-          jumpToleranceSamples: Math.round(config.ingest.jumpToleranceSeconds * config.input.sampleRateHz),
-          resyncLimit: config.ingest.resyncLimit,
-          resyncWindowMs: config.ingest.resyncWindowSeconds * 1000,
-        },
-      },
-      bus.publish,
-    );
+  if (config.source.kind !== 'simulator') {
+    inputs = new Inputs(loaded, bus.publish, {
+      onSwitch: (sw) => noteSwitch(sw.reason === 'manual' ? `processed stream set to ${sw.to}` : sw.reason === 'first' ? `processing stream ${sw.to}` : `stream ${sw.from} silent for ${config.input.switchAfterS} s: processing stream ${sw.to}`, sw.from, sw.to),
+    });
   } else {
     scene = new SceneSimulator({
       geometry,
@@ -193,6 +176,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     { minFreeBytes: config.data.minFreeBytes, label: `${folderLabel(config.data.dir)}/presets` },
   );
   const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
+  noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
   let recordingStartSeq = 0;
   let recordBeams = false;
   // Beam-audio listeners get the dashboard's slow-client policy (hub.*) with their own limits.
@@ -241,11 +225,19 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const eng = engine;
   const meters = new ChannelMeters(channels, fs);
   bus.subscribe((b) => meters.push(b.data, b.frames), 'channel-meters');
+  // Channels in use: the operator's mask and, of a merged array, the members that delivered the span.
+  const inputMask = new InputMask(channels, Math.round(3 * config.processing.tauS * fs), (active) => {
+    eng.setMask(active);
+    chain?.engine.setMask(active);
+  });
   let recordRaw = false;
   bus.subscribe((b) => {
     if (recordRaw && recorder.recording) recorder.push(b);
   }, 'recorder');
-  bus.subscribe((b) => eng.push(b), 'engine');
+  bus.subscribe((b) => {
+    inputMask.observe(b.sampleIndex, b.frames, b.absent);
+    eng.push(b);
+  }, 'engine');
   // The comparison chain (off until PUT /api/compare): same blocks, its own engine and live path.
   let chain: CompareChain | null = null;
   const chainDerived = (c: CompareChain): ProcessingDerived => ({ ...derived(), tauS: eng.hop / (fs * (1 - c.params.lambda)) });
@@ -261,12 +253,14 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   });
   bus.subscribe((b) => chain?.push(b), 'comparison');
 
+  const hub: IngestHub | null = inputs?.hub ?? null;
+  let udp: UdpIngest | null = null;
   const simRate = new RateMeter();
   const serialStats = { timedOut: 0 };
   const status = (): Record<string, unknown> => {
     const now = performance.now();
     let streams: StreamStatus[] | Record<string, unknown>[] = [];
-    if (hub) streams = hub.status(now);
+    if (inputs) streams = inputs.streams(now);
     else if (sim) {
       const s = sim.stats();
       const t = bus.status();
@@ -281,7 +275,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       source: { kind: config.source.kind, ...(scene ? { scenario: scene.describe() } : {}) },
       // The file's name only: status may be open to anyone who can reach the port.
       array: { name: geometry.name, file: basename(arrayPath), channels, calibration: describeCalibration(geometry.calibration) },
-      input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0 },
+      input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0, waiting: inputs ? inputs.waiting : false, ...(inputs ? inputs.selection(now) : {}), channelsOut: inputMask.inputOut },
       listeners: {
         http: { host: config.server.host, port: httpPort },
         udp: udp ? udpStatus(udp, config.ingest.udp.queueBytes) : null,
@@ -466,7 +460,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       setMasked: (masked) => {
         const active = Array.from({ length: channels }, (_, c) => !masked.includes(c));
         const before = meters.masked.flatMap((m, c) => (m ? [c] : []));
-        eng.setMask(active);
+        inputMask.setUser(active);
         meters.masked = active.map((a) => !a);
         journalNote('mask', { masked: before }, { masked: [...masked].sort((a, b) => a - b) });
       },
@@ -498,32 +492,39 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         return st;
       },
     },
+    input: {
+      describe: () => ({ source: config.source.kind, waiting: inputs ? inputs.waiting : false, ...(inputs ? inputs.selection() : {}), streams: inputs ? inputs.streams() : [], channelsOut: inputMask.inputOut }),
+      selectStream: (id) => {
+        try {
+          inputs?.selectStream(id);
+          if (!inputs) throw new InputChoiceError('fixed', 'the input is the built-in simulator, not chosen by stream');
+        } catch (e) {
+          if (!(e instanceof InputChoiceError)) throw e;
+          if (e.kind === 'unknown') throw new HttpError('ERR_HTTP_UNKNOWN_STREAM', { streamId: id, seen: e.seen.length ? e.seen.join(', ') : 'none' });
+          throw new HttpError('ERR_HTTP_INPUT_FIXED', { detail: e.message });
+        }
+        return { ...inputs!.selection(), streams: inputs!.streams() };
+      },
+    },
     session,
     compare,
     staticDir: CLIENT_DIST,
   });
   await app.ready();
-  if (hub && config.ingest.websocket.enabled) {
-    wsIngest = createWebSocketIngest(hub, config.ingest.websocket);
-  }
+  const wsIngest = inputs?.wsIngest ?? null;
   attachUpgrades(app.server as Server, wsIngest ? [wsIngest, live, compareLive, streamOut] : [live, compareLive, streamOut], upgradeAuth.check);
 
   let httpPort = 0;
   try {
     await app.listen({ host: config.server.host, port: config.server.httpPort });
     httpPort = (app.server.address() as { port: number }).port;
-    if (hub && config.ingest.udp.enabled) {
-      udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, { receiveBufferBytes: config.ingest.udp.receiveBufferBytes, queueBytes: config.ingest.udp.queueBytes });
-    }
+    await inputs?.listen();
+    udp = inputs?.udp ?? null;
   } catch (e) {
+    await inputs?.close();
     await app.close();
     await eng.close();
     throw e;
-  }
-  if (hub) {
-    const h = hub;
-    ticker = setInterval(() => h.tick(), TICK_MS);
-    ticker.unref();
   }
   sim?.start(bus.publish);
 
@@ -543,10 +544,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (closed) return;
       closed = true;
       sim?.stop();
-      if (ticker) clearInterval(ticker);
-      await udp?.close();
-      await wsIngest?.close();
-      hub?.flush();
+      await inputs?.close();
       if (recorder.recording) await recorder.stop();
       await streamOut.close();
       await live.close();

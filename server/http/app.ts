@@ -11,6 +11,7 @@ import { shown, type OriginPolicy } from './origin-policy.ts';
 import { tokenBuckets } from './token-buckets.ts';
 import { beamsRoutes, type BeamsController } from './routes/beams.ts';
 import { channelsRoutes, type ChannelsController } from './routes/channels.ts';
+import { inputRoutes, type InputController } from './routes/input.ts';
 import { processingRoutes, type ProcessingController } from './routes/processing.ts';
 import { recordingRoutes, type RecordingController } from './routes/recording.ts';
 import { sessionRoutes, type SessionController } from './routes/session.ts';
@@ -26,6 +27,8 @@ export interface AppDeps {
   processing?: ProcessingController;
   /** Channel levels and masking (`/api/channels`); absent without it. */
   channels?: ChannelsController;
+  /** The input picture and the processed stream (`/api/input`); absent without it. */
+  input?: InputController;
   /** Recording (`/api/recording`); absent without it. */
   recording?: RecordingController;
   /** Parameter journal and presets (`/api/journal`, `/api/presets`); absent without it. */
@@ -195,6 +198,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.compare) app.register(compareRoutes(deps.compare, serial), { prefix: '/api' });
   if (deps.beams) app.register(beamsRoutes(deps.beams), { prefix: '/api' });
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
+  if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;

@@ -7,8 +7,17 @@
  * had a frame accepted is forgotten to make room, otherwise the new id's frames are rejected
  * (`too_many_streams`); the per-stream reject counts of a forgotten stream move to the hub-wide
  * `rejected` counters under the same reasons, so every refused message stays counted exactly once.
- * Only the selected stream (config input.streamId, or the first stream with
- * an accepted frame) feeds the block sink; the others are sequenced and counted so status shows them.
+ * Which stream feeds the block sink (input.select): `pinned` = input.streamId only; `latest-active`
+ * = input.streamId when given, else the first stream to become eligible, and later another eligible
+ * stream once the processed one has been silent for `switchAfterMs`. A stream is eligible after
+ * `eligibleAfterSamples` of consecutive valid samples (no refusal, gap or resync in between), so one
+ * stray datagram can never take over. Until then its blocks wait (at most that many samples per
+ * stream, the oldest dropped beyond it) and are processed first when it is chosen, so a stream's
+ * opening samples are not lost to the wait. A switch flags a discontinuity. The others are
+ * sequenced and counted so status shows them.
+ *
+ * With members (an array fed by several inputs), each member stream's blocks go to `memberSink`
+ * instead, with its own channel count, and frame timings to `onTiming` (drift measurement).
  */
 import { decodeFrame, decodeSamplesChecked, decodeSamplesInto, FRAME_REJECT_REASONS, type SampleCheck, type SampleEncoding } from '../../shared/frame.ts';
 import type { Block, BlockSink } from '../../shared/types.ts';
@@ -43,11 +52,42 @@ export interface IngestHubOptions {
    * `beyond_bound`: finite but absurd values would swamp every covariance they enter.
    */
   maxFloatLevelDbfs: number;
-  /** Only this stream feeds the sink; null = the first stream with an accepted frame. */
+  /** The stream processed first (pinned: the only one); null = the first eligible stream. */
   streamId: number | null;
   maxStreams: number;
   sequencer: SequencerOptions;
+  /** How the processed stream is chosen; absent: latest-active, eligible at once, never switching. */
+  selection?: SelectionOptions;
+  /** Told of every change of the processed stream (journal, status). */
+  onSwitch?: (s: StreamSwitch) => void;
+  /**
+   * Member streams of a merged array: stream id → the fewest channels its frames must carry (one
+   * more than the highest channel it maps). Their blocks go to `memberSink`, not to the sink.
+   */
+  members?: ReadonlyMap<number, number>;
+  memberSink?: (streamId: number, block: Block) => void;
+  /** Each accepted frame of a member stream: its first sample and arrival time (drift). */
+  onTiming?: (streamId: number, firstSample: number, arrivalMs: number) => void;
 }
+
+export interface SelectionOptions {
+  mode: 'latest-active' | 'pinned';
+  /** Consecutive valid samples before a stream may be processed. */
+  eligibleAfterSamples: number;
+  /** Silence of the processed stream after which another active stream takes over, ms (Infinity: never). */
+  switchAfterMs: number;
+}
+
+export interface StreamSwitch {
+  from: number | null;
+  to: number;
+  reason: 'first' | 'silent' | 'manual';
+  /** Seconds since the hub started. */
+  atS: number;
+}
+
+/** A stream counts as active while its last accepted frame is at most this old, ms. */
+const ACTIVE_MS = 500;
 
 export interface RejectNote {
   reason: string;
@@ -80,6 +120,16 @@ export interface StreamStatus extends Omit<SequencerCounters, 'outOfRange' | 'ah
   resyncStorm: StormStatus | null;
   inputRateHz: number;
   lastFrameAgoS: number | null;
+  /** When its last frame arrived, seconds since the hub started (the clock of `lastSwitch.atS`). */
+  lastFrameAtS: number | null;
+  /** Consecutive valid samples so far (since the last refusal, gap or resync). */
+  runSamples: number;
+  /** Has had enough consecutive valid samples to be processed. */
+  eligible: boolean;
+  /** A member of a merged array (its blocks go to the merger). */
+  member: boolean;
+  /** Channels its frames carry (the array's, or a member stream's own). */
+  frameChannels: number | null;
 }
 
 function zeroCounts<K extends string>(keys: readonly K[]): Record<K, number> {
@@ -111,12 +161,26 @@ export class RateMeter {
 }
 
 class StreamState {
-  readonly sequencer: Sequencer;
+  sequencer: Sequencer;
   readonly rejected = zeroCounts(STREAM_REJECT_REASONS);
   readonly meter = new RateMeter();
   encoding: SampleEncoding | null = null;
   firstSample: number | null = null;
   lastFrameMs: number | null = null;
+  /** Last accepted frame's arrival. */
+  lastAcceptMs = -Infinity;
+  runSamples = 0;
+  /** The sequencer's counters when the run was last updated. */
+  seenSamples = 0;
+  seenGaps = 0;
+  seenResyncs = 0;
+  /** Blocks waiting while the stream is not processed (latest-active), oldest first. */
+  readonly pending: Block[] = [];
+  pendingFrames = 0;
+  /** Chosen with nothing waiting: its next block starts a new timeline. */
+  markNextDiscontinuity = false;
+  /** Channels of a member stream's frames (fixed by its first accepted frame). */
+  frameChannels: number | null = null;
   constructor(
     readonly streamId: number,
     readonly transport: Transport,
@@ -150,18 +214,133 @@ export class IngestHub {
   /** The float32 bound as an amplitude, full-scale units. */
   readonly #maxFloatAbs: number;
   #selected: number | null;
+  readonly #selection: SelectionOptions;
+  switches = 0;
+  lastSwitch: StreamSwitch | null = null;
 
   constructor(opts: IngestHubOptions, sink: BlockSink, nowMs = performance.now()) {
     this.#opts = opts;
     this.#maxFloatAbs = 10 ** (opts.maxFloatLevelDbfs / 20);
     this.#sink = sink;
-    this.#selected = opts.streamId;
+    this.#selection = opts.selection ?? { mode: 'latest-active', eligibleAfterSamples: 0, switchAfterMs: Infinity };
+    this.#selected = opts.members ? null : opts.streamId;
     this.#t0Ms = nowMs;
   }
 
   /** The stream feeding the sink, or null while none is chosen. */
   get selectedStream(): number | null {
     return this.#selected;
+  }
+
+  get selectionMode(): SelectionOptions['mode'] {
+    return this.#selection.mode;
+  }
+
+  /**
+   * Process `streamId` from now on (PUT /api/input/stream). False when no such stream is tracked
+   * or the hub feeds a merged array (its members are fixed by the array file).
+   */
+  select(streamId: number, nowMs = performance.now()): boolean {
+    const st = this.#streams.get(streamId);
+    if (!st || this.#opts.members) return false;
+    if (streamId !== this.#selected) this.#switchTo(st, 'manual', nowMs);
+    return true;
+  }
+
+  #eligible(st: StreamState): boolean {
+    return st.runSamples >= this.#selection.eligibleAfterSamples && st.runSamples > 0;
+  }
+
+  /**
+   * Count the samples the stream's sequencer released since the last look into its run of
+   * consecutive valid samples; a gap or a resync in between starts the run again.
+   */
+  #updateRun(st: StreamState): void {
+    const sc = st.sequencer.counters;
+    const delta = sc.samplesAccepted - st.seenSamples;
+    if (sc.gaps !== st.seenGaps || sc.resyncs !== st.seenResyncs) st.runSamples = 0;
+    st.runSamples += delta;
+    st.seenSamples = sc.samplesAccepted;
+    st.seenGaps = sc.gaps;
+    st.seenResyncs = sc.resyncs;
+  }
+
+  /** After a frame of `st` was placed: choose it if nothing is processed, or if the processed one fell silent. */
+  #consider(st: StreamState, nowMs: number): void {
+    if (this.#opts.members || this.#selection.mode === 'pinned' || st.streamId === this.#selected || !this.#eligible(st)) return;
+    if (this.#selected === null) {
+      this.#switchTo(st, 'first', nowMs);
+      return;
+    }
+    const cur = this.#streams.get(this.#selected);
+    const silentMs = cur ? nowMs - cur.lastAcceptMs : Infinity;
+    if (silentMs >= this.#selection.switchAfterMs) this.#switchTo(st, 'silent', nowMs);
+  }
+
+  /** The processed stream silent too long: the most recently active eligible stream takes over. */
+  #checkSilence(nowMs: number): void {
+    if (this.#opts.members || this.#selection.mode === 'pinned' || this.#selected === null) return;
+    const cur = this.#streams.get(this.#selected);
+    if (cur && nowMs - cur.lastAcceptMs < this.#selection.switchAfterMs) return;
+    let best: StreamState | null = null;
+    for (const st of this.#streams.values()) {
+      if (st === cur || !this.#eligible(st) || nowMs - st.lastAcceptMs > ACTIVE_MS) continue;
+      if (!best || st.lastAcceptMs > best.lastAcceptMs) best = st;
+    }
+    if (best) this.#switchTo(best, 'silent', nowMs);
+  }
+
+  #switchTo(st: StreamState, reason: StreamSwitch['reason'], nowMs: number): void {
+    this.#publish();
+    const from = this.#selected;
+    this.#selected = st.streamId;
+    const sw: StreamSwitch = { from, to: st.streamId, reason, atS: (nowMs - this.#t0Ms) / 1000 };
+    this.switches++;
+    this.lastSwitch = sw;
+    // The new stream's waiting blocks go first; after another stream its clock is not ours: a discontinuity.
+    let first = from !== null;
+    const waiting = st.pending.splice(0);
+    st.pendingFrames = 0;
+    if (waiting.length === 0 && first) st.markNextDiscontinuity = true;
+    for (const b of waiting) {
+      this.#forward(first ? { ...b, discontinuity: true } : b);
+      first = false;
+    }
+    this.#opts.onSwitch?.(sw);
+  }
+
+  /** A block of a stream that is not processed: kept (bounded) in case it is chosen. */
+  #hold(st: StreamState, block: Block): void {
+    if (this.#selection.mode === 'pinned') return;
+    st.pending.push(block);
+    st.pendingFrames += block.frames;
+  }
+
+  /**
+   * Keep at most the latest eligibleAfterSamples (whole blocks) of a stream that is not processed.
+   * Called after each frame and tick, not per block: the blocks one frame releases are all kept
+   * until the choice after that frame is made.
+   */
+  #trim(st: StreamState): void {
+    if (st.streamId === this.#selected) return;
+    const keep = Math.max(this.#selection.eligibleAfterSamples, 1);
+    while (st.pending.length > 1 && st.pendingFrames - st.pending[0].frames >= keep) st.pendingFrames -= st.pending.shift()!.frames;
+  }
+
+  /** Every block a stream's sequencer releases. */
+  #streamBlock(st: StreamState, block: Block): void {
+    if (this.#opts.members?.has(st.streamId)) {
+      this.#opts.memberSink?.(st.streamId, block);
+      return;
+    }
+    if (this.#opts.members) return;
+    if (this.#selected === st.streamId) {
+      if (st.markNextDiscontinuity) {
+        st.markNextDiscontinuity = false;
+        block = { ...block, discontinuity: true };
+      }
+      this.#forward(block);
+    } else this.#hold(st, block);
   }
 
   /** Count `count` messages refused by their transport before decoding (text message, oversize, queue full). */
@@ -187,10 +366,14 @@ export class IngestHub {
     this.messages++;
     st.lastFrameMs = nowMs;
     const o = this.#opts;
+    const member = o.members?.get(f.streamId);
     let why: StreamRejectReason | null = null;
     let detail = '';
     if (f.sampleRateHz !== o.sampleRateHz) [why, detail] = ['rate_mismatch', `frame at ${f.sampleRateHz} Hz, input is ${o.sampleRateHz} Hz`];
-    else if (f.channels !== o.channels) [why, detail] = ['channel_mismatch', `frame has ${f.channels} channels, the array has ${o.channels}`];
+    else if (member !== undefined) {
+      if (st.frameChannels !== null && f.channels !== st.frameChannels) [why, detail] = ['channel_mismatch', `${f.channels}-channel frame: stream ${f.streamId} has sent ${st.frameChannels}-channel frames`];
+      else if (f.channels < member) [why, detail] = ['channel_mismatch', `${f.channels}-channel frame: the array's inputs map channel ${member - 1} of stream ${f.streamId}`];
+    } else if (f.channels !== o.channels) [why, detail] = ['channel_mismatch', `${f.channels}-channel frames refused: the array has ${o.channels}`];
     else if (!o.encodings.includes(f.encoding)) [why, detail] = ['encoding_mismatch', `frame is ${f.encoding}, accepted: ${o.encodings.join(', ')}`];
     // The common case, inside a batch: the selected stream's next frame, decoded straight into the
     // run being assembled (no buffer of its own, nothing for the sequencer to hold).
@@ -211,16 +394,25 @@ export class IngestHub {
     }
     if (why !== null) {
       st.rejected[why]++;
+      st.runSamples = 0;
       this.lastRejected = { reason: why, detail, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
       return;
     }
     st.remote = remote;
     st.encoding = f.encoding;
+    if (member !== undefined && st.frameChannels === null) {
+      // A member stream's channel count is its own (at least what the array maps): its sequencer
+      // is made for it now, before it has placed anything.
+      st.frameChannels = f.channels;
+      if (f.channels !== member) st.sequencer = this.#sequencer(st, f.channels);
+    }
     if (st.firstSample === null) st.firstSample = f.firstSample;
     if (direct) {
       if (this.#runFrames === 0) this.#openRun(f.streamId, f.firstSample, false);
       st.sequencer.acceptNext(f.sequence, f.firstSample, n, nowMs);
       this.#runFrames += n;
+      this.#updateRun(st);
+      st.lastAcceptMs = nowMs;
       st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
       return;
     }
@@ -231,8 +423,15 @@ export class IngestHub {
     st.sequencer.push({ sequence: f.sequence, firstSample: f.firstSample, frames: n, data: data! }, nowMs);
     const dropped: SequencerReason | null = sc.resyncLimited > limited ? 'resync_limited' : sc.aheadOfClock > ahead ? 'ahead_of_clock' : sc.outOfRange > far ? 'out_of_range' : null;
     if (dropped !== null) {
+      st.runSamples = 0;
       this.lastRejected = { reason: dropped, detail: `firstSample ${f.firstSample} ${SEQUENCER_DETAIL[dropped]}`, transport, streamId: f.streamId, atS: (nowMs - this.#t0Ms) / 1000 };
+    } else {
+      st.lastAcceptMs = nowMs;
+      if (member !== undefined) o.onTiming?.(f.streamId, f.firstSample, nowMs);
     }
+    this.#updateRun(st);
+    this.#consider(st, nowMs);
+    this.#trim(st);
     st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
   }
 
@@ -243,6 +442,13 @@ export class IngestHub {
       st.meter.update(st.sequencer.counters.samplesAccepted, nowMs);
     }
     this.#publish();
+    this.#checkSilence(nowMs);
+    for (const st of this.#streams.values()) {
+      // Blocks the hold time released may belong to a stream that is eligible but not yet chosen.
+      this.#updateRun(st);
+      this.#consider(st, nowMs);
+      this.#trim(st);
+    }
   }
 
   /** Release everything held (shutdown, end of a replay). */
@@ -322,7 +528,7 @@ export class IngestHub {
         transport: st.transport,
         remote: st.remote,
         sampleRateHz: this.#opts.sampleRateHz,
-        channels: this.#opts.channels,
+        channels: st.frameChannels ?? this.#opts.channels,
         encoding: st.encoding,
         firstSample: st.firstSample,
         nextSample: next < 0 ? null : next,
@@ -331,8 +537,17 @@ export class IngestHub {
         resyncStorm: storm === null ? null : { sinceS: (storm.sinceMs - this.#t0Ms) / 1000, lastS: (storm.lastMs - this.#t0Ms) / 1000, framesDropped: storm.framesDropped },
         inputRateHz: st.meter.rate(nowMs),
         lastFrameAgoS: st.lastFrameMs === null ? null : (nowMs - st.lastFrameMs) / 1000,
+        lastFrameAtS: st.lastFrameMs === null ? null : (st.lastFrameMs - this.#t0Ms) / 1000,
+        runSamples: st.runSamples,
+        eligible: this.#eligible(st),
+        member: this.#opts.members?.has(st.streamId) ?? false,
+        frameChannels: this.#opts.members?.has(st.streamId) ? st.frameChannels : this.#opts.channels,
       };
     });
+  }
+
+  #sequencer(st: StreamState, channels: number): Sequencer {
+    return new Sequencer(st.streamId, this.#opts.sampleRateHz, channels, this.#opts.sequencer, (block) => this.#streamBlock(st, block));
   }
 
   #stream(id: number, transport: Transport, remote: string): StreamState | null {
@@ -345,12 +560,7 @@ export class IngestHub {
       // Keep its counts: the messages were refused and must stay counted once.
       for (const r of STREAM_REJECT_REASONS) this.rejected[r] += r in SEQUENCER_REASONS ? idle.sequencer.counters[SEQUENCER_REASONS[r as SequencerReason]] : idle.rejected[r];
     }
-    const st = new StreamState(id, transport, remote, () =>
-      new Sequencer(id, this.#opts.sampleRateHz, this.#opts.channels, this.#opts.sequencer, (block) => {
-        if (this.#selected === null) this.#selected = id;
-        if (this.#selected === id) this.#forward(block);
-      }),
-    );
+    const st: StreamState = new StreamState(id, transport, remote, (s) => this.#sequencer(s, this.#opts.members?.get(id) ?? this.#opts.channels));
     this.#streams.set(id, st);
     return st;
   }

@@ -19,6 +19,9 @@ export async function startTestService(layer: Record<string, unknown> = {}): Pro
         source: { kind: 'network' },
         array: { file: `${FIXTURES}arrays/square-4.json` },
         ingest: { udp: { port: 0 } },
+        // Most tests send bursts shorter than the 100 ms a stream needs to become eligible by
+        // default; the tests of stream selection (input-select.test.ts) restore it.
+        input: { eligibleAfterMs: 0 },
         // Journal and presets in a fresh folder per service unless the test names one.
         data: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-data-')) },
       },

@@ -84,6 +84,6 @@ describe('nullsteer send → server', () => {
     await waitFor(async () => ((await getStatus(svc!)).streams[0]?.rejected.channel_mismatch ?? 0) > 0, 3000, 'rejections');
     const st = await getStatus(svc);
     expect(st.streams[0].samplesAccepted).toBe(0);
-    expect(st.ingest.lastRejected.detail).toBe('frame has 6 channels, the array has 4');
+    expect(st.ingest.lastRejected.detail).toBe('6-channel frames refused: the array has 4');
   });
 });
