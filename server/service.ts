@@ -111,7 +111,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
 
   if (config.source.kind !== 'simulator') {
     inputs = new Inputs(loaded, bus.publish, {
-      onSwitch: (sw) => noteSwitch(sw.reason === 'manual' ? `processed stream set to ${sw.to}` : sw.reason === 'first' ? `processing stream ${sw.to}` : `stream ${sw.from} silent for ${config.input.switchAfterS} s: processing stream ${sw.to}`, sw.from, sw.to),
+      // The first choice is not a change of anything: status shows it; switches are journaled.
+      onSwitch: (sw) => {
+        if (sw.reason !== 'first') noteSwitch(sw.reason === 'manual' ? `processed stream set to ${sw.to}` : `stream ${sw.from} silent for ${config.input.switchAfterS} s: processing stream ${sw.to}`, sw.from, sw.to);
+      },
     });
   } else {
     scene = new SceneSimulator({
