@@ -2,15 +2,19 @@
  * `nullsteer serve`: load the configuration (defaults < file < env < flags), start the service,
  * print where it listens, and shut down cleanly on SIGINT/SIGTERM.
  */
+import { basename } from 'node:path';
 import { parseArgs } from 'node:util';
 import { FLAG_FIELDS, loadConfig } from './config/load.ts';
 import { ConfigError } from './config/validate.ts';
 import { startService, VERSION } from './service.ts';
 
 export const SERVE_USAGE = `usage: nullsteer serve [--config FILE] [--host ADDR] [--http-port N] [--udp-port N]
-                       [--source simulator|network] [--array FILE] [--token T] [--set FIELD=VALUE]...
-  Port 0 picks a free port. --set takes any config field by its dotted path, e.g.
-  --set ingest.reorderWindowFrames=16 (see README, "Configuration").`;
+                       [--source simulator|network|capture] [--array FILE] [--sdp FILE]... [--token T]
+                       [--set FIELD=VALUE]...
+  Port 0 picks a free port. --sdp receives the RTP session an SDP file describes (repeatable; each
+  named after its file; implies --source network). --set takes any config field by its dotted
+  path, e.g. --set ingest.reorderWindowFrames=16 or --set capture.command='["arecord","-c","16"]'
+  (see README, "Configuration").`;
 
 export interface CliIo {
   out: (line: string) => void;
@@ -38,6 +42,7 @@ export function parseServeArgs(argv: string[]): { configFile?: string; overrides
       source: { type: 'string' },
       array: { type: 'string' },
       token: { type: 'string' },
+      sdp: { type: 'string', multiple: true },
       set: { type: 'string', multiple: true },
       help: { type: 'boolean', short: 'h' },
     },
@@ -47,6 +52,15 @@ export function parseServeArgs(argv: string[]): { configFile?: string; overrides
   for (const [flag, path] of Object.entries(FLAG_FIELDS)) {
     const v = (values as Record<string, unknown>)[flag];
     if (typeof v === 'string') overrides.push([path, v]);
+  }
+  if (values.sdp && values.sdp.length > 0) {
+    // Each session is named after its file (unit-a.sdp → unit-a), the name the array file's inputs use.
+    const sessions = values.sdp.map((f) => ({ name: basename(f).replace(/\.sdp$/i, '').replace(/[^A-Za-z0-9._-]/g, '_').slice(0, 64) || 'rtp', sdp: f }));
+    const names = sessions.map((x) => x.name);
+    const twice = names.find((n, i) => names.indexOf(n) !== i);
+    if (twice) throw new TypeError(`--sdp: two files named ${twice}; sessions are named after their files and must differ`);
+    overrides.push(['ingest.rtp.sessions', JSON.stringify(sessions)]);
+    if (typeof values.source !== 'string') overrides.push(['source.kind', 'network']);
   }
   for (const s of values.set ?? []) {
     const eq = s.indexOf('=');
