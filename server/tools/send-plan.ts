@@ -35,6 +35,11 @@ export function randomStreamId(): number {
   return randomInt(1, 0x100000000);
 }
 
+/** ERR_SEND_OPTION: the frames' firstSample would pass 2^53 − 1 (docs/wire-format.md). */
+export function clockOverflow(startSample: number, sent: number) {
+  return optionError('startSample', startSample, `the sample clock would pass 2^53 − 1 after ${sent} samples`, `an integer 0–${Number.MAX_SAFE_INTEGER} leaving room for the samples sent`);
+}
+
 /** The given stream id (checked to be a uint32), or a fresh random one. */
 export function resolveStreamId(streamId: number | undefined): number {
   if (streamId === undefined) return randomStreamId();

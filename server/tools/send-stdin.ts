@@ -20,7 +20,7 @@ import { bytesPerSample, FRAME_HEADER_BYTES, writeHeader, type FrameHeader } fro
 import { checkSampleFormat, type SampleFormat } from '../io/raw.ts';
 import type { FrameTransport } from './frame-transport.ts';
 import { sendError } from './send-errors.ts';
-import { checkInt, DEFAULT_UDP_TARGET, openTransport, resolveSamplesPerFrame, resolveStreamId, type SendTarget } from './send-plan.ts';
+import { checkInt, clockOverflow, DEFAULT_UDP_TARGET, openTransport, resolveSamplesPerFrame, resolveStreamId, type SendTarget } from './send-plan.ts';
 
 const EMPTY = new Uint8Array(0);
 
@@ -245,6 +245,7 @@ async function pump(input: AsyncIterable<Uint8Array>, transport: FrameTransport,
       chunker.push(chunk);
       for (let rows = chunker.nextFrame(payload); rows > 0; rows = chunker.nextFrame(payload)) {
         header.sequence = frames % 0x100000000;
+        if (startSample + sent > Number.MAX_SAFE_INTEGER) throw clockOverflow(startSample, sent);
         header.firstSample = startSample + sent;
         header.samplesPerChannel = rows;
         writeHeader(frame, header);

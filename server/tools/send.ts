@@ -15,7 +15,7 @@ import type { FrameTransport } from './frame-transport.ts';
 import { Pacer } from './pacer.ts';
 import { FLAG_OF_OPTION, parseSendArgs, SEND_USAGE } from './send-args.ts';
 import { isSendError, optionError, SEND_ERRORS, sendError } from './send-errors.ts';
-import { checkInt, DEFAULT_UDP_TARGET, openTransport, resolveSamplesPerFrame, resolveStreamId, type SendTarget } from './send-plan.ts';
+import { checkInt, clockOverflow, DEFAULT_UDP_TARGET, openTransport, resolveSamplesPerFrame, resolveStreamId, type SendTarget } from './send-plan.ts';
 import { sendStream, type SendStart, type StreamSendResult } from './send-stdin.ts';
 
 export { resolveSamplesPerFrame, WS_FRAME_BYTES, type SendTarget } from './send-plan.ts';
@@ -137,6 +137,7 @@ async function pump(reader: FileSampleReader, transport: FrameTransport, plan: P
         }
         const count = Math.min(n, chunkFrames - off);
         header.sequence = frames % 0x100000000;
+        if (startSample + sent > Number.MAX_SAFE_INTEGER) throw clockOverflow(startSample, sent);
         header.firstSample = startSample + sent;
         header.samplesPerChannel = count;
         await transport.send(encodeFrameRaw(header, chunk.subarray(off * rowBytes, (off + count) * rowBytes)));

@@ -218,6 +218,17 @@ describe('sendStream', () => {
     });
   });
 
+  it('stops with ERR_SEND_OPTION before a firstSample would pass 2^53 − 1 (docs/wire-format.md)', async () => {
+    const mem = memoryTransport(true);
+    const start = Number.MAX_SAFE_INTEGER - 10;
+    await expect(sendStream({ input: Readable.from([new Uint8Array(ROW * 30)]), format: FORMAT, transport: mem.transport, startSample: start, samplesPerFrame: 10 })).rejects.toMatchObject({
+      code: 'ERR_SEND_OPTION',
+      option: 'startSample',
+      message: expect.stringContaining('the sample clock would pass 2^53 − 1 after 20 samples'),
+    });
+    expect(decodeAll(mem.frames).map((f) => f.firstSample)).toEqual([start, start + 10]); // the last at 2^53 − 1 exactly
+  });
+
   it('over UDP: frames within 1472 bytes by default, sample frames whole', async () => {
     const socket = dgram.createSocket({ type: 'udp4', recvBufferSize: 4 << 20 });
     const got: Uint8Array[] = [];
