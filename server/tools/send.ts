@@ -140,7 +140,7 @@ async function pump(reader: FileSampleReader, transport: FrameTransport, plan: P
         if (startSample + sent > Number.MAX_SAFE_INTEGER) throw clockOverflow(startSample, sent);
         header.firstSample = startSample + sent;
         header.samplesPerChannel = count;
-        await transport.send(encodeFrameRaw(header, chunk.subarray(off * rowBytes, (off + count) * rowBytes)));
+        await transport.send(encodeFrameRaw(header, chunk.subarray(off * rowBytes, (off + count) * rowBytes)), signal);
         frames++;
         sent += count;
       }
