@@ -86,9 +86,12 @@ export function isOutputError(e: unknown): e is OutputError {
 
 // ---------------------------------------------------------------------------------------------
 
-/** Sample encodings a recording may use. */
-export type RecordingEncoding = 'int16' | 'int24' | 'float32';
-export const RECORDING_ENCODINGS: readonly RecordingEncoding[] = ['int16', 'int24', 'float32'];
+/**
+ * Sample encodings a recording may use. int32 keeps what float32 samples carry (24-bit
+ * significands): an int16, int24 or left-justified 24-bit int32 input is recorded bit for bit.
+ */
+export type RecordingEncoding = 'int16' | 'int24' | 'int32' | 'float32';
+export const RECORDING_ENCODINGS: readonly RecordingEncoding[] = ['int16', 'int24', 'int32', 'float32'];
 
 /** RIFF sizes are uint32; the default limit leaves 4 KiB for the header and the pad byte. */
 export const RIFF_MAX_DATA_BYTES = 0xffffffff - 4096;

@@ -16,8 +16,16 @@ import { sendError } from './send-errors.ts';
 export interface FrameTransport {
   /** Human-readable target, e.g. `udp://127.0.0.1:9750`. */
   readonly target: string;
-  /** Send one frame; rejects with ERR_SEND_TRANSPORT if the transport failed. */
-  send(frame: Uint8Array): Promise<void>;
+  /**
+   * True when the frame's bytes may be overwritten as soon as send() has resolved (the transport
+   * no longer reads them); false when it may still hold a reference, so each frame needs its own buffer.
+   */
+  readonly frameReusable: boolean;
+  /**
+   * Send one frame; rejects with ERR_SEND_TRANSPORT if the transport failed. When `signal` aborts
+   * while send() waits for the queue to drain, it resolves at once (the frame stays queued).
+   */
+  send(frame: Uint8Array, signal?: AbortSignal): Promise<void>;
   /** Flush and close; never rejects. */
   close(): Promise<void>;
 }
@@ -49,6 +57,8 @@ export async function openUdpTransport(host: string, port: number): Promise<Fram
   let closed = false;
   return {
     target,
+    // The send callback runs once the kernel has copied the datagram.
+    frameReusable: true,
     send(frame) {
       return new Promise((resolve, reject) => {
         if (failure) return reject(sendError('ERR_SEND_TRANSPORT', `${target}: ${failure.message}`, failure));
@@ -107,18 +117,30 @@ export async function openWsTransport(url: string, options: WsTransportOptions =
     if (ws.readyState !== WebSocket.OPEN) return sendError('ERR_SEND_TRANSPORT', `${url}: ${closedBy ?? 'the connection is closed'}`);
     return null;
   };
+  /**
+   * The error to throw once the connection is not open. While it is closing, the peer's close code
+   * is known only at the 'close' event: wait for it (bounded) so the message can name the code.
+   */
+  const closingProblem = async () => {
+    if (!failure && closedBy === null && ws.readyState === WebSocket.CLOSING) {
+      const timer = setTimeout(() => ws.terminate(), WS_CLOSE_TIMEOUT_MS);
+      await closedEvent;
+      clearTimeout(timer);
+    }
+    return problem();
+  };
   return {
     target: url,
-    async send(frame) {
-      const before = problem();
-      if (before) throw before;
+    // ws may keep a reference to the frame while it sits in the socket's queue.
+    frameReusable: false,
+    async send(frame, signal) {
+      if (problem()) throw await closingProblem();
       ws.send(frame, { binary: true }, (err) => {
         if (err) failure ??= err;
       });
-      while (ws.bufferedAmount > maxBufferedBytes) {
-        await sleepMs(1);
-        const during = problem();
-        if (during) throw during;
+      while (ws.bufferedAmount > maxBufferedBytes && !signal?.aborted) {
+        await sleepMs(1, signal);
+        if (problem()) throw await closingProblem();
       }
     },
     async close() {

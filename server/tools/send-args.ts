@@ -2,16 +2,19 @@
  * Command line of `nullsteer send`: turns argv into {@link SendOptions}, checking every flag. Each
  * problem is reported as ERR_SEND_USAGE naming the flag, the value given and the values allowed.
  * Flags take their value as `--flag value` or `--flag=value`; a repeated flag keeps its last value.
+ * FILE `-` reads standard input (a file named `-` is `./-`).
  */
 import { FRAME_HEADER_BYTES, MAX_FRAME_BYTES, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
 import { sendError, type SendError } from './send-errors.ts';
-import type { SendOptions, SendTarget } from './send.ts';
+import { DEFAULT_UDP_TARGET, type SendTarget } from './send-plan.ts';
+import type { SendOptions } from './send.ts';
+
+export { DEFAULT_UDP_TARGET };
 
 export const SEND_USAGE =
-  'usage: nullsteer send FILE [--udp HOST:PORT | --ws URL] [--raw --channels M --rate HZ --encoding int16|int24|int32|float32] ' +
-  '[--speed X | --fast] [--stream-id N] [--frame-samples N | --max-frame-bytes B] [--start-sample N] [--loop] [--quiet]';
-
-export const DEFAULT_UDP_TARGET: SendTarget = { kind: 'udp', host: '127.0.0.1', port: 9750 };
+  'usage: nullsteer send FILE|- [--udp HOST:PORT | --ws URL] [--raw --channels M --rate HZ --encoding int16|int24|int32|float32] ' +
+  '[--speed X | --fast] [--stream-id N] [--frame-samples N | --max-frame-bytes B] [--start-sample N] [--loop] [--quiet]' +
+  '\n  - reads raw samples from standard input (needs --raw …), sent as they arrive; --speed and --loop apply to files only';
 
 /** The flag that sets each SendOptions field, for messages about options checked after parsing. */
 export const FLAG_OF_OPTION: Record<string, string> = {
@@ -30,6 +33,8 @@ type BooleanFlag = (typeof BOOLEAN_FLAGS)[number];
 
 export interface ParsedSendArgs {
   options: SendOptions;
+  /** FILE was `-`: read raw samples from standard input (options.raw is then set, speed and loop are not). */
+  stdin: boolean;
   quiet: boolean;
   help: boolean;
 }
@@ -139,9 +144,15 @@ export function parseSendArgs(argv: readonly string[]): ParsedSendArgs {
   const { values, booleans, positionals } = tokenize(argv);
   const help = booleans.has('help');
   const has = (f: string) => values.has(f as ValueFlag) || booleans.has(f as BooleanFlag);
-  if (help) return { options: { path: positionals[0] ?? '' }, quiet: booleans.has('quiet'), help };
-  if (positionals.length === 0) throw usage('FILE is missing');
+  if (help) return { options: { path: positionals[0] ?? '' }, stdin: false, quiet: booleans.has('quiet'), help };
+  if (positionals.length === 0) throw usage('FILE is missing (- reads standard input)');
   if (positionals.length > 1) throw usage(`one FILE expected, got ${positionals.length}: ${positionals.map((p) => JSON.stringify(p)).join(' ')}`);
+  const stdin = positionals[0] === '-';
+  if (stdin) {
+    if (!booleans.has('raw')) throw usage('- (standard input) needs --raw --channels M --rate HZ --encoding int16|int24|int32|float32: a pipe carries no header');
+    if (has('speed')) throw usage('--speed does not apply to standard input (-): the source paces it, samples are sent as they arrive');
+    if (has('loop')) throw usage('--loop needs a file: standard input (-) cannot be replayed');
+  }
   exclusive(has, 'udp', 'ws');
   exclusive(has, 'speed', 'fast');
   exclusive(has, 'frame-samples', 'max-frame-bytes');
@@ -170,7 +181,7 @@ export function parseSendArgs(argv: readonly string[]): ParsedSendArgs {
   }
 
   const speed = values.get('speed');
-  options.speed = booleans.has('fast') ? 'fast' : speed !== undefined ? parseSpeed(speed) : 1;
+  if (!stdin) options.speed = booleans.has('fast') ? 'fast' : speed !== undefined ? parseSpeed(speed) : 1;
   const streamId = values.get('stream-id');
   if (streamId !== undefined) options.streamId = intFlag('stream-id', streamId, 0, 0xffffffff);
   const frameSamples = values.get('frame-samples');
@@ -179,6 +190,6 @@ export function parseSendArgs(argv: readonly string[]): ParsedSendArgs {
   if (maxFrameBytes !== undefined) options.maxFrameBytes = intFlag('max-frame-bytes', maxFrameBytes, FRAME_HEADER_BYTES + 2, MAX_FRAME_BYTES);
   const startSample = values.get('start-sample');
   if (startSample !== undefined) options.startSample = intFlag('start-sample', startSample, 0, Number.MAX_SAFE_INTEGER);
-  options.loop = booleans.has('loop');
-  return { options, quiet: booleans.has('quiet'), help };
+  if (!stdin) options.loop = booleans.has('loop');
+  return { options, stdin, quiet: booleans.has('quiet'), help };
 }

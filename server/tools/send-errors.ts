@@ -1,7 +1,7 @@
 /**
  * The error catalogue of `nullsteer send`: one code per failure with its message prefix, the
  * built-in class it is thrown as, and the process exit code the command returns for it
- * (2 = the command line or options are wrong, 1 = the file or the network failed).
+ * (2 = the command line or options are wrong, 1 = the file, the input or the network failed).
  */
 
 type ErrorClass = typeof Error | typeof RangeError | typeof TypeError;
@@ -11,6 +11,7 @@ export const SEND_ERRORS = {
   ERR_SEND_OPTION: { errorClass: RangeError, exitCode: 2, message: 'invalid send option' },
   ERR_SEND_TOO_WIDE: { errorClass: RangeError, exitCode: 1, message: 'file too wide for a frame' },
   ERR_SEND_EMPTY: { errorClass: RangeError, exitCode: 1, message: 'nothing to send' },
+  ERR_SEND_INPUT: { errorClass: Error, exitCode: 1, message: 'reading the input failed' },
   ERR_SEND_CONNECT: { errorClass: Error, exitCode: 1, message: 'cannot reach the target' },
   ERR_SEND_TRANSPORT: { errorClass: Error, exitCode: 1, message: 'sending failed' },
 } as const satisfies Record<string, { errorClass: ErrorClass; exitCode: number; message: string }>;

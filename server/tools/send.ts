@@ -1,28 +1,24 @@
 /**
  * `nullsteer send`: play a WAV (or raw) file into a nullsteer server as ingest frames, over UDP or
- * WebSocket, in real time, faster, or as fast as the transport takes them.
+ * WebSocket, in real time, faster, or as fast as the transport takes them; or, with FILE `-`, send
+ * raw samples from standard input as they arrive (./send-stdin.ts).
  *
  * The file's sample bytes are passed through untouched: WAV PCM/float data and the frame payload of
  * shared/frame.ts are both interleaved little-endian. The file is read in chunks of about
  * {@link READ_CHUNK_BYTES}, never whole.
  */
-import {
-  encodeFrameRaw,
-  FRAME_HEADER_BYTES,
-  MAX_FRAME_BYTES,
-  maxSamplesPerFrame,
-  MTU_FRAME_BYTES,
-  type FrameHeader,
-} from '../../shared/frame.ts';
+import { bytesPerSample, encodeFrameRaw, type FrameHeader, type SampleEncoding } from '../../shared/frame.ts';
 import { isIoError } from '../io/errors.ts';
 import { openRaw, type FileSampleReader, type RawOptions, type SampleFileInfo } from '../io/raw.ts';
 import { openWav } from '../io/wav.ts';
-import { openUdpTransport, openWsTransport, type FrameTransport } from './frame-transport.ts';
+import type { FrameTransport } from './frame-transport.ts';
 import { Pacer } from './pacer.ts';
-import { DEFAULT_UDP_TARGET, FLAG_OF_OPTION, parseSendArgs, SEND_USAGE } from './send-args.ts';
+import { FLAG_OF_OPTION, parseSendArgs, SEND_USAGE } from './send-args.ts';
 import { isSendError, optionError, SEND_ERRORS, sendError } from './send-errors.ts';
+import { checkInt, clockOverflow, DEFAULT_UDP_TARGET, openTransport, resolveSamplesPerFrame, resolveStreamId, type SendTarget } from './send-plan.ts';
+import { sendStream, type SendStart, type StreamSendResult } from './send-stdin.ts';
 
-export type SendTarget = { kind: 'udp'; host: string; port: number } | { kind: 'ws'; url: string };
+export { resolveSamplesPerFrame, WS_FRAME_BYTES, type SendTarget } from './send-plan.ts';
 
 export interface SendOptions {
   /** WAV/RF64 file, or a headerless file when `raw` is given. */
@@ -33,7 +29,7 @@ export interface SendOptions {
   target?: SendTarget;
   /** Multiple of real time (> 0), or 'fast' for no pacing. Default 1. */
   speed?: number | 'fast';
-  /** uint32, default 1. */
+  /** uint32; default a fresh random id (1–2^32−1) per call. */
   streamId?: number;
   /** Samples per channel in each frame; default the most that fit {@link maxFrameBytes}. */
   samplesPerFrame?: number;
@@ -48,10 +44,11 @@ export interface SendOptions {
   /** WebSocket queue limit, bytes. */
   wsMaxBufferedBytes?: number;
   /** Called once the file is open and the transport connected, before the first frame. */
-  onStart?: (info: SampleFileInfo, target: string, samplesPerFrame: number) => void;
+  onStart?: (info: SampleFileInfo, start: SendStart) => void;
 }
 
 export interface SendResult {
+  streamId: number;
   frames: number;
   samplesPerChannel: number;
   /** Wall-clock time from the first frame until the end of the last (paced) or its send (fast), seconds. */
@@ -63,40 +60,8 @@ export interface SendResult {
   target: string;
 }
 
-/** Default largest WebSocket frame, bytes: large enough to amortise per-message cost, ≤ MAX_FRAME_BYTES. */
-export const WS_FRAME_BYTES = 16384;
 /** Bytes read from the file at a time. */
 export const READ_CHUNK_BYTES = 256 * 1024;
-
-function checkInt(option: string, v: number, min: number, max: number): void {
-  if (!Number.isSafeInteger(v) || v < min || v > max) throw optionError(option, v, 'out of range', `an integer ${min}–${max}`);
-}
-
-/** Samples per channel per frame for this file and target, or ERR_SEND_OPTION naming the option. */
-export function resolveSamplesPerFrame(info: SampleFileInfo, target: SendTarget, options: Pick<SendOptions, 'samplesPerFrame' | 'maxFrameBytes'>): number {
-  const { channels, encoding, blockAlignBytes } = info;
-  const smallest = FRAME_HEADER_BYTES + blockAlignBytes;
-  if (smallest > MAX_FRAME_BYTES) {
-    throw sendError('ERR_SEND_TOO_WIDE', `one sample of ${channels} channels × ${encoding} makes a ${smallest}-byte frame, over the ${MAX_FRAME_BYTES}-byte limit`);
-  }
-  const most = maxSamplesPerFrame(channels, encoding, MAX_FRAME_BYTES);
-  if (options.samplesPerFrame !== undefined) {
-    const n = options.samplesPerFrame;
-    if (!Number.isSafeInteger(n) || n < 1 || n > most) {
-      throw optionError('samplesPerFrame', n, `a frame of ${channels}-channel ${encoding} holds at most ${most} samples (${MAX_FRAME_BYTES}-byte limit)`, `1–${most}`);
-    }
-    return n;
-  }
-  const limit = options.maxFrameBytes ?? (target.kind === 'udp' ? MTU_FRAME_BYTES : WS_FRAME_BYTES);
-  if (!Number.isSafeInteger(limit) || limit < smallest || limit > MAX_FRAME_BYTES) {
-    throw optionError('maxFrameBytes', limit, `one sample of ${channels}-channel ${encoding} needs a ${smallest}-byte frame`, `${smallest}–${MAX_FRAME_BYTES}`);
-  }
-  return maxSamplesPerFrame(channels, encoding, limit);
-}
-
-function openTransport(target: SendTarget, wsMaxBufferedBytes?: number): Promise<FrameTransport> {
-  return target.kind === 'udp' ? openUdpTransport(target.host, target.port) : openWsTransport(target.url, { maxBufferedBytes: wsMaxBufferedBytes });
-}
 
 /**
  * Send a file as ingest frames. Frame k carries sequence k (mod 2^32) and firstSample
@@ -107,11 +72,10 @@ function openTransport(target: SendTarget, wsMaxBufferedBytes?: number): Promise
 export async function sendFile(options: SendOptions): Promise<SendResult> {
   const target = options.target ?? DEFAULT_UDP_TARGET;
   const speed = options.speed ?? 1;
-  const streamId = options.streamId ?? 1;
+  const streamId = resolveStreamId(options.streamId);
   const startSample = options.startSample ?? 0;
   const { signal } = options;
   if (speed !== 'fast' && !(speed > 0 && Number.isFinite(speed))) throw optionError('speed', speed, 'not positive and finite', "a number > 0 or 'fast'");
-  checkInt('streamId', streamId, 0, 0xffffffff);
   checkInt('startSample', startSample, 0, Number.MAX_SAFE_INTEGER);
 
   const reader: FileSampleReader = options.raw ? await openRaw(options.path, options.raw) : await openWav(options.path);
@@ -121,7 +85,7 @@ export async function sendFile(options: SendOptions): Promise<SendResult> {
     const n = resolveSamplesPerFrame(info, target, options);
     const transport = await openTransport(target, options.wsMaxBufferedBytes);
     try {
-      options.onStart?.(info, transport.target, n);
+      options.onStart?.(info, { streamId, target: transport.target, samplesPerFrame: n });
       return await pump(reader, transport, { n, speed, streamId, startSample, loop: options.loop ?? false, signal });
     } finally {
       await transport.close();
@@ -173,9 +137,10 @@ async function pump(reader: FileSampleReader, transport: FrameTransport, plan: P
         }
         const count = Math.min(n, chunkFrames - off);
         header.sequence = frames % 0x100000000;
+        if (startSample + sent > Number.MAX_SAFE_INTEGER) throw clockOverflow(startSample, sent);
         header.firstSample = startSample + sent;
         header.samplesPerChannel = count;
-        await transport.send(encodeFrameRaw(header, chunk.subarray(off * rowBytes, (off + count) * rowBytes)));
+        await transport.send(encodeFrameRaw(header, chunk.subarray(off * rowBytes, (off + count) * rowBytes)), signal);
         frames++;
         sent += count;
       }
@@ -187,6 +152,7 @@ async function pump(reader: FileSampleReader, transport: FrameTransport, plan: P
   // the elapsed time and achieved rate describe the stream rather than the last frame's start.
   if (pacer && !stopped) await pacer.waitFor(sent, signal);
   return {
+    streamId,
     frames,
     samplesPerChannel: sent,
     elapsedS: (performance.now() - t0) / 1000,
@@ -204,17 +170,52 @@ export interface CommandIo {
   err?: (line: string) => void;
   /** Stops the sending like SIGINT does (tests). */
   signal?: AbortSignal;
+  /** What `-` reads; default process.stdin. */
+  input?: AsyncIterable<Uint8Array> & { isTTY?: boolean };
 }
 
-function summary(r: SendResult): string {
-  const rate = r.info.sampleRateHz;
+interface SummaryFields {
+  frames: number;
+  samplesPerChannel: number;
+  sampleRateHz: number;
+  /** Sample bytes sent. */
+  bytes: number;
+  streamId: number;
+  target: string;
+  elapsedS: number;
+  stopped: boolean;
+}
+
+/** `1 byte`, `2 bytes`. */
+function count(n: number, noun: string): string {
+  return `${n} ${noun}${n === 1 ? '' : 's'}`;
+}
+
+/** The last line of a send: what went where, and how fast compared with real time. */
+function summary(r: SummaryFields, tail = ''): string {
+  const rate = r.sampleRateHz;
   const audioS = r.samplesPerChannel / rate;
   const achievedHz = r.elapsedS > 0 ? r.samplesPerChannel / r.elapsedS : Infinity;
   return (
-    `sent ${r.frames} frames, ${r.samplesPerChannel} samples per channel (${audioS.toFixed(3)} s at ${rate} Hz) ` +
-    `to ${r.target} in ${r.elapsedS.toFixed(3)} s: ${Math.round(achievedHz)} samples/s per channel, ` +
-    `${(achievedHz / rate).toFixed(2)}× real time${r.stopped ? ' (stopped)' : ''}`
+    `sent ${count(r.frames, 'frame')}, ${count(r.samplesPerChannel, 'sample')} per channel (${audioS.toFixed(3)} s at ${rate} Hz, ${count(r.bytes, 'byte')}) ` +
+    `as stream ${r.streamId} to ${r.target} in ${r.elapsedS.toFixed(3)} s: ${Math.round(achievedHz)} samples/s per channel, ` +
+    `${(achievedHz / rate).toFixed(2)}× real time${tail}${r.stopped ? ' (stopped)' : ''}`
   );
+}
+
+/** The first line of a send: what is sent, as which stream, to where. */
+function startLine(what: string, format: { channels: number; encoding: SampleEncoding; sampleRateHz: number }, start: SendStart): string {
+  return `sending ${what} (${count(format.channels, 'channel')}, ${format.encoding}, ${format.sampleRateHz} Hz) as stream ${start.streamId} to ${start.target}, ${start.samplesPerFrame} samples per frame`;
+}
+
+function fileSummary(r: SendResult): string {
+  return summary({ ...r, sampleRateHz: r.info.sampleRateHz, bytes: r.samplesPerChannel * r.info.blockAlignBytes });
+}
+
+function streamSummary(r: StreamSendResult): string {
+  const rowBytes = r.format.channels * bytesPerSample(r.format.encoding);
+  const tail = r.stopped ? '' : `; end of input, ${count(r.partialBytes, 'byte')} of a partial sample frame discarded`;
+  return summary({ ...r, sampleRateHz: r.format.sampleRateHz, bytes: r.samplesPerChannel * rowBytes }, tail);
 }
 
 function describeTruncation(path: string, info: SampleFileInfo): string | null {
@@ -225,9 +226,10 @@ function describeTruncation(path: string, info: SampleFileInfo): string | null {
 }
 
 /**
- * `nullsteer send FILE …`. Never throws for user errors: prints them to stderr (with the usage line
- * for command-line mistakes) and returns the exit code (0 done, 1 file or network failure, 2 usage;
- * 130 when SIGINT stops a non-looping send).
+ * `nullsteer send FILE …` and `nullsteer send - --raw …`. Never throws for user errors: prints them
+ * to stderr (with the usage line for command-line mistakes) and returns the exit code (0 done, 1
+ * file, input or network failure, 2 usage; 130 when SIGINT stops a non-looping send).
+ * Unless --quiet, the first line says which stream id is used and the last one sums up the send.
  */
 export async function sendCommand(argv: string[], io: CommandIo = {}): Promise<number> {
   const out = io.out ?? ((line: string) => void process.stdout.write(`${line}\n`));
@@ -244,24 +246,50 @@ export async function sendCommand(argv: string[], io: CommandIo = {}): Promise<n
     out(SEND_USAGE);
     return 0;
   }
-  const { options, quiet } = parsed;
+  const { options, quiet, stdin } = parsed;
+  const input = io.input ?? process.stdin;
+  if (stdin && input.isTTY) {
+    err('nullsteer send: invalid command line: - reads raw samples from standard input, which is a terminal here; pipe a program\'s output into it');
+    err(SEND_USAGE);
+    return SEND_ERRORS.ERR_SEND_USAGE.exitCode;
+  }
+  const say = (line: string) => {
+    if (!quiet) out(line);
+  };
   const stop = new AbortController();
   const onSigint = () => stop.abort();
   const onExternal = () => stop.abort();
   process.on('SIGINT', onSigint);
   io.signal?.addEventListener('abort', onExternal, { once: true });
   try {
+    if (stdin) {
+      const format = options.raw!;
+      const result = await sendStream({
+        ...options,
+        input,
+        format,
+        signal: stop.signal,
+        onStart: (start) => say(startLine('standard input', format, start)),
+      });
+      if (result.partialBytes > 0 && !quiet) {
+        err(`warning: standard input ended inside a sample frame: ${count(result.partialBytes, 'byte')} of an incomplete ${format.channels * bytesPerSample(format.encoding)}-byte sample frame not sent`);
+      }
+      say(streamSummary(result));
+      return result.stopped ? 130 : 0;
+    }
     const result = await sendFile({
       ...options,
       signal: stop.signal,
-      onStart: (info) => {
+      onStart: (info, start) => {
         const warning = describeTruncation(options.path, info);
         if (warning && !quiet) err(warning);
+        say(startLine(options.path, info, start));
       },
     });
-    if (!quiet) out(summary(result));
+    say(fileSummary(result));
     return result.stopped && !options.loop ? 130 : 0;
   } catch (e) {
+    const what = stdin ? 'standard input' : options.path;
     if (isSendError(e)) {
       const flag = e.option ? FLAG_OF_OPTION[e.option] : undefined;
       err(`nullsteer send: ${flag && e.reason ? `${flag} ${e.reason}` : e.message}`);
@@ -269,12 +297,12 @@ export async function sendCommand(argv: string[], io: CommandIo = {}): Promise<n
       return SEND_ERRORS[e.code].exitCode;
     }
     if (isIoError(e)) {
-      err(`nullsteer send: ${options.path}: ${e.message}`);
+      err(`nullsteer send: ${what}: ${e.message}`);
       return 1;
     }
     const code = (e as NodeJS.ErrnoException).code;
     if (typeof code === 'string' && code.startsWith('E')) {
-      err(`nullsteer send: cannot read ${options.path}: ${(e as Error).message}`);
+      err(`nullsteer send: cannot read ${what}: ${(e as Error).message}`);
       return 1;
     }
     err(`nullsteer send: unexpected failure: ${(e as Error).stack ?? String(e)}`);

@@ -64,9 +64,14 @@ describe('nullsteer send → server', () => {
     const { path, x } = await wavFile('ws.wav', frames, 4, 'float32');
     const r = await runSend([path, '--ws', `${svc.url.replace('http', 'ws')}/ingest`, '--fast', '--start-sample', '96000']);
     expect(r.code).toBe(0);
+    // No --stream-id: a fresh random id, named on the first line and in the summary.
+    const lines = r.out.trim().split('\n');
+    expect(lines).toHaveLength(2);
+    const id = Number(/^sending .* as stream (\d+) to ws:/.exec(lines[0])![1]);
+    expect(lines[1]).toContain(`as stream ${id} to ws:`);
     await waitFor(() => blocks.reduce((n, b) => n + b.frames, 0) >= frames, 5000, 'all samples');
     const st = await getStatus(svc);
-    expect(st.streams[0]).toMatchObject({ transport: 'websocket', samplesAccepted: frames, framesLost: 0, firstSample: 96000, nextSample: 96000 + frames });
+    expect(st.streams[0]).toMatchObject({ streamId: id, transport: 'websocket', samplesAccepted: frames, framesLost: 0, firstSample: 96000, nextSample: 96000 + frames });
     // Float32 passes through bit for bit.
     let k = 0;
     let worst = 0;

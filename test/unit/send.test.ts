@@ -76,7 +76,7 @@ async function wsReceiver(onMessage?: (ws: import('ws').WebSocket, count: number
 }
 
 /** Decode every frame and check the stream: contiguous sequence and sample clock, payload = file bytes. */
-function checkStream(raw: Uint8Array[], opts: { streamId?: number; startSample?: number; maxBytes?: number; passes?: 'one' | 'many' } = {}): DecodedFrame[] {
+function checkStream(raw: Uint8Array[], opts: { streamId: number; startSample?: number; maxBytes?: number; passes?: 'one' | 'many' }): DecodedFrame[] {
   const frames = raw.map((d) => {
     const r = decodeFrame(d);
     if (!r.ok) throw new Error(`${r.reason}: ${r.detail}`);
@@ -85,7 +85,7 @@ function checkStream(raw: Uint8Array[], opts: { streamId?: number; startSample?:
   const start = opts.startSample ?? 0;
   let next = start;
   frames.forEach((f, k) => {
-    expect(f).toMatchObject({ sequence: k, firstSample: next, streamId: opts.streamId ?? 1, sampleRateHz: RATE_HZ, channels: CHANNELS, encoding: 'int24' });
+    expect(f).toMatchObject({ sequence: k, firstSample: next, streamId: opts.streamId, sampleRateHz: RATE_HZ, channels: CHANNELS, encoding: 'int24' });
     if (opts.maxBytes) expect(raw[k].byteLength).toBeLessThanOrEqual(opts.maxBytes);
     const fileFrame = (f.firstSample - start) % FRAMES;
     expect(fileFrame + f.samplesPerChannel).toBeLessThanOrEqual(FRAMES); // a frame never spans the loop point
@@ -103,7 +103,7 @@ describe('sendFile over UDP', () => {
       const result = await sendFile({ path: wavPath, target: { kind: 'udp', host: '127.0.0.1', port: rx.port }, speed: 'fast' });
       const perFrame = Math.floor((MTU_FRAME_BYTES - 32) / ROW_BYTES);
       expect(result).toMatchObject({ frames: Math.ceil(FRAMES / perFrame), samplesPerChannel: FRAMES, samplesPerFrame: perFrame, stopped: false });
-      checkStream(await rx.received(result.frames), { maxBytes: MTU_FRAME_BYTES });
+      checkStream(await rx.received(result.frames), { streamId: result.streamId, maxBytes: MTU_FRAME_BYTES });
       expect(rx.datagrams).toHaveLength(result.frames);
     } finally {
       await rx.close();
@@ -139,7 +139,7 @@ describe('sendFile over UDP', () => {
       expect(wallS).toBeGreaterThanOrEqual(0.2);
       expect(wallS).toBeLessThan(1.5);
       expect(result.elapsedS).toBeGreaterThanOrEqual(0.25); // held until the last sample is due
-      checkStream(await rx.received(result.frames));
+      checkStream(await rx.received(result.frames), { streamId: result.streamId });
     } finally {
       await rx.close();
     }
@@ -153,7 +153,7 @@ describe('sendFile over UDP', () => {
       const result = await sendFile({ path: wavPath, target: { kind: 'udp', host: '127.0.0.1', port: rx.port }, speed: 8, loop: true, startSample: 5, signal: stop.signal });
       expect(result.stopped).toBe(true);
       expect(result.samplesPerChannel).toBeGreaterThan(FRAMES); // went past the end at least once
-      const frames = checkStream(await rx.received(result.frames), { startSample: 5, passes: 'many' });
+      const frames = checkStream(await rx.received(result.frames), { streamId: result.streamId, startSample: 5, passes: 'many' });
       expect(frames).toHaveLength(result.frames);
     } finally {
       await rx.close();
@@ -169,7 +169,7 @@ describe('sendFile over UDP', () => {
         target: { kind: 'udp', host: '127.0.0.1', port: rx.port },
         speed: 'fast',
       });
-      checkStream(await rx.received(result.frames));
+      checkStream(await rx.received(result.frames), { streamId: result.streamId });
     } finally {
       await rx.close();
     }
@@ -184,7 +184,7 @@ describe('sendFile over WebSocket', () => {
       expect(await rx.closed).toBe(1000);
       const perFrame = Math.floor((WS_FRAME_BYTES - 32) / ROW_BYTES);
       expect(result).toMatchObject({ samplesPerFrame: perFrame, frames: Math.ceil(FRAMES / perFrame), samplesPerChannel: FRAMES });
-      checkStream(rx.messages, { maxBytes: WS_FRAME_BYTES });
+      checkStream(rx.messages, { streamId: result.streamId, maxBytes: WS_FRAME_BYTES });
     } finally {
       await rx.close();
     }
@@ -196,7 +196,7 @@ describe('sendFile over WebSocket', () => {
       const result = await sendFile({ path: wavPath, target: { kind: 'ws', url: rx.url }, speed: 8, maxFrameBytes: 4096 });
       expect(result.elapsedS).toBeGreaterThanOrEqual(0.2 / 8);
       await rx.closed;
-      checkStream(rx.messages, { maxBytes: 4096 });
+      checkStream(rx.messages, { streamId: result.streamId, maxBytes: 4096 });
     } finally {
       await rx.close();
     }
@@ -238,7 +238,11 @@ describe('sendCommand', () => {
     try {
       const r = await run([wavPath, '--udp', `127.0.0.1:${rx.port}`, '--fast', '--stream-id', '9']);
       expect(r).toMatchObject({ code: 0, err: '' });
-      expect(r.out).toMatch(/^sent 75 frames, 12000 samples per channel \(0\.250 s at 48000 Hz\) to udp:\/\/127\.0\.0\.1:\d+ in [\d.]+ s: \d+ samples\/s per channel, [\d.]+× real time$/);
+      const [first, last, ...more] = r.out.split('\n');
+      expect(more).toEqual([]);
+      expect(first).toMatch(/^sending .*three\.wav \(3 channels, int24, 48000 Hz\) as stream 9 to udp:\/\/127\.0\.0\.1:\d+, 160 samples per frame$/);
+      // 12000 samples × 9 bytes = 108000 bytes.
+      expect(last).toMatch(/^sent 75 frames, 12000 samples per channel \(0\.250 s at 48000 Hz, 108000 bytes\) as stream 9 to udp:\/\/127\.0\.0\.1:\d+ in [\d.]+ s: \d+ samples\/s per channel, [\d.]+× real time$/);
       checkStream(await rx.received(75), { streamId: 9 });
     } finally {
       await rx.close();
@@ -250,7 +254,9 @@ describe('sendCommand', () => {
     try {
       const r = await run([rawPath, '--raw', '--channels=3', '--rate', '48000', '--encoding', 'int24', `--udp=127.0.0.1:${rx.port}`, '--speed', '16', '--quiet']);
       expect(r).toEqual({ code: 0, out: '', err: '' });
-      checkStream(await rx.received(75));
+      const got = await rx.received(75);
+      const id = (decodeFrame(got[0]) as { frame: DecodedFrame }).frame.streamId;
+      checkStream(got, { streamId: id });
     } finally {
       await rx.close();
     }
@@ -292,6 +298,10 @@ describe('sendCommand', () => {
     [['f.wav', '--raw', '--channels', '2', '--rate', '8000', '--encoding', 'int8'], /--encoding "int8": unknown encoding; allowed int16, int24, int32, float32/],
     [['f.wav', '--raw', '--channels', '0', '--rate', '8000', '--encoding', 'int16'], /--channels "0": out of range; allowed an integer 1–65535/],
     [['f.wav', '--raw', '--channels', '2', '--rate', '0', '--encoding', 'int16'], /--rate "0": out of range/],
+    [['-'], /- \(standard input\) needs --raw --channels M --rate HZ --encoding int16\|int24\|int32\|float32: a pipe carries no header/],
+    [['-', '--raw', '--channels', '4'], /--raw needs --rate, --encoding/],
+    [['-', '--raw', '--channels', '4', '--rate', '48000', '--encoding', 'int32', '--speed', '2'], /--speed does not apply to standard input \(-\): the source paces it/],
+    [['-', '--raw', '--channels', '4', '--rate', '48000', '--encoding', 'int32', '--loop'], /--loop needs a file: standard input \(-\) cannot be replayed/],
   ];
   for (const [argv, message] of bad) {
     it(`rejects ${JSON.stringify(argv)}`, async () => {

@@ -55,6 +55,7 @@ describe('WavStreamWriter round trip', () => {
     { channels: 3, encoding: 'int16', tag: WAVE_FORMAT_EXTENSIBLE },
     { channels: 1, encoding: 'int24', tag: WAVE_FORMAT_EXTENSIBLE },
     { channels: 5, encoding: 'int24', tag: WAVE_FORMAT_EXTENSIBLE },
+    { channels: 4, encoding: 'int32', tag: WAVE_FORMAT_EXTENSIBLE },
     { channels: 2, encoding: 'float32', tag: WAVE_FORMAT_IEEE_FLOAT },
     { channels: 4, encoding: 'float32', tag: WAVE_FORMAT_EXTENSIBLE },
   ];
@@ -88,7 +89,9 @@ describe('WavStreamWriter round trip', () => {
       // … and within half a step of the input (clipped at full scale).
       const back = new Float32Array(channels * t);
       decodeInterleaved(bytes, channels, t, encoding, back);
-      const step = encoding === 'int16' ? 1 / 32768 : encoding === 'int24' ? 1 / 8388608 : 0;
+      const step = encoding === 'int16' ? 1 / 32768 : encoding === 'int24' ? 1 / 8388608 : encoding === 'int32' ? 2 ** -31 : 0;
+      // int32 steps are finer than float32 resolves: the read-back (float32) is within half its spacing, ≤ 2^-25 below 1.
+      const tolerance = encoding === 'int32' ? 2 ** -25 + step : step / 2 + 1e-9;
       let worst = 0;
       for (let i = 0; i < t; i++) {
         for (let c = 0; c < channels; c++) {
@@ -97,7 +100,7 @@ describe('WavStreamWriter round trip', () => {
           worst = Math.max(worst, Math.abs(back[c * t + i] - clipped));
         }
       }
-      expect(worst).toBeLessThanOrEqual(step / 2 + 1e-9);
+      expect(worst).toBeLessThanOrEqual(tolerance);
       // The file ends at the data (plus RIFF's pad byte for odd sizes).
       const dataBytes = t * w.blockAlignBytes;
       expect(statSync(path).size).toBe(w.headerBytes + dataBytes + (dataBytes & 1));
@@ -257,7 +260,7 @@ describe('WavStreamWriter errors', () => {
 
   it('rejects bad options and writes after close', async () => {
     expect(() => WavStreamWriter.create(fresh(), { sampleRateHz: 0, channels: 1, encoding: 'int16' })).toThrow(/^invalid recording option: sampleRateHz 0/);
-    expect(() => WavStreamWriter.create(fresh(), { sampleRateHz: 8000, channels: 1, encoding: 'int32' as RecordingEncoding })).toThrow(RangeError);
+    expect(() => WavStreamWriter.create(fresh(), { sampleRateHz: 8000, channels: 1, encoding: 'int8' as RecordingEncoding })).toThrow(RangeError);
     const w = await WavStreamWriter.open(fresh(), { sampleRateHz: 8000, channels: 1, encoding: 'int16' });
     await w.close();
     expect(() => w.write(planar(1, 1), 1)).toThrow(expect.objectContaining({ code: 'ERR_REC_CLOSED' }));

@@ -15,7 +15,7 @@ import { HttpError } from '../errors.ts';
 export interface RecordingRequest {
   raw: boolean;
   beams: boolean;
-  encoding: 'int16' | 'int24' | 'float32';
+  encoding: 'int16' | 'int24' | 'int32' | 'float32';
   rotateSeconds: number | null;
   rotateBytes: number | null;
 }
@@ -39,7 +39,7 @@ export function parseRecordingRequest(body: unknown): RecordingRequest {
   if (typeof raw !== 'boolean') throw bad('raw: must be true or false');
   if (typeof beams !== 'boolean') throw bad('beams: must be true or false');
   if (!raw && !beams) throw bad('raw, beams: at least one must be true');
-  if (encoding !== 'int16' && encoding !== 'int24' && encoding !== 'float32') throw bad(`encoding: ${JSON.stringify(encoding)} not allowed; allowed int16, int24, float32`);
+  if (encoding !== 'int16' && encoding !== 'int24' && encoding !== 'int32' && encoding !== 'float32') throw bad(`encoding: ${JSON.stringify(encoding)} not allowed; allowed int16, int24, int32, float32`);
   if (rotateSeconds !== null && (typeof rotateSeconds !== 'number' || !(rotateSeconds >= 1 && rotateSeconds <= 86400))) throw bad(`rotateSeconds: ${JSON.stringify(rotateSeconds)} out of range; allowed 1–86400 or null`);
   const rotateBytes = o.rotateBytes ?? null;
   if (rotateBytes !== null && (typeof rotateBytes !== 'number' || !Number.isInteger(rotateBytes) || rotateBytes < 1 << 20 || rotateBytes > 0xffffffff - 4096)) {
