@@ -1,9 +1,10 @@
 /**
  * `GET /api/status`, polled once a second while the live connection is up, reduced to the figures
- * the status strip, array layout and channel list show (status-summary.ts), with the "input gaps"
- * badge's state.
+ * the status strip, array layout and channel list show (status-summary.ts) and to what the Input
+ * panel shows (input-status.ts), with the "input gaps" and "input refused" badges' state.
  */
 import { getStatus } from './api.ts';
+import { inputCounts, summariseInput, watchRefusals, type InputView, type RefusalState } from './input-status.ts';
 import { summariseStatus, type StatusSummary } from './status-summary.ts';
 
 export { summariseStatus, type ChannelReport, type StatusSummary } from './status-summary.ts';
@@ -17,6 +18,11 @@ export class ServerStatus {
   #error = $state<string | null>(null);
   #inputGaps = $state(false);
   #updatedAtMs = $state(0);
+  #input = $state.raw<InputView | null>(null);
+  #refusing = $state(false);
+  #refusals: RefusalState | null = null;
+  #polling = false;
+  #again = false;
 
   #timer: ReturnType<typeof setTimeout> | null = null;
   #running = false;
@@ -38,11 +44,33 @@ export class ServerStatus {
   get updatedAtMs(): number {
     return this.#updatedAtMs;
   }
+  /** The input as the Input panel shows it (lib/input-status.ts). */
+  get input(): InputView | null {
+    return this.#input;
+  }
+  /** Frames are being refused and nothing has been accepted for a few seconds. */
+  get refusing(): boolean {
+    return this.#refusing;
+  }
+
   start(): void {
     if (this.#running) return;
     this.#running = true;
     this.#lastLoss = -1;
+    this.#refusals = null;
     void this.#poll(++this.#generation);
+  }
+
+  /** Ask now (after a change the dashboard made), then every STATUS_POLL_MS again. */
+  refresh(): void {
+    if (!this.#running) return;
+    if (this.#polling) {
+      this.#again = true;
+      return;
+    }
+    if (this.#timer) clearTimeout(this.#timer);
+    this.#timer = null;
+    void this.#poll(this.#generation);
   }
 
   stop(): void {
@@ -53,7 +81,9 @@ export class ServerStatus {
   }
 
   async #poll(gen: number): Promise<void> {
+    this.#polling = true;
     const r = await getStatus();
+    this.#polling = false;
     if (gen !== this.#generation) return;
     const now = performance.now();
     if (r.ok && typeof r.data === 'object' && r.data !== null && !Array.isArray(r.data)) {
@@ -63,11 +93,21 @@ export class ServerStatus {
       this.#lastLoss = loss;
       this.#inputGaps = now - this.#gapSeenAtMs < GAP_HOLD_MS;
       this.#summary = s;
+      const input = summariseInput(r.data);
+      this.#refusals = watchRefusals(this.#refusals, inputCounts(input), now);
+      this.#input = input;
+      this.#refusing = input.live && this.#refusals.refusing;
       this.#error = null;
       this.#updatedAtMs = now;
     } else {
       this.#error = r.ok ? 'status is not a JSON object' : r.message;
     }
-    if (this.#running) this.#timer = setTimeout(() => void this.#poll(gen), STATUS_POLL_MS);
+    if (!this.#running) return;
+    if (this.#again) {
+      this.#again = false;
+      void this.#poll(gen);
+      return;
+    }
+    this.#timer = setTimeout(() => void this.#poll(gen), STATUS_POLL_MS);
   }
 }
