@@ -116,3 +116,6 @@ export const getCompare = (): Promise<ApiResult<CompareState>> => request('GET',
 export const setCompare = (s: CompareSettings): Promise<ApiResult<CompareState>> => request('PUT', '/api/compare', s);
 export const stopCompare = (): Promise<ApiResult<CompareState>> => request('DELETE', '/api/compare');
 export const promoteCompare = (side: 'compare' | 'main'): Promise<ApiResult<{ main: ProcessingState; compare: CompareState }>> => request('POST', '/api/compare/promote', { side });
+
+/** `PUT /api/input/stream`: process this own-format stream from now on (journaled by the server). */
+export const selectInputStream = (streamId: number): Promise<ApiResult<Record<string, unknown>>> => request('PUT', '/api/input/stream', { streamId });

@@ -1,123 +1,28 @@
 /**
  * `GET /api/status`, polled once a second while the live connection is up, reduced to the figures
- * the status strip, array layout and channel list show. The status JSON is informational and grows
- * with the server, so every field is read defensively: a missing one is `null`, never a guess.
+ * the status strip, array layout and channel list show (status-summary.ts) and to what the Input
+ * panel shows (input-status.ts), with the "input gaps" and "input refused" badges' state.
  */
 import { getStatus } from './api.ts';
+import { inputCounts, summariseInput, watchRefusals, type InputView, type RefusalState } from './input-status.ts';
+import { summariseStatus, type StatusSummary } from './status-summary.ts';
+
+export { summariseStatus, type ChannelReport, type StatusSummary } from './status-summary.ts';
 
 export const STATUS_POLL_MS = 1000;
 /** An input gap or lost frame keeps the "input gaps" badge lit this long. */
 const GAP_HOLD_MS = 5000;
-
-export interface ChannelReport {
-  index: number;
-  /** Recent level, dBFS. */
-  levelDb: number | null;
-  /** Peak hold, dBFS. */
-  peakHoldDb: number | null;
-  /** Clipped samples counted by the server. */
-  clipped: number | null;
-  /** The server judges the channel dead (far below the others). */
-  dead: boolean;
-  /** Excluded from processing. */
-  masked: boolean;
-}
-
-export interface StatusSummary {
-  sourceKind: string | null;
-  /** One-line description of the simulated scene, when the source is the simulator. */
-  sceneSummary: string | null;
-  sampleRateHz: number | null;
-  streams: number;
-  /** Of the selected stream (the one being processed). */
-  inputRateHz: number | null;
-  framesLost: number | null;
-  gapSamples: number | null;
-  /** Gap samples the processing side received (all streams' losses as the engine saw them). */
-  timelineGapSamples: number | null;
-  engineLoad: number | null;
-  shedStep: number | null;
-  /** Rows per second the engine produces now (the set rate divided while it sheds load). */
-  effectiveRateHz: number | null;
-  latencyP50Ms: number | null;
-  liveClients: number | null;
-  /** Channels the server excludes from processing, if it reports them. */
-  maskedChannels: number[] | null;
-  /** Per-channel levels, when the server reports them (status `channels`). */
-  channels: ChannelReport[] | null;
-}
-
-type Obj = Record<string, unknown>;
-
-function obj(v: unknown): Obj | null {
-  return typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Obj) : null;
-}
-function num(v: unknown): number | null {
-  return typeof v === 'number' && Number.isFinite(v) ? v : null;
-}
-function str(v: unknown): string | null {
-  return typeof v === 'string' ? v : null;
-}
-function intList(v: unknown): number[] | null {
-  return Array.isArray(v) && v.every((x) => Number.isInteger(x)) ? (v as number[]) : null;
-}
-
-/** The figures of a status document; absent or mistyped fields become null. */
-export function summariseStatus(raw: Obj): StatusSummary {
-  const source = obj(raw.source);
-  const scenario = obj(source?.scenario);
-  const input = obj(raw.input);
-  const streams = Array.isArray(raw.streams) ? raw.streams.map(obj).filter((s): s is Obj => s !== null) : [];
-  const selected = streams.find((s) => s.selected === true) ?? streams[0] ?? null;
-  const engine = obj(raw.engine);
-  const shed = obj(engine?.shed);
-  const latency = obj(engine?.latencyMs);
-  const live = obj(raw.live);
-  const array = obj(raw.array);
-  const timeline = obj(raw.timeline);
-  let maskedChannels = intList(array?.maskedChannels) ?? intList(array?.masked) ?? intList(engine?.maskedChannels) ?? null;
-  let channels: ChannelReport[] | null = null;
-  if (Array.isArray(raw.channels)) {
-    channels = raw.channels.map((c, i) => {
-      const o = obj(c);
-      const index = num(o?.channel) ?? num(o?.index) ?? i;
-      return {
-        index,
-        levelDb: typeof c === 'number' ? num(c) : (num(o?.levelDbfs) ?? num(o?.levelDb)),
-        peakHoldDb: num(o?.peakHoldDbfs),
-        clipped: num(o?.clipped),
-        dead: o?.dead === true,
-        masked: o?.masked === true || (maskedChannels?.includes(index) ?? false),
-      };
-    });
-    if (maskedChannels === null && raw.channels.every((c) => typeof obj(c)?.masked === 'boolean')) {
-      maskedChannels = channels.filter((c) => c.masked).map((c) => c.index);
-    }
-  }
-  return {
-    sourceKind: str(source?.kind),
-    sceneSummary: str(scenario?.summary),
-    sampleRateHz: num(input?.sampleRateHz),
-    streams: streams.length,
-    inputRateHz: num(selected?.inputRateHz),
-    framesLost: num(selected?.framesLost),
-    gapSamples: num(selected?.gapSamples),
-    timelineGapSamples: num(timeline?.gapSamples),
-    engineLoad: num(engine?.load),
-    shedStep: num(shed?.step),
-    effectiveRateHz: num(shed?.spectrumRateHz),
-    latencyP50Ms: num(latency?.p50),
-    liveClients: num(live?.clients),
-    maskedChannels,
-    channels,
-  };
-}
 
 export class ServerStatus {
   #summary = $state.raw<StatusSummary | null>(null);
   #error = $state<string | null>(null);
   #inputGaps = $state(false);
   #updatedAtMs = $state(0);
+  #input = $state.raw<InputView | null>(null);
+  #refusing = $state(false);
+  #refusals: RefusalState | null = null;
+  #polling = false;
+  #again = false;
 
   #timer: ReturnType<typeof setTimeout> | null = null;
   #running = false;
@@ -139,12 +44,33 @@ export class ServerStatus {
   get updatedAtMs(): number {
     return this.#updatedAtMs;
   }
+  /** The input as the Input panel shows it (lib/input-status.ts). */
+  get input(): InputView | null {
+    return this.#input;
+  }
+  /** Frames are being refused and nothing has been accepted for a few seconds. */
+  get refusing(): boolean {
+    return this.#refusing;
+  }
 
   start(): void {
     if (this.#running) return;
     this.#running = true;
     this.#lastLoss = -1;
+    this.#refusals = null;
     void this.#poll(++this.#generation);
+  }
+
+  /** Ask now (after a change the dashboard made), then every STATUS_POLL_MS again. */
+  refresh(): void {
+    if (!this.#running) return;
+    if (this.#polling) {
+      this.#again = true;
+      return;
+    }
+    if (this.#timer) clearTimeout(this.#timer);
+    this.#timer = null;
+    void this.#poll(this.#generation);
   }
 
   stop(): void {
@@ -155,21 +81,33 @@ export class ServerStatus {
   }
 
   async #poll(gen: number): Promise<void> {
+    this.#polling = true;
     const r = await getStatus();
+    this.#polling = false;
     if (gen !== this.#generation) return;
     const now = performance.now();
-    if (r.ok && obj(r.data)) {
+    if (r.ok && typeof r.data === 'object' && r.data !== null && !Array.isArray(r.data)) {
       const s = summariseStatus(r.data);
       const loss = (s.gapSamples ?? 0) + (s.framesLost ?? 0) + (s.timelineGapSamples ?? 0);
       if (this.#lastLoss >= 0 && loss > this.#lastLoss) this.#gapSeenAtMs = now;
       this.#lastLoss = loss;
       this.#inputGaps = now - this.#gapSeenAtMs < GAP_HOLD_MS;
       this.#summary = s;
+      const input = summariseInput(r.data);
+      this.#refusals = watchRefusals(this.#refusals, inputCounts(input), now);
+      this.#input = input;
+      this.#refusing = input.live && this.#refusals.refusing;
       this.#error = null;
       this.#updatedAtMs = now;
     } else {
       this.#error = r.ok ? 'status is not a JSON object' : r.message;
     }
-    if (this.#running) this.#timer = setTimeout(() => void this.#poll(gen), STATUS_POLL_MS);
+    if (!this.#running) return;
+    if (this.#again) {
+      this.#again = false;
+      void this.#poll(gen);
+      return;
+    }
+    this.#timer = setTimeout(() => void this.#poll(gen), STATUS_POLL_MS);
   }
 }
