@@ -4,7 +4,8 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, describe, expect, it } from 'vitest';
-import { ArrivalDrift, GccPhat, ReferenceOffset, type ArrivalFit } from '../../server/ingest/drift.ts';
+import { GccPhat } from '../../server/dsp/gcc-phat.ts';
+import { ArrivalDrift, ReferenceOffset, type ArrivalFit } from '../../server/ingest/drift.ts';
 import { delayedNoisePair } from '../helpers/delayed-noise.ts';
 import { TestRandom } from '../helpers/random.ts';
 

@@ -1,4 +1,5 @@
 import { describe, expect, it } from 'vitest';
+import { correctionFactors } from '../../server/dsp/calibration.ts';
 import { GroupMerger, memberDelaysUs, type GroupMember, type GroupMergerOptions } from '../../server/ingest/group.ts';
 import type { Block, InputMapping } from '../../shared/types.ts';
 import { delayedNoisePair } from '../helpers/delayed-noise.ts';
@@ -458,5 +459,20 @@ describe('memberDelaysUs', () => {
     expect(memberDelaysUs(inputs, 5)).toEqual([0, 23.5, 0, 23.5, -8]);
     expect(memberDelaysUs([], 2)).toEqual([0, 0]);
     expect(() => memberDelaysUs(inputs, 4)).toThrow(/position 4 is outside/);
+  });
+
+  it('a measured offset set as offsetUs undoes the lag through the calibration delay (the signs agree)', () => {
+    // ReferenceOffset reads +100 µs for a member lagging 100 µs (drift.test.ts); as offsetUs it becomes
+    // that member's positions' extra delay, and the front end multiplies bin f by e^{+j2πfd}
+    // (server/dsp/calibration.ts), which cancels the lag's e^{−j2πfd}.
+    const delays = memberDelaysUs([{ source: 'a', channels: [0], positions: [0] }, { source: 'b', channels: [0], positions: [1], offsetUs: 100 }], 2);
+    const f = 1000;
+    const c = correctionFactors({ gainDb: [0, 0], delayUs: delays }, 2, [f])!;
+    const lag = -2 * Math.PI * f * 100e-6;
+    const re = c[2] * Math.cos(lag) - c[3] * Math.sin(lag);
+    const im = c[2] * Math.sin(lag) + c[3] * Math.cos(lag);
+    expect(re).toBeCloseTo(1, 12);
+    expect(im).toBeCloseTo(0, 12);
+    expect([c[0], c[1]]).toEqual([1, 0]);
   });
 });
