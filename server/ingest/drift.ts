@@ -62,7 +62,11 @@ export interface ArrivalDriftOptions {
 export interface ArrivalDriftEstimate {
   /** Drift of the member's clock against the local clock, ppm (positive: the member runs fast). */
   ppm: number;
-  /** Lower-envelope delay at the newest bucket: arrival time − media time, ms (on arbitrary origins; differences between members sharing a sample clock are their relative latencies). */
+  /**
+   * Lower-envelope delay at the newest bucket: arrival time − media time, ms. Its origin is
+   * arbitrary (the local clock's zero, sample 0); between members sharing a sample clock the
+   * difference is their relative latency.
+   */
   offsetMs: number;
   /** Buckets in the fit. */
   points: number;

@@ -125,7 +125,7 @@ export interface GroupStatus {
   leadSample: number | null;
   releasedSamples: number;
   releasedBlocks: number;
-  /** Output blocks released by the hold time or the ring bound with a member absent for lack of samples. */
+  /** Output blocks released with a member lacking samples (by the hold time, the ring bound, a flush or a resync). */
   holdReleases: number;
   /** Of those, the ones the ring bound forced (a member far ahead). */
   forcedReleases: number;
