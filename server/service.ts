@@ -37,7 +37,7 @@ import { BeamStreamOut } from './outputs/stream-out.ts';
 import { basename, resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
 import { RateMeter, type IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
-import { InputChoiceError, Inputs } from './ingest/inputs.ts';
+import { InputChoiceError, Inputs, withMemberOffsets } from './ingest/inputs.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
 import type { UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades } from './ingest/websocket.ts';
@@ -52,6 +52,8 @@ export interface Service {
   readonly app: FastifyInstance;
   readonly bus: BlockBus;
   readonly hub: IngestHub | null;
+  /** The live inputs (null with the simulator). */
+  readonly inputs: Inputs | null;
   readonly engine: Engine;
   readonly live: LiveHub;
   readonly httpPort: number;
@@ -66,6 +68,8 @@ export interface Service {
 
 export interface ServiceOptions {
   logger?: boolean | object;
+  /** Tests: each RTP session's port instead of its SDP's (0 = any free port). */
+  rtpPort?: (name: string) => number | undefined;
 }
 
 /**
@@ -98,7 +102,9 @@ function urlHost(host: string): string {
 }
 
 export async function startService(loaded: LoadedConfig, opts: ServiceOptions = {}): Promise<Service> {
-  const { config, geometry, arrayPath } = loaded;
+  const { config, arrayPath } = loaded;
+  // A member's measured offset (the array file's inputs[].offsetUs) is corrected like a calibration delay.
+  const geometry = withMemberOffsets(loaded.geometry);
   const startedMs = performance.now();
   const bus = new BlockBus();
   const channels = geometry.positions.length;
@@ -111,6 +117,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
 
   if (config.source.kind !== 'simulator') {
     inputs = new Inputs(loaded, bus.publish, {
+      rtpPort: opts.rtpPort,
       // The first choice is not a change of anything: status shows it; switches are journaled.
       onSwitch: (sw) => {
         if (sw.reason !== 'first') noteSwitch(sw.reason === 'manual' ? `processed stream set to ${sw.to}` : `stream ${sw.from} silent for ${config.input.switchAfterS} s: processing stream ${sw.to}`, sw.from, sw.to);
@@ -304,6 +311,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     // A re-plan of the main chain re-plans the comparison too: both new plans must fit together.
     if (chain && needsReplan(before, next)) budget.checkAll([eng.planDemand(next), chain.engine.planDemand(merged(next, chain.own))], planFields(before, next));
     const applied = await eng.setParams(next);
+    inputMask.holdSamples = Math.round((3 * eng.hop) / (1 - applied.lambda));
     if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
     live.broadcastJson({ type: 'params', params: applied, derived: derived() });
     const d = diffSummary(before, applied);
@@ -536,6 +544,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     app,
     bus,
     hub,
+    inputs,
     engine: eng,
     live,
     httpPort,

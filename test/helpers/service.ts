@@ -5,12 +5,12 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { loadConfig } from '../../server/config/load.ts';
-import { startService, type Service } from '../../server/service.ts';
+import { startService, type Service, type ServiceOptions } from '../../server/service.ts';
 import type { Block } from '../../shared/types.ts';
 
 export const FIXTURES = fileURLToPath(new URL('../fixtures/', import.meta.url));
 
-export async function startTestService(layer: Record<string, unknown> = {}): Promise<Service> {
+export async function startTestService(layer: Record<string, unknown> = {}, opts: ServiceOptions = {}): Promise<Service> {
   const loaded = await loadConfig({
     env: {},
     layers: [
@@ -28,7 +28,7 @@ export async function startTestService(layer: Record<string, unknown> = {}): Pro
       layer,
     ],
   });
-  return startService(loaded);
+  return startService(loaded, opts);
 }
 
 /** Collect every block the service publishes. */
