@@ -119,6 +119,8 @@ export interface RtpStreamStatus {
   sampleRateHz: number;
   channels: number;
   packetTimeMs: number | null;
+  /** Datagrams handed to the stream, valid or not (queue drops not included). */
+  datagrams: number;
   /** The SSRC followed now (null before the first confirmed packet). */
   ssrc: number | null;
   ssrcChanges: number;
@@ -136,11 +138,11 @@ export interface RtpStreamStatus {
   gaps: number;
   gapSamples: number;
   resyncs: number;
-  /** Wraps of the 16-bit sequence number (RFC 3550 A.1 cycles). */
+  /** Wraps of the 16-bit sequence number (RFC 3550 A.1 cycles), over every SSRC so far. */
   seqWraps: number;
   /** Restarts of the sequence count after a confirmed jump (A.1 bad_seq). */
   seqRestarts: number;
-  /** Wraps of the 32-bit timestamp. */
+  /** Wraps of the 32-bit timestamp, over every SSRC so far. */
   tsWraps: number;
   /** Sample index of the first sample delivered on the current timeline, or null. */
   firstSampleIndex: number | null;
@@ -192,6 +194,7 @@ export class RtpStream {
   readonly #changeTimes: Float64Array;
   #changeNext = 0;
   #lastPacketMs = -Infinity;
+  #datagrams = 0;
   #remote: string | null = null;
   #firstSampleIndex: number | null = null;
   /** The next block starts a new timeline (after an SSRC change). */
@@ -277,6 +280,7 @@ export class RtpStream {
    * @param remote "address:port" of the sender, for status
    */
   receive(bytes: Uint8Array, arrivalMs: number, remote = ''): void {
+    this.#datagrams++;
     const p = this.#pkt;
     const problem = parseRtpPacket(bytes, p) ?? checkRtpPayload(p, this.description.payloadType, this.#frameBytes);
     if (problem !== null) {
@@ -339,6 +343,7 @@ export class RtpStream {
       sampleRateHz: d.sampleRateHz,
       channels: d.channels,
       packetTimeMs: d.packetTimeMs,
+      datagrams: this.#datagrams,
       ssrc: this.#ssrc,
       ssrcChanges: this.#ssrcChanges,
       packets: c.framesAccepted,
