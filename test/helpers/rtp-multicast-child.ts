@@ -28,6 +28,13 @@ const desc = parseSessionSdp(
 const blocks: Block[] = [];
 const stream = new RtpStream(desc, { jitterMs: 1000, sampleRateHz: 48000 }, (b) => blocks.push(b));
 const session = await startRtpSession(desc, stream, { host: '127.0.0.1', receiveBufferBytes: 1 << 20, queueBytes: 1 << 20 });
+// The same group on another port without a source filter: any-source join, both senders arrive.
+const anyDesc = parseSessionSdp(
+  ['v=0', 'o=- 1 1 IN IP4 127.0.0.1', 's=namespace unit, any source', `c=IN IP4 ${GROUP}/1`, 't=0 0', 'm=audio 5006 RTP/AVP 96', 'a=rtpmap:96 L24/48000/2', 'a=ptime:0.125', ''].join('\r\n'),
+  'ns-any',
+);
+const anyStream = new RtpStream(anyDesc, { jitterMs: 1000, sampleRateHz: 48000 }, () => {});
+const anySession = await startRtpSession(anyDesc, anyStream, { host: '127.0.0.1', receiveBufferBytes: 1 << 20, queueBytes: 1 << 20 });
 
 async function sender(address: string): Promise<Socket> {
   const s = createSocket('udp4');
@@ -41,14 +48,18 @@ const named = await sender('127.0.0.1');
 const other = await sender('127.0.0.2');
 const good = new RtpTestStream({ channels: 2, encoding: 'L24', samplesPerPacket: 6, payloadType: 96, ssrc: 0x6d630001, firstSequence: 1, firstTimestamp: 600 }, 300, 31);
 const stray = new RtpTestStream({ channels: 2, encoding: 'L24', samplesPerPacket: 6, payloadType: 96, ssrc: 0x6d630002, firstSequence: 1, firstTimestamp: 900_000 }, 300, 32);
-const send = (s: Socket, bytes: Uint8Array) => new Promise<void>((r, j) => s.send(bytes, desc.port, GROUP, (e) => (e ? j(e) : r())));
+const send = (s: Socket, bytes: Uint8Array) =>
+  Promise.all([desc.port, anyDesc.port].map((port) => new Promise<void>((r, j) => s.send(bytes, port, GROUP, (e) => (e ? j(e) : r())))));
+const until = Date.now() + 20000;
 for (let k = 0; k < 300; k++) {
+  // Paced by the receiver's count (the named source's packets only reach it), so no buffer fills.
+  while ((stream.status().datagrams < k - 50 || anyStream.status().datagrams < 2 * k - 100) && Date.now() < until) await new Promise((r) => setTimeout(r, 5));
   await send(other, stray.packet(k));
   await send(named, good.packet(k));
 }
-const until = Date.now() + 20000;
-while (stream.status().packets < 300 && Date.now() < until) {
+while ((stream.status().packets < 300 || anyStream.status().datagrams < 600) && Date.now() < until) {
   stream.tick(performance.now());
+  anyStream.tick(performance.now());
   await new Promise((r) => setTimeout(r, 10));
 }
 // Give stray datagrams that might still be in flight a moment to show up in the count.
@@ -64,4 +75,7 @@ for (const b of blocks) {
 named.close();
 other.close();
 await session.close();
-console.log(JSON.stringify({ joined: true, packets: st.packets, datagrams: st.datagrams, lost: st.lost, ssrc: st.ssrc, bitExact, frames, rejected: st.rejected }));
+anyStream.flush();
+const any = anyStream.status();
+await anySession.close();
+console.log(JSON.stringify({ joined: true, packets: st.packets, datagrams: st.datagrams, lost: st.lost, ssrc: st.ssrc, bitExact, frames, rejected: st.rejected, any: { datagrams: any.datagrams, packets: any.packets, probation: any.rejected.probation } }));
