@@ -12,11 +12,11 @@
  * changes are limited like resyncs (`resyncLimit` within `resyncWindowMs`, or once the current SSRC
  * has been silent for resyncWindowMs / resyncLimit).
  *
- * Sequence numbers (A.1): extended across wraps (`seqWraps`); a jump of MAX_DROPOUT (3000) or more
- * packets drops the packet (`sequence_jump`) unless its successor follows, which restarts the
- * count as A.1 does. Packets up to MAX_MISORDER behind the highest are reordered or duplicates;
- * MAX_MISORDER is A.1's 100 or the jitter buffer's packet bound, whichever is larger, so that a
- * packet the buffer may still use is never refused as a jump.
+ * Sequence numbers (A.1, ./sequence.ts): extended across wraps (`seqWraps`); a jump of MAX_DROPOUT
+ * (3000) or more packets drops the packet (`sequence_jump`) unless its successor follows, which
+ * restarts the count (`seqRestarts`). Packets fewer than A.1's MAX_MISORDER (100) or the jitter
+ * buffer's packet bound, whichever is larger, behind the highest are reordered or duplicates, so that
+ * a packet the buffer may still use is never refused as a jump.
  *
  * Timestamps → sample index: timestamps are unwrapped against the highest placed one (signed
  * 32-bit difference; `tsWraps` counts the wraps of the 32-bit value) into a double, exact to 2⁵³.
@@ -41,19 +41,16 @@
  * Batches: inside {@link RtpStream.batch} (the receiver's drain) contiguous packets are decoded
  * straight into a staging run and published as one block of up to COALESCE_FRAMES per channel when
  * the batch ends, so the stages after ingest run once per batch, not once per 6-sample packet.
- * Outside a batch every placed packet is its own block.
+ * Packets released together by tick() or flush() are joined the same way; outside those, every
+ * placed packet is its own block.
  */
 import type { Block, BlockSink } from '../../../shared/types.ts';
 import { COALESCE_FRAMES } from '../ingest-hub.ts';
 import { Sequencer, type ResyncStorm, type SequencerCounters, type SequencerOptions } from '../sequencer.ts';
 import { checkRtpPayload, createRtpPacket, decodeLinearPcm, parseRtpPacket, RTP_PACKET_REJECT_REASONS, type RtpPacket } from './packet.ts';
 import type { RtpSessionDescription } from './sdp.ts';
+import { MAX_DROPOUT, MAX_MISORDER, RtpSequence } from './sequence.ts';
 
-/** RFC 3550 Appendix A.1 constants. */
-export const MAX_DROPOUT = 3000;
-export const MAX_MISORDER = 100;
-export const MIN_SEQUENTIAL = 2;
-const SEQ_MOD = 0x1_0000;
 const U32 = 0x1_0000_0000;
 /** Most packets the jitter buffer holds (the sequencer's own limit). */
 export const MAX_BUFFER_PACKETS = 1024;
@@ -200,13 +197,11 @@ export class RtpStream {
   /** The next block starts a new timeline (after an SSRC change). */
   #pendingDiscontinuity = false;
 
-  // RFC 3550 A.1 state of the current SSRC.
-  #maxSeq = 0;
-  /** Extended sequence number of #maxSeq (counts wraps; continued across A.1 restarts). */
-  #extMax = 0;
-  #badSeq = -1;
-  #seqWraps = 0;
-  #seqRestarts = 0;
+  /** RFC 3550 A.1 state of the current SSRC. */
+  #sequence: RtpSequence;
+  /** Wraps and restarts of earlier SSRCs' sequence numbers. */
+  #seqWrapsBefore = 0;
+  #seqRestartsBefore = 0;
 
   // Timestamp unwrap of the current SSRC.
   #anchored = false;
@@ -253,7 +248,8 @@ export class RtpStream {
     this.#frameBytes = this.#channels * this.#bytesPerSample;
     this.#t0Ms = opts.startMs ?? performance.now();
     const bound = RtpStream.bufferPackets(opts.jitterMs, d.packetTimeMs);
-    this.#maxMisorder = Math.max(MAX_MISORDER, bound);
+    this.#maxMisorder = Math.max(MAX_MISORDER, bound + 1);
+    this.#sequence = new RtpSequence(this.#maxMisorder);
     const resyncLimit = opts.resyncLimit ?? 4;
     this.#seqOpts = {
       reorderWindowFrames: bound,
@@ -355,8 +351,8 @@ export class RtpStream {
       gaps: c.gaps,
       gapSamples: c.gapSamples,
       resyncs: c.resyncs,
-      seqWraps: this.#seqWraps,
-      seqRestarts: this.#seqRestarts,
+      seqWraps: this.#seqWrapsBefore + this.#sequence.wraps,
+      seqRestarts: this.#seqRestartsBefore + this.#sequence.restarts,
       tsWraps: this.#tsWraps,
       firstSampleIndex: this.#firstSampleIndex,
       nextSampleIndex: next < 0 ? null : next,
@@ -471,7 +467,9 @@ export class RtpStream {
     this.#ssrc = ssrc;
     this.#seq = new Sequencer(this.#streamId, this.#fs, this.#channels, this.#seqOpts, (b) => this.#forward(b));
     this.#anchored = false;
-    this.#badSeq = -1;
+    this.#seqWrapsBefore += this.#sequence.wraps;
+    this.#seqRestartsBefore += this.#sequence.restarts;
+    this.#sequence = new RtpSequence(this.#maxMisorder);
     this.#haveTransit = false;
     this.#jitter = 0;
     this.#firstSampleIndex = null;
@@ -486,37 +484,11 @@ export class RtpStream {
     // Signed 32-bit timestamp difference from the highest placed packet (0 for a timeline's first).
     const dTs = this.#anchored ? (p.timestamp - this.#maxTs) | 0 : 0;
     // RFC 3550 A.1 update_seq, with the extended number of this packet.
-    let ext: number;
-    if (!this.#anchored) {
-      this.#maxSeq = p.sequence;
-      this.#extMax = p.sequence;
-      ext = p.sequence;
-    } else {
-      const udelta = (p.sequence - this.#maxSeq) & 0xffff;
-      if (udelta < MAX_DROPOUT) {
-        ext = this.#extMax + udelta;
-        if (udelta > 0) {
-          if (p.sequence < this.#maxSeq) this.#seqWraps++;
-          this.#maxSeq = p.sequence;
-          this.#extMax = ext;
-        }
-      } else if (udelta <= SEQ_MOD - this.#maxMisorder) {
-        if (p.sequence !== this.#badSeq) {
-          this.#badSeq = (p.sequence + 1) & 0xffff;
-          this.#reject('sequence_jump', `sequence ${p.sequence} is ${udelta} after ${this.#maxSeq} (more than ${MAX_DROPOUT - 1}); taken only if ${this.#badSeq} follows`, arrivalMs);
-          return;
-        }
-        // Two packets in sequence after a jump: the sender restarted its count (A.1). The extended
-        // number continues by the packets the timestamp says were skipped (at least one: the packet
-        // refused above), so a hole before this packet counts the packets its samples fill.
-        this.#seqRestarts++;
-        ext = this.#extMax + Math.min(SEQ_MOD - 1, Math.max(1, Math.round(dTs / frames)));
-        this.#maxSeq = p.sequence;
-        this.#extMax = ext;
-        this.#badSeq = -1;
-      } else {
-        ext = this.#extMax - (SEQ_MOD - udelta); // reordered or duplicate (up to maxMisorder behind)
-      }
+    const sq = this.#sequence;
+    const ext = this.#anchored ? sq.update(p.sequence, dTs / frames) : sq.init(p.sequence);
+    if (ext < 0) {
+      this.#reject('sequence_jump', `sequence ${p.sequence} is ${(p.sequence - sq.maxSeq) & 0xffff} after ${sq.maxSeq} (${MAX_DROPOUT} or more); taken only if ${sq.badSeq} follows`, arrivalMs);
+      return;
     }
 
     // Timestamp → sample index.
