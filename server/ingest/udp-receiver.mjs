@@ -8,7 +8,8 @@ import { parentPort, workerData } from 'node:worker_threads';
 import { DROPPED, HEAD, KIND_DATAGRAM, KIND_REMOTE, MAX_REMOTES, RECORD_HEADER, SLEEPING, TAIL } from './udp-queue.mjs';
 
 
-const { host, port, receiveBufferBytes, queue, ctrl } = workerData;
+/** multicast: null, or { group, sources: string[], interfaceAddress?: string } (udp.ts MulticastJoin). */
+const { host, port, receiveBufferBytes, queue, ctrl, multicast } = workerData;
 const bytes = new Uint8Array(queue);
 const view = new DataView(queue);
 const c = new Int32Array(ctrl);
@@ -67,7 +68,9 @@ function remoteId(address, rport) {
   return id;
 }
 
-const socket = createSocket({ type: host.includes(':') ? 'udp6' : 'udp4', recvBufferSize: receiveBufferBytes });
+const bindAddress = multicast ? multicast.group : host;
+// A multicast group may have other listeners on this machine (another session, another program).
+const socket = createSocket({ type: bindAddress.includes(':') ? 'udp6' : 'udp4', recvBufferSize: receiveBufferBytes, reuseAddr: Boolean(multicast) });
 socket.on('message', (msg, rinfo) => {
   const arrivalMs = performance.now();
   const id = remoteId(rinfo.address, rinfo.port);
@@ -91,7 +94,23 @@ socket.on('error', (err) => {
   if (!bound) parentPort.postMessage({ type: 'bind-error', message: err.message, code: err.code ?? null });
   else parentPort.postMessage({ type: 'warning', message: err.message });
 });
-socket.bind(port, host, () => {
+/** Join the group: once per source for a source-specific join, else any source. */
+function join() {
+  const iface = multicast.interfaceAddress;
+  if (multicast.sources.length === 0) socket.addMembership(multicast.group, iface);
+  else for (const source of multicast.sources) socket.addSourceSpecificMembership(source, multicast.group, iface);
+}
+
+socket.bind(port, bindAddress, () => {
+  if (multicast) {
+    try {
+      join();
+    } catch (err) {
+      parentPort.postMessage({ type: 'bind-error', message: `joining multicast group ${multicast.group}: ${err.message}`, code: err.code ?? null });
+      socket.close();
+      return;
+    }
+  }
   bound = true;
   let granted = receiveBufferBytes;
   try {

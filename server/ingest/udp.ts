@@ -1,9 +1,11 @@
 /**
- * UDP ingest: one datagram is one frame.
+ * UDP ingest: one datagram is one frame (the own wire format, {@link startUdpIngest}) or one RTP
+ * packet (rtp/rtp-receiver.ts); both receive through {@link startUdpReceiver}.
  *
  * A receive thread (./udp-receiver.mjs) owns the socket and copies each datagram, stamped with its
- * arrival time, into a shared queue; this thread takes them from the queue and hands them to the
- * IngestHub. The receive thread does nothing else, so the socket is drained whenever the kernel
+ * arrival time, into a shared queue; this thread takes them from the queue and hands them to a
+ * {@link DatagramHandler} (the IngestHub, an RTP stream). A multicast socket binds the group's
+ * address and port and joins the group (source-specific when sources are given) on its thread. The receive thread does nothing else, so the socket is drained whenever the kernel
  * has a datagram, however long the service's own thread is busy (a garbage collection, a spectrum
  * row, an HTTP request): a stall here shows as a longer queue, not as datagrams lost in the kernel.
  * Arrival times come from the receive thread, so the sequencer's hold times and wall-clock bounds
@@ -38,6 +40,35 @@ export interface UdpIngestOptions {
   receiveBufferBytes: number;
   /** Shared queue between the receive thread and this one, bytes (≥ 65 536 + 24). */
   queueBytes: number;
+}
+
+/** A multicast group to join instead of binding a unicast address. */
+export interface MulticastJoin {
+  /** Group address (IPv4 224.0.0.0/4 or IPv6 ff00::/8); the socket binds it with the port. */
+  group: string;
+  /** Sources of a source-specific join (RFC 4604); empty: any source. */
+  sources: string[];
+  /** Local interface address to join on; absent: the kernel's choice by route. */
+  interfaceAddress?: string;
+}
+
+export interface UdpReceiverOptions extends UdpIngestOptions {
+  multicast?: MulticastJoin | null;
+}
+
+/** Where the drain hands datagrams: the IngestHub, an RTP stream. */
+export interface DatagramHandler {
+  /** One datagram; the bytes are a view into the shared queue, valid only during the call. */
+  receive(bytes: Uint8Array, remote: string, arrivalMs: number): void;
+  /** `count` datagrams were dropped because the shared queue was full. */
+  refuse(count: number): void;
+  /** Runs `fn`, which hands over several datagrams at once. */
+  batch(fn: () => void): void;
+}
+
+/** The shared queue's size for a requested one: at least 4 KiB, a multiple of 4 bytes. */
+export function queueCapacity(queueBytes: number): number {
+  return Math.max(4096, queueBytes) & ~3;
 }
 
 export interface UdpKernelStats {
@@ -93,8 +124,28 @@ interface Started {
   offsetMs: number;
 }
 
-export async function startUdpIngest(hub: IngestHub, host: string, port: number, opts: UdpIngestOptions): Promise<UdpIngest> {
-  const cap = Math.max(4096, opts.queueBytes) & ~3;
+/** Own-format frames over UDP into the IngestHub. */
+export function startUdpIngest(hub: IngestHub, host: string, port: number, opts: UdpIngestOptions): Promise<UdpIngest> {
+  const detail = `the UDP receive queue (ingest.udp.queueBytes = ${queueCapacity(opts.queueBytes)} bytes) was full`;
+  return startUdpReceiver(
+    {
+      receive: (bytes, remote, arrivalMs) => hub.receive(bytes, 'udp', remote, arrivalMs),
+      refuse: (count) => hub.refuse('queue_full', detail, 'udp', performance.now(), count),
+      batch: (fn) => hub.batch(fn),
+    },
+    host,
+    port,
+    opts,
+  );
+}
+
+/**
+ * A UDP socket on its own receive thread, drained into `handler` on this thread.
+ * @param host address to bind (unicast); ignored for binding when `opts.multicast` is given
+ * @param port 0 = any free port
+ */
+export async function startUdpReceiver(handler: DatagramHandler, host: string, port: number, opts: UdpReceiverOptions): Promise<UdpIngest> {
+  const cap = queueCapacity(opts.queueBytes);
   const queue = new SharedArrayBuffer(cap);
   const ctrl = new SharedArrayBuffer(4 * 4);
   const bytes = new Uint8Array(queue);
@@ -108,7 +159,7 @@ export async function startUdpIngest(hub: IngestHub, host: string, port: number,
 
   const spawn = (bindPort: number) =>
     new Promise<Started>((resolve, reject) => {
-      const worker = new Worker(RECEIVER, { workerData: { host, port: bindPort, receiveBufferBytes: opts.receiveBufferBytes, queue, ctrl } });
+      const worker = new Worker(RECEIVER, { workerData: { host, port: bindPort, receiveBufferBytes: opts.receiveBufferBytes, queue, ctrl, multicast: opts.multicast ?? null } });
       const fail = (e: Error) => {
         void worker.terminate();
         reject(e);
@@ -155,11 +206,11 @@ export async function startUdpIngest(hub: IngestHub, host: string, port: number,
   };
   watch(current);
 
-  /** Hand every complete record to the hub, at most SLICE datagrams; returns whether the queue is empty. */
+  /** Hand every complete record to the handler, at most SLICE datagrams; returns whether the queue is empty. */
   const drainSlice = (): boolean => {
     const dropped = Atomics.load(c, DROPPED);
     if (dropped !== dropsSeen) {
-      hub.refuse('queue_full', `the UDP receive queue (ingest.udp.queueBytes = ${cap} bytes) was full`, 'udp', performance.now(), dropped - dropsSeen);
+      handler.refuse(dropped - dropsSeen);
       dropsSeen = dropped;
     }
     let tail = Atomics.load(c, TAIL);
@@ -178,8 +229,8 @@ export async function startUdpIngest(hub: IngestHub, host: string, port: number,
       if (kind === KIND_REMOTE) {
         remotes[id] = decoder.decode(bytes.subarray(tail + RECORD_HEADER, tail + RECORD_HEADER + length));
       } else if (kind === KIND_DATAGRAM) {
-        // The hub reads the bytes in place and keeps nothing of them past this call.
-        hub.receive(bytes.subarray(tail + RECORD_HEADER, tail + RECORD_HEADER + length), 'udp', remotes[id] ?? 'unknown', view.getFloat64(tail + 8, true) + current.offsetMs);
+        // The handler reads the bytes in place and keeps nothing of them past this call.
+        handler.receive(bytes.subarray(tail + RECORD_HEADER, tail + RECORD_HEADER + length), remotes[id] ?? 'unknown', view.getFloat64(tail + 8, true) + current.offsetMs);
         n++;
       }
       tail = (tail + size) % cap;
@@ -196,7 +247,7 @@ export async function startUdpIngest(hub: IngestHub, host: string, port: number,
   };
   void (async () => {
     for (;;) {
-      hub.batch(slice);
+      handler.batch(slice);
       if (closing && empty) break;
       if (!empty) {
         await new Promise<void>((r) => setImmediate(r));
