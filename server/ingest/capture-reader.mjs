@@ -156,9 +156,11 @@ function onData(chunk) {
     }
     bytes.set(chunk.subarray(src, src + need), dst);
     src += need;
-    queue.publish(run, framesRead, n);
+    // The count first: a thread ended between the two leaves a gap (zeros), never a repeated index.
+    const sampleIndex = framesRead;
     framesRead += n;
     Atomics.store(counters, CTRL_FRAMES_READ, BigInt(framesRead));
+    queue.publish(run, sampleIndex, n);
     frames -= n;
   }
   if (src < len) {

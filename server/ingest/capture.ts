@@ -159,10 +159,13 @@ export interface CaptureStatus {
   lastSampleAgeMs: number | null;
   queue: {
     capacityBytes: number;
-    /** Audio the queue holds when full (records of full length), ms. */
+    /**
+     * Audio the queue holds at least before it drops, ms: queueMs (less only where the 256 MiB bound
+     * cut it), when the command writes at least a record (1024 frames) at a time; up to two records more.
+     */
     capacityMs: number;
     queuedBytes: number;
-    /** Audio waiting now (approximate: headers included), ms. */
+    /** Audio waiting now, ms (read − dropped − delivered; the counters are read one after another). */
     queuedMs: number;
   };
   /** Capture threads started again after one ended unasked. */
@@ -337,6 +340,14 @@ export class CaptureSource {
     if (!held) this.#release?.();
   }
 
+  /**
+   * Test hook: end the capture thread from outside (a crash, not a stop). Its command is killed and a
+   * new thread starts it again after the restart wait; counts and the timeline continue.
+   */
+  async killReader(): Promise<void> {
+    await this.#worker?.terminate();
+  }
+
   status(): CaptureStatus {
     const r = this.#reader;
     const c = this.#ctrl;
@@ -350,7 +361,9 @@ export class CaptureSource {
     else state = r.phase;
     const starts = Number(Atomics.load(c, CTRL_STARTS));
     const queuedBytes = this.#queue.queuedBytes();
-    const bytesPerMs = (this.#frameBytes * this.#opts.sampleRateHz) / 1000;
+    const samplesRead = Number(Atomics.load(c, CTRL_FRAMES_READ));
+    const droppedSamples = Number(Atomics.load(c, CTRL_DROPPED_FRAMES));
+    const queuedSamples = Math.max(0, samplesRead - droppedSamples - (this.#next - this.#gapSamples));
     return {
       state,
       pid: state === 'stopped' ? null : (r?.pid ?? null),
@@ -371,13 +384,13 @@ export class CaptureSource {
       stderrLines: r?.stderrLines ?? 0,
       overruns: r?.overruns ?? 0,
       formatWarning: r?.formatWarning ?? null,
-      samplesRead: Number(Atomics.load(c, CTRL_FRAMES_READ)),
+      samplesRead,
       bytesRead: Number(Atomics.load(c, CTRL_BYTES_READ)),
       bytesDiscarded: Number(Atomics.load(c, CTRL_BYTES_DISCARDED)),
       nonFinite: this.#nonFinite,
       blocks: this.#blocks,
       nextSample: this.#next,
-      droppedSamples: Number(Atomics.load(c, CTRL_DROPPED_FRAMES)),
+      droppedSamples,
       blocksDropped: Number(Atomics.load(c, CTRL_DROPPED_RECORDS)),
       gapSamples: this.#gapSamples,
       discontinuities: this.#discontinuities,
@@ -386,7 +399,7 @@ export class CaptureSource {
         capacityBytes: this.#capacityBytes,
         capacityMs: (this.#capacityFrames * 1000) / this.#opts.sampleRateHz,
         queuedBytes,
-        queuedMs: queuedBytes / bytesPerMs,
+        queuedMs: (queuedSamples * 1000) / this.#opts.sampleRateHz,
       },
       threadRestarts: this.#threadRestarts,
       sinkErrors: this.#sinkErrors,
