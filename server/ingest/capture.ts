@@ -40,9 +40,11 @@ import {
   CTRL_DROPPED_FRAMES,
   CTRL_DROPPED_RECORDS,
   CTRL_FRAMES_READ,
+  CTRL_HEAD,
   CTRL_LAST_DATA_MS,
   CTRL_SLOTS,
   CTRL_STARTS,
+  CTRL_TAIL,
   type PeekedRecord,
   queueSize,
   RECORD_HEADER,
@@ -172,6 +174,8 @@ export interface CaptureStatus {
   threadRestarts: number;
   /** Blocks the sink threw on (counted, then the next block is delivered). */
   sinkErrors: number;
+  /** Malformed queue records (cannot happen; the queue is then emptied, its span a gap). */
+  queueErrors: number;
 }
 
 interface ReaderStatus {
@@ -241,6 +245,7 @@ export class CaptureSource {
   #discontinuities = 0;
   #nonFinite = 0;
   #sinkErrors = 0;
+  #queueErrors = 0;
 
   constructor(options: CaptureOptions, sink: BlockSink) {
     const o = options as Partial<CaptureOptions> | null;
@@ -403,6 +408,7 @@ export class CaptureSource {
       },
       threadRestarts: this.#threadRestarts,
       sinkErrors: this.#sinkErrors,
+      queueErrors: this.#queueErrors,
     };
   }
 
@@ -475,7 +481,16 @@ export class CaptureSource {
         this.#release = null;
         continue;
       }
-      empty = this.#drainSlice();
+      try {
+        empty = this.#drainSlice();
+      } catch (e) {
+        // Cannot happen (the queue's records are written by one thread only); should it, the queue
+        // is emptied and the next record's index turns what it held into a gap, counted.
+        this.#queueErrors++;
+        if (this.#queueErrors === 1) process.emitWarning(`capture: ${publicText(e)}; queue emptied`);
+        Atomics.store(this.#ctrl, CTRL_TAIL, Atomics.load(this.#ctrl, CTRL_HEAD));
+        empty = false;
+      }
       if (this.#closing && empty && this.#worker === null) break;
       if (!empty) {
         await new Promise<void>((r) => setImmediate(r));
