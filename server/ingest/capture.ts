@@ -285,9 +285,12 @@ export class CaptureSource {
     this.#sig = new Int32Array(this.#sigBuf);
   }
 
-  /** Start the command (and keep it running) and the delivery of its blocks. A source starts once. */
+  /**
+   * Start the command (and keep it running) and the delivery of its blocks. A source starts once:
+   * later calls, and a call after stop(), do nothing.
+   */
   start(): void {
-    if (this.#started) return;
+    if (this.#started || this.#closing) return;
     this.#started = true;
     process.once('exit', this.#onProcessExit);
     this.#spawnReader();
