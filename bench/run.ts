@@ -1,7 +1,8 @@
 /**
  * `npm run bench [-- --workload W32] [--json] [--quick]`: the project's benchmark. A script, not a
  * test: it prints medians and ratios and asserts nothing. `--ingest` runs only the ingest benches
- * (with `--background N`: N busy processes beside the server, standing in for other work).
+ * (with `--background N`: N busy processes beside the server, standing in for other work), the
+ * capture source's throughput among them.
  *
  * Per workload of ../shared/DESIGN.md §4: the full live engine offline as fast as it goes (rtf,
  * cpu_rtf, one pooled MVDR spectrum update), then paced in real time (row latency), peak RSS; for
@@ -16,6 +17,7 @@ import { parseArgs } from 'node:util';
 import { PROJECT_CONFIG_DIR } from '../server/config/load.ts';
 import { benchW32Spectrum } from './dsp.ts';
 import { FFT, FS, geometryOf, maxRealtimeMics, paramsFor, ringGeometry, runOffline, runPaced, sceneBlocks, WORKLOADS, type Workload } from './engine.ts';
+import { benchCapture, type CaptureBenchResult } from './capture.ts';
 import { benchIngest } from './ingest.ts';
 import { ingestLoadBench, type IngestLoadResults } from './ingest-load.ts';
 import { loadGeometry } from '../server/config/array-file.ts';
@@ -143,13 +145,14 @@ async function runWorkload(w: Workload, withMics: boolean): Promise<WorkloadResu
 }
 
 /** The ingest benches: the single-thread path, then the live server over UDP from another process. */
-async function runIngest(): Promise<{ ingest: ReturnType<typeof benchIngest>[]; ingestLoad: IngestLoadResults }> {
+async function runIngest(): Promise<{ ingest: ReturnType<typeof benchIngest>[]; ingestLoad: IngestLoadResults; capture: CaptureBenchResult[] }> {
   const ingest = [benchIngest(8, 'int24'), benchIngest(24, 'int16'), benchIngest(32, 'float32'), benchIngest(64, 'int24')];
   say('\ningest (decode + check + sequence, MTU-sized UDP frames, 5 % loss, local reordering), one thread');
   for (const r of ingest) say(`  ${r.name.padEnd(24)} ${String(r.samplesPerFrame).padStart(3)} samples/frame  ${r.framesPerS.toFixed(0).padStart(7)} frames/s  rtf ${r.rtf.toFixed(4)}`);
   const ring24 = await loadGeometry(`${PROJECT_CONFIG_DIR}/arrays/ring-24.json`);
   const ingestLoad = await ingestLoadBench({ quick: values.quick ?? false, background: Number(values.background ?? 0), ring24, ring: ringGeometry, say });
-  return { ingest, ingestLoad };
+  const capture = await benchCapture(values.quick ?? false, say);
+  return { ingest, ingestLoad, capture };
 }
 
 if (values.ingest) {
@@ -176,9 +179,9 @@ if (values.ingest) {
   }
   const simulator = [await benchSimulator('ring-24.json'), await benchSimulator('line-8.json')];
   const dsp = await benchW32Spectrum();
-  const { ingest, ingestLoad } = await runIngest();
+  const { ingest, ingestLoad, capture } = await runIngest();
   say('\nbuilt-in scene generator, 48 kHz, one thread');
   for (const r of simulator) say(`  ${r.name.padEnd(24)} ${String(r.channels).padStart(3)} ch  rtf ${r.rtf.toFixed(4)}`);
   say(`\nsingle-thread plain kernels, W32: MVDR update ${dsp.mvdrUpdateMs.toFixed(2)} ms, conventional ${dsp.conventionalUpdateMs.toFixed(2)} ms, STFT ${dsp.stftHopMs.toFixed(3)} ms/hop (fft.js; ${dsp.stftFastHopMs.toFixed(3)} ms/hop as the engine runs it, WebAssembly, band only), covariance ${dsp.covarianceHopMs.toFixed(3)} ms/hop`);
-  if (values.json) console.log(JSON.stringify({ node: process.version, workloads: results, ingest, ingestLoad, simulator, dsp }));
+  if (values.json) console.log(JSON.stringify({ node: process.version, workloads: results, ingest, ingestLoad, capture, simulator, dsp }));
 }
