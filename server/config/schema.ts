@@ -121,6 +121,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
               },
               doc: 'RTP sessions received (network source): [{ "name": "unit-a", "sdp": "unit-a.sdp" }]; `serve --sdp FILE` adds one named after the file. L16/L24 payloads, unicast or multicast as the SDP says.',
             },
+            host: { kind: 'string', nullable: true, maxLength: 255, pattern: /^[A-Za-z0-9.:\-[\]]+$/, patternDoc: 'an IP address', doc: 'Address RTP sockets bind to (unicast) and the interface multicast groups are joined on; null = server.host. For multicast from a real network set the address facing the audio network (or 0.0.0.0), not 127.0.0.1.' },
             jitterMs: { kind: 'number', min: 0, max: 1000, doc: 'Jitter buffer of each RTP session, milliseconds: packets are released in order once they are this old (or the buffer is full); a packet missing by then is lost and becomes zeros of exactly its length.' },
             receiveBufferBytes: { kind: 'int', min: 65536, max: 268435456, doc: 'Requested kernel receive buffer of each RTP socket (SO_RCVBUF).' },
             queueBytes: { kind: 'int', min: 1048576, max: 1073741824, doc: 'Queue between each RTP receive thread and the service thread; when full a packet is dropped and counted.' },
@@ -208,7 +209,7 @@ export interface Config {
     resyncWindowSeconds: number;
     maxStreams: number;
     groupHoldMs: number;
-    rtp: { sessions: { name: string; sdp: string }[]; jitterMs: number; receiveBufferBytes: number; queueBytes: number };
+    rtp: { sessions: { name: string; sdp: string }[]; host: string | null; jitterMs: number; receiveBufferBytes: number; queueBytes: number };
   };
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };

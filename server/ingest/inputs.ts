@@ -216,7 +216,7 @@ export class Inputs {
       this.udp = await startUdpIngest(hub, config.server.host, config.ingest.udp.port, { receiveBufferBytes: config.ingest.udp.receiveBufferBytes, queueBytes: config.ingest.udp.queueBytes });
     }
     for (const r of this.rtp) {
-      r.session = await startRtpSession(r.desc, r.stream, { host: config.server.host, port: this.#hooks.rtpPort?.(r.desc.name), receiveBufferBytes: config.ingest.rtp.receiveBufferBytes, queueBytes: config.ingest.rtp.queueBytes });
+      r.session = await startRtpSession(r.desc, r.stream, { host: config.ingest.rtp.host ?? config.server.host, port: this.#hooks.rtpPort?.(r.desc.name), receiveBufferBytes: config.ingest.rtp.receiveBufferBytes, queueBytes: config.ingest.rtp.queueBytes });
     }
     this.capture?.start();
     this.#ticker = setInterval(() => this.tick(), TICK_MS);
@@ -267,7 +267,7 @@ export class Inputs {
     return { ...s, commandLine: s.command.join(' '), lastExit: e ? (e.signal ? `ended by ${e.signal} after ${(e.runMs / 1000).toFixed(1)} s` : `exited with code ${e.code} after ${(e.runMs / 1000).toFixed(1)} s`) : null };
   }
 
-  groupStatus(nowMs = performance.now()): (GroupStatus & { members: (GroupStatus['members'][number] & { source: string; positions: number[] })[] }) | null {
+  groupStatus(nowMs = performance.now()): (GroupStatus & { warnAboveUs: number; members: (GroupStatus['members'][number] & { source: string; positions: number[] })[] }) | null {
     if (!this.group) return null;
     const s = this.group.status(nowMs);
     const inputs = this.#loaded.geometry.inputs ?? [];
