@@ -120,6 +120,7 @@ export class Inputs {
     const captureRate = config.capture.sampleRateHz ?? fs;
     if (kind === 'capture' && captureRate !== fs) issue('capture.sampleRateHz', captureRate, `must equal input.sampleRateHz (${fs})`);
     if (kind === 'capture' && config.capture.command.length === 0) issue('capture.command', [], 'source.kind capture needs the command to run');
+    if (config.capture.restartMaxMs < config.capture.restartMinMs) issue('capture.restartMaxMs', config.capture.restartMaxMs, `must be at least capture.restartMinMs (${config.capture.restartMinMs})`);
 
     // Members: from the array file's inputs, else the one input that feeds every position.
     const inputs: InputMapping[] | undefined = geometry.inputs;
