@@ -93,12 +93,16 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
     stopped = waitForStopSignal(service, io);
     const c = loaded.config;
     io.out(`nullsteer ${VERSION}: ${loaded.geometry.name} (${loaded.geometry.positions.length} channels) at ${c.input.sampleRateHz} Hz`);
+    const inputs = service.inputs;
     if (c.source.kind === 'simulator') io.out('source: built-in simulated scenario (set --source network for live frames)');
+    else if (c.source.kind === 'capture') io.out(`source: capture command ${c.capture.command.join(' ')} (${c.capture.channels} channels, ${c.capture.encoding})`);
     else {
-      io.out(`source: network frames`);
+      io.out(inputs?.hub ? `source: network frames` : 'source: RTP');
       if (service.udpPort !== null) io.out(`  UDP ingest   udp://${c.server.host}:${service.udpPort}`);
-      if (c.ingest.websocket.enabled) io.out(`  WS ingest    ${service.url.replace(/^http/, 'ws')}${c.ingest.websocket.path}`);
+      if (inputs?.wsIngest) io.out(`  WS ingest    ${service.url.replace(/^http/, 'ws')}${c.ingest.websocket.path}`);
     }
+    for (const r of inputs?.rtp ?? []) io.out(`  RTP session  ${r.desc.name}: ${r.desc.channels} ch ${r.desc.encoding} at ${r.desc.sampleRateHz} Hz on ${r.desc.multicast ? `group ${r.desc.connectionAddress} ` : ''}port ${r.session?.port ?? r.desc.port}`);
+    if (loaded.geometry.inputs) io.out(`  array fed by ${loaded.geometry.inputs.length} inputs: ${loaded.geometry.inputs.map((i) => i.source).join(', ')}`);
     io.out(`dashboard: ${service.url}/   live rows: ${service.url.replace(/^http/, 'ws')}${c.hub.path}`);
     io.out(`status: ${service.url}/api/status`);
     io.out(`listening on ${service.url}`);

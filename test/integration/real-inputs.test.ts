@@ -67,7 +67,10 @@ describe.skipIf(!HAS_SOX)('capture source', () => {
       await waitFor(async () => (await getStatus(svc)).input.capture.restarts >= 1 && svc.bus.status().discontinuities >= 1, 30_000, 'a restart');
       const st = await getStatus(svc);
       expect(st.source.kind).toBe('capture');
-      expect(st.input.capture).toMatchObject({ state: expect.any(String), restartDelayMs: 250, overruns: 0, droppedSamples: 0, error: null });
+      // The first wait is restartMinMs (250 ms), doubled after each short run up to restartMaxMs (1 s):
+      // every restart comes within 1 s of the exit (the back-off itself: test/integration/capture.test.ts).
+      expect(st.input.capture).toMatchObject({ overruns: 0, droppedSamples: 0, error: null });
+      expect(st.input.capture.restartDelayMs).toBeGreaterThanOrEqual(250);
       expect(st.input.capture.restartDelayMs).toBeLessThanOrEqual(1000);
       expect(st.input.capture.lastExits[0]).toMatchObject({ code: 0, signal: null });
       expect(st.timeline.discontinuities).toBeGreaterThanOrEqual(1);

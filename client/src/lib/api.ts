@@ -96,7 +96,7 @@ export interface RecordingStatus {
 export interface RecordingRequest {
   raw?: boolean;
   beams?: boolean;
-  encoding?: 'int16' | 'int24' | 'float32';
+  encoding?: 'int16' | 'int24' | 'int32' | 'float32';
 }
 export const getRecording = (): Promise<ApiResult<RecordingStatus>> => request('GET', '/api/recording');
 export const startRecording = (r: RecordingRequest): Promise<ApiResult<RecordingStatus>> => request('POST', '/api/recording', r);
