@@ -99,6 +99,11 @@ export interface TrackStatus {
   parts: number;
   /** Frames over all parts (after a failed write: the frames on file). */
   frames: number;
+  /**
+   * Frames a crash now would keep: the closed parts, and the open part up to its last header
+   * refresh (every headerRefreshMs). Behind `frames` by the writes not yet refreshed.
+   */
+  framesOnDisk: number;
   /** Frames accepted but not on file because a write failed (disk full): counted, never silent. */
   lostFrames: number;
   /** WAV data bytes over all parts. */
@@ -231,6 +236,7 @@ export class RecorderTrack {
       encoding: this.#o.encoding,
       parts: this.#partCount,
       frames,
+      framesOnDisk: this.#frames + (p ? p.writer.headerFrames : 0),
       lostFrames: this.#lostFrames,
       bytes: this.#bytes + liveBytes,
       startSampleIndex: this.#firstSampleIndex,
@@ -479,6 +485,8 @@ export interface RecorderStatus {
   stoppedAt: string | null;
   /** Frames of the raw track. */
   frames: number;
+  /** Frames of the raw track a crash now would keep (header refreshed over them). */
+  framesOnDisk: number;
   /** WAV data bytes over all tracks. */
   bytes: number;
   files: PartStatus[];
@@ -686,6 +694,7 @@ export class Recorder {
       startedAt: this.#startedAt,
       stoppedAt: this.#stoppedAt,
       frames: tracks.raw?.frames ?? 0,
+      framesOnDisk: tracks.raw?.framesOnDisk ?? 0,
       bytes,
       files,
       tracks,
