@@ -222,7 +222,7 @@ describe('several units, one array', () => {
     writeFileSync(join(dir, 'unit-a.sdp'), SDP(5004, 8, 'unit-a', 0));
     writeFileSync(join(dir, 'unit-b.sdp'), SDP(5006, 8, 'unit-b', 777));
     const svc = await start(
-      { array: { file: arrayFile }, engine: { workers: 1 }, processing, ingest: { groupHoldMs: 3000, rtp: { jitterMs: 50, sessions: [{ name: 'unit-a', sdp: join(dir, 'unit-a.sdp') }, { name: 'unit-b', sdp: join(dir, 'unit-b.sdp') }] } } },
+      { array: { file: arrayFile }, engine: { workers: 1 }, processing, ingest: { groupHoldMs: 3000, reorderHoldMs: 2000, rtp: { jitterMs: 1000, sessions: [{ name: 'unit-a', sdp: join(dir, 'unit-a.sdp') }, { name: 'unit-b', sdp: join(dir, 'unit-b.sdp') }] } } },
       { rtpPort: () => 0 },
     );
     const rows = collectRows(svc);
@@ -274,8 +274,10 @@ describe('several units, one array', () => {
       for (const l of late) await sendPart(l.i, l.t);
       late = nowLate;
       // Paced by the engine while every unit sends (the compared part). After unit-b stops every span
-      // waits out the hold: a sender held back that long would itself make the others late.
+      // waits out the hold (3 s): the sender may then run that far ahead of what the merger released
+      // (a sender held back for the hold would itself make the others late), no further.
       if (t < L) await keepUp(svc, t - START - 2 * R);
+      else await waitFor(() => svc.bus.status().samples >= t - START - 3.2 * FS, 30_000, 'the merger to release');
     }
     for (const l of late) await sendPart(l.i, l.t);
     await waitFor(() => [...rows.rows.keys()].some((si) => si >= L - 4096), 30_000, 'the merged rows');
@@ -283,7 +285,11 @@ describe('several units, one array', () => {
     const mid = await getStatus(svc);
     const g = mid.input.group;
     expect(g.members.map((m: { name: string }) => m.name)).toEqual(['unit-a', 'unit-b', 'stream:21', 'stream:22']);
+    // A part a round late waits in its stream's reorder buffer or jitter buffer (both set to hold
+    // 1–2 s here: on a busy machine the sending loop itself may pause longer than the defaults).
     for (const r of mid.input.rtp) expect(r).toMatchObject({ lost: 0, late: 0 });
+    for (const x of mid.streams) expect(x).toMatchObject({ framesLost: 0, framesLate: 0, gapSamples: 0 });
+    for (const m of g.members) expect(m).toMatchObject({ absentSamples: 0, lateSamples: 0 });
     const eng = svc.engine.status() as { shed: { changes: number }; scansDeferred: number; hopsSkipped: number };
     expect([eng.shed.changes, eng.scansDeferred, eng.hopsSkipped]).toEqual([0, 0, 0]);
     let compared = 0;

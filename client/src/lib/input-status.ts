@@ -9,17 +9,7 @@
  * never a guess.
  */
 
-type Obj = Record<string, unknown>;
-
-function obj(v: unknown): Obj | null {
-  return typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Obj) : null;
-}
-function num(v: unknown): number | null {
-  return typeof v === 'number' && Number.isFinite(v) ? v : null;
-}
-function str(v: unknown): string | null {
-  return typeof v === 'string' ? v : null;
-}
+import { num, obj, str, type Obj } from './status-summary.ts';
 function objs(v: unknown): Obj[] {
   return Array.isArray(v) ? v.map(obj).filter((o): o is Obj => o !== null) : [];
 }

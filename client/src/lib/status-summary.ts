@@ -42,15 +42,16 @@ export interface StatusSummary {
   channels: ChannelReport[] | null;
 }
 
-type Obj = Record<string, unknown>;
+/** A status document's object, read field by field: the readers below never guess a missing value. */
+export type Obj = Record<string, unknown>;
 
-function obj(v: unknown): Obj | null {
+export function obj(v: unknown): Obj | null {
   return typeof v === 'object' && v !== null && !Array.isArray(v) ? (v as Obj) : null;
 }
-function num(v: unknown): number | null {
+export function num(v: unknown): number | null {
   return typeof v === 'number' && Number.isFinite(v) ? v : null;
 }
-function str(v: unknown): string | null {
+export function str(v: unknown): string | null {
   return typeof v === 'string' ? v : null;
 }
 function intList(v: unknown): number[] | null {

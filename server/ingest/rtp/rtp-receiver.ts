@@ -13,7 +13,7 @@
  * packet is dropped and counted `queue_full` in the stream's rejects and `queueDrops`).
  * The caller ticks the stream (`stream.tick(performance.now())` every few ms) for the jitter buffer.
  */
-import { startUdpReceiver, type UdpIngest, type UdpKernelStats, queueCapacity } from '../udp.ts';
+import { startUdpReceiver, type UdpIngest, queueCapacity } from '../udp.ts';
 import type { RtpStream } from './rtp-stream.ts';
 import type { RtpSessionDescription } from './sdp.ts';
 
@@ -28,19 +28,8 @@ export interface RtpSessionOptions {
   queueBytes: number;
 }
 
-export interface RtpSession {
-  /** The port bound. */
-  readonly port: number;
-  /** Receive buffer the kernel granted. */
-  readonly receiveBufferBytes: number;
-  /** The kernel's drop count and queued bytes for the socket (Linux), or null. */
-  kernel(): UdpKernelStats | null;
-  /** Packets dropped because the shared queue was full. */
-  readonly queueDrops: number;
-  readonly queuedBytes: number;
-  readonly receiverRestarts: number;
-  close(): Promise<void>;
-}
+/** A running session's socket: the UDP receiver's figures (udp.ts), without its test hook. */
+export type RtpSession = Omit<UdpIngest, 'killReceiver'>;
 
 const WILDCARDS = new Set(['0.0.0.0', '::', '']);
 
