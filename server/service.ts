@@ -26,6 +26,7 @@ import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { currentActor, SERVER_ACTOR } from './http/actor.ts';
 import { folderLabel, fsErrorText } from './io/disk-space.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
+import { tidy } from '../shared/numbers.ts';
 import { PresetStore } from './session/presets.ts';
 import { CompareChain, compareParams, merged, ownOf } from './engine/compare-chain.ts';
 import type { CompareController, CompareState } from './http/routes/compare.ts';
@@ -157,7 +158,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     fftSize,
   };
   let engine: Engine | null = null;
-  const derived = (): ProcessingDerived => ({ tauS: engine!.hop / (fs * (1 - engine!.params.lambda)), hopSamples: engine!.hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
+  // τ derived from λ carries rounding noise (2 s reads 1.9999999999999707): tidied before anyone sees it.
+  const derived = (): ProcessingDerived => ({ tauS: tidy(engine!.hop / (fs * (1 - engine!.params.lambda))), hopSamples: engine!.hop, sampleRateHz: fs, directions: engine!.grid.count, bins: (engine!.status() as { bins: number }).bins });
   const hello = (params: ProcessingParams = engine!.params, d: ProcessingDerived = derived()): HelloMessage => {
     const g = engine!.grid;
     return {
@@ -250,7 +252,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   }, 'engine');
   // The comparison chain (off until PUT /api/compare): same blocks, its own engine and live path.
   let chain: CompareChain | null = null;
-  const chainDerived = (c: CompareChain): ProcessingDerived => ({ ...derived(), tauS: eng.hop / (fs * (1 - c.params.lambda)) });
+  const chainDerived = (c: CompareChain): ProcessingDerived => ({ ...derived(), tauS: tidy(eng.hop / (fs * (1 - c.params.lambda))) });
   const compareLive = new LiveHub({
     path: `${config.hub.path}/compare`,
     maxClients: config.hub.maxClients,
@@ -314,7 +316,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     inputMask.holdSamples = Math.round((3 * eng.hop) / (1 - applied.lambda));
     if (recorder.recording) recorder.noteParams(bus.status().nextSample ?? 0, applied as unknown as Record<string, unknown>);
     live.broadcastJson({ type: 'params', params: applied, derived: derived() });
-    const d = diffSummary(before, applied);
+    const d = diffSummary(before, applied, { hopSamples: eng.hop, sampleRateHz: fs });
     journalNote(kind, before, applied, label ? `${label}: ${d}` : d);
     if (chain) {
       // The comparison follows band, grid, FFT size, rate and normalisation; keeps its own λ, loading, methods.
@@ -331,7 +333,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       const next = compareParams(eng.params, chain?.own ?? null, body, { sampleRateHz: fs, hop: eng.hop });
       if (!chain) {
         chain = await CompareChain.create(next, { geometry, sampleRateHz: fs, workers, budget, speedOfSoundMps: config.engine.speedOfSoundMps, onRow: (row) => compareLive.broadcastRow(row), onError: (m) => process.emitWarning(`comparison chain: ${m}`) });
-        journalNote('compare-on', null, ownOf(next), `comparison on: ${diffSummary(ownOf(eng.params), ownOf(next))}`);
+        journalNote('compare-on', null, ownOf(next), `comparison on: ${diffSummary(ownOf(eng.params), ownOf(next), { hopSamples: eng.hop, sampleRateHz: fs })}`);
         compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
       } else {
         const before = chain.own;

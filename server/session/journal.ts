@@ -18,8 +18,8 @@
  */
 import { appendFileSync, closeSync, existsSync, fstatSync, mkdirSync, openSync, readSync, renameSync, statSync } from 'node:fs';
 import { join } from 'node:path';
+import { plainNumber, tidy } from '../../shared/numbers.ts';
 import { publicText } from '../public-text.ts';
-
 export { JOURNAL_KINDS, type Actor, type JournalEntry, type JournalKind } from '../../shared/session.ts';
 import type { Actor, JournalEntry, JournalKind } from '../../shared/session.ts';
 
@@ -94,20 +94,33 @@ function isEntry(v: unknown): v is JournalEntry {
   return Number.isSafeInteger(e.seq) && typeof e.session === 'string' && typeof e.at === 'string' && typeof e.kind === 'string' && typeof e.summary === 'string' && typeof e.actor === 'object' && e.actor !== null;
 }
 
-/** Short text of a value for summaries: numbers as they are, others as compact JSON (cut at 80). */
+/** Short text of a value for summaries: numbers to 6 significant digits, others as compact JSON (cut at 80). */
 function brief(v: unknown): string {
-  const t = typeof v === 'number' ? String(v) : JSON.stringify(v) ?? String(v);
+  const t = typeof v === 'number' ? plainNumber(v) : JSON.stringify(v, (_k, x: unknown) => (typeof x === 'number' ? tidy(x) : x)) ?? String(v);
   return t.length > 80 ? `${t.slice(0, 77)}…` : t;
 }
 
-/** "field old → new" for each top-level field that differs between two objects. */
-export function diffSummary(before: unknown, after: unknown): string {
+/** The STFT hop and rate, to word a forgetting factor λ as the time constant τ people tune. */
+export interface SummaryClock {
+  hopSamples: number;
+  sampleRateHz: number;
+}
+
+/**
+ * "field old → new" for each top-level field that differs between two objects. With `clock`, a
+ * change of λ reads in the terms the panel uses: "time constant τ 2 s → 4 s (λ 0.997333 → 0.998667)".
+ */
+export function diffSummary(before: unknown, after: unknown, clock?: SummaryClock): string {
   if (typeof before !== 'object' || typeof after !== 'object' || before === null || after === null) return `${brief(before)} → ${brief(after)}`;
   const b = before as Record<string, unknown>;
   const a = after as Record<string, unknown>;
   const parts: string[] = [];
   for (const k of new Set([...Object.keys(b), ...Object.keys(a)])) {
-    if (JSON.stringify(b[k]) !== JSON.stringify(a[k])) parts.push(`${k} ${brief(b[k])} → ${brief(a[k])}`);
+    if (JSON.stringify(b[k]) === JSON.stringify(a[k])) continue;
+    if (k === 'lambda' && clock && typeof b[k] === 'number' && typeof a[k] === 'number') {
+      const tau = (l: number) => plainNumber(clock.hopSamples / (clock.sampleRateHz * (1 - l)), 4);
+      parts.push(`time constant τ ${tau(b[k] as number)} s → ${tau(a[k] as number)} s (λ ${brief(b[k])} → ${brief(a[k])})`);
+    } else parts.push(`${k} ${brief(b[k])} → ${brief(a[k])}`);
   }
   return parts.length > 0 ? parts.join('; ') : 'no change';
 }

@@ -67,8 +67,9 @@ describe('journal and presets', () => {
       expect(Number.isNaN(Date.parse(e.at))).toBe(false);
     }
     expect(j.entries[0].before.lambda).toBeCloseTo(1 - 256 / (48000 * 0.5), 12); // the default τ = 0.5 s
-    expect(j.entries[0].summary).toMatch(/^lambda 0\.98933\d* → 0\.97866\d*$/);
-    expect(j.entries[6].summary).toMatch(/^preset short: lambda 0\.97866\d* → 0\.95$/);
+    // In the panel's terms: τ in seconds (hop 256 at 48 kHz), λ beside it, no floating-point noise.
+    expect(j.entries[0].summary).toBe('time constant τ 0.5 s → 0.25 s (λ 0.989333 → 0.978667)');
+    expect(j.entries[6].summary).toBe('preset short: time constant τ 0.25 s → 0.1067 s (λ 0.978667 → 0.95)');
     expect((await call('GET', '/api/journal?limit=2')).json.entries.map((e: any) => e.seq)).toEqual([6, 7]);
     expect((await call('GET', '/api/journal?afterSeq=5')).json.entries.map((e: any) => e.seq)).toEqual([6, 7]);
     expect((await call('GET', '/api/journal?limit=0')).status).toBe(400);

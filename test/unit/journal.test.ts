@@ -12,6 +12,11 @@ describe('ParameterJournal', () => {
     expect(diffSummary({ lambda: 0.99, fftSize: 512, bandHz: [300, 6000] }, { lambda: 0.995, fftSize: 512, bandHz: [500, 6000] })).toBe('lambda 0.99 → 0.995; bandHz [300,6000] → [500,6000]');
     expect(diffSummary({ a: 1 }, { a: 1 })).toBe('no change');
     expect(diffSummary(null, { id: 2 })).toBe('null → {"id":2}');
+    // With the STFT clock, λ reads as the time constant τ = hop / (fs (1 − λ)) the panel shows.
+    expect(diffSummary({ lambda: 1 - 256 / (48000 * 2) }, { lambda: 1 - 256 / (48000 * 4) }, { hopSamples: 256, sampleRateHz: 48000 })).toBe('time constant τ 2 s → 4 s (λ 0.997333 → 0.998667)');
+    // Floating-point noise never reaches a summary (τ from λ: 1.9999999999999707).
+    expect(diffSummary({ tauS: 1.9999999999999707 }, { tauS: 0.30000000000000004 })).toBe('tauS 2 → 0.3');
+    expect(diffSummary({ loading: { ratio: 0.1 + 0.2 } }, { loading: { ratio: 0.5 } })).toBe('loading {"ratio":0.3} → {"ratio":0.5}');
   });
 
   it('keeps entries in order, answers queries, and reads them back in a new session', () => {
