@@ -191,6 +191,16 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
   let recordingStartSeq = 0;
   let recordBeams = false;
+  let beamChannelsKey = '';
+  /** A beam as the beams sidecar describes it (id, look direction, method, gain, limiter). */
+  const beamNote = (id: number) => {
+    const b = engine?.beams.find((x) => x.id === id);
+    return { beamId: id, azimuthDeg: b?.azimuthDeg ?? Number.NaN, elevationDeg: b?.elevationDeg ?? 0, method: b?.method ?? ('mvdr' as const), gainDb: b?.gainDb ?? 0, limiter: b?.limiter ?? false };
+  };
+  /** A beam change while beams are recorded: into the beams sidecar at the current sample index. */
+  const noteBeamChange = (kind: 'add' | 'update' | 'remove', beamId: number, before: ReturnType<typeof beamNote> | null, after: ReturnType<typeof beamNote> | null) => {
+    if (recordBeams && recorder.recording) recorder.track('beams')?.noteBeamChange({ sampleIndex: bus.status().nextSample ?? 0, beamId, kind, before, after });
+  };
   // Beam-audio listeners get the dashboard's slow-client policy (hub.*) with their own limits.
   const streamOut = new BeamStreamOut({
     sampleRateHz: config.input.sampleRateHz,
@@ -218,6 +228,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     onBeamAudio: (hop) => {
       streamOut.send(hop);
       if (recordBeams && recorder.recording && hop.sampleIndex >= 0) {
+        // Which beam each channel carries, noted in the sidecar whenever the set of beams changes.
+        const key = hop.ids.join(',');
+        if (key !== beamChannelsKey) {
+          beamChannelsKey = key;
+          recorder.track('beams')?.noteBeamChannels(hop.ids.map((id, channel) => ({ channel, ...beamNote(id) })), hop.sampleIndex);
+        }
         recorder.pushTrack('beams', { streamId: config.outputs.streamId, sampleIndex: hop.sampleIndex, sampleRateHz: fs, channels: hop.ids.length, frames: hop.frames, data: hop.data, gap: false, discontinuity: false });
       }
     },
@@ -450,17 +466,22 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       add: (az, el, method) => {
         const b = eng.addBeam(az, el, method);
         journalNote('beam-add', null, b, `beam ${b.id} at ${az}° (${method})`);
+        noteBeamChange('add', b.id, null, beamNote(b.id));
         return b;
       },
       remove: (id) => {
         const before = eng.beams.find((b) => b.id === id) ?? null;
+        const was = before ? beamNote(id) : null;
         const r = eng.removeBeam(id);
+        if (was) noteBeamChange('remove', id, was, null);
         if (before) journalNote('beam-remove', before, null, `beam ${id} removed`);
         return r;
       },
       update: (id, patch) => {
         const before = eng.beams.find((b) => b.id === id) ?? null;
+        const was = before ? beamNote(id) : null;
         const after = eng.updateBeam(id, patch);
+        if (after !== null) noteBeamChange('update', id, was, beamNote(id));
         // No beam of that id: nothing changed, nothing to journal (the route answers 404).
         if (after !== null) journalNote('beam-update', before ? { ...before } : null, after, `beam ${id}: ${diffSummary(before, after)}`);
         return after;
@@ -493,6 +514,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         });
         recordRaw = r.raw;
         recordBeams = r.beams;
+        beamChannelsKey = '';
         if (r.beams) recorder.addTrack('beams', { encoding: r.encoding });
         recordingStartSeq = journalNote('recording-start', null, { raw: r.raw, beams: r.beams, encoding: r.encoding }, `recording started (${r.encoding})`).seq;
         return { ...st, raw: recordRaw, beams: recordBeams };

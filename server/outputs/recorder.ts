@@ -33,7 +33,7 @@ import { basename, join } from 'node:path';
 import { bytesPerSample } from '../../shared/frame.ts';
 import type { Block } from '../../shared/types.ts';
 import { freeBytes, fsErrorText, reserveText } from '../io/disk-space.ts';
-import { SidecarWriter, wallClockIso, type ArrayGeometry, type DiscontinuityNote, type RecordingSource } from './sidecar.ts';
+import { SidecarWriter, wallClockIso, type ArrayGeometry, type BeamChangeNote, type BeamChannelNote, type DiscontinuityNote, type RecordingSource } from './sidecar.ts';
 import {
   isOutputError,
   outputError,
@@ -156,6 +156,8 @@ export class RecorderTrack {
   readonly name: string;
   readonly #o: TrackOptions;
   #params: Record<string, unknown>;
+  /** Beams track: what each channel carries now (null for other tracks). */
+  #beamChannels: BeamChannelNote[] | null = null;
   #part: Part | null = null;
   #partCount = 0;
   #files: PartStatus[] = [];
@@ -194,6 +196,30 @@ export class RecorderTrack {
    * @param params the whole parameter set after the change
    * @param patch optionally, only what changed (then the sidecar lists the patch)
    */
+  /**
+   * Beams track: what each channel carries from now on (every part opened later starts with it).
+   * `channels` must list one entry per channel of the blocks pushed.
+   */
+  noteBeamChannels(channels: BeamChannelNote[], sampleIndex: number): void {
+    if (this.#closed || this.#error) return;
+    const had = this.#beamChannels;
+    this.#beamChannels = channels;
+    const part = this.#part;
+    // Another channel count opens a new part (which starts with this description); the same count
+    // with other beams changes the open file's meaning from here on: a change entry.
+    if (part === null || part.channels !== channels.length) return;
+    if (had === null) part.sidecar.setBeamChannels(channels);
+    else part.sidecar.addBeamChange({ sampleIndex, wallClock: this.#wallClock(sampleIndex, part.sampleRateHz), kind: 'channels', channels });
+  }
+
+  /** Beams track: a beam steered, retuned, added or removed at `sampleIndex`. */
+  noteBeamChange(change: DistributiveOmit<BeamChangeNote, 'wallClock'>): void {
+    if (this.#closed || this.#error) return;
+    const part = this.#part;
+    if (part === null) return;
+    part.sidecar.addBeamChange({ ...change, wallClock: this.#wallClock(change.sampleIndex, part.sampleRateHz) } as BeamChangeNote);
+  }
+
   noteParams(sampleIndex: number, params: Record<string, unknown>, patch?: Record<string, unknown>): void {
     if (this.#closed || this.#error) return;
     this.#params = params;
@@ -274,9 +300,11 @@ export class RecorderTrack {
         const next = this.#names(this.#partCount + 1);
         part.sidecar.addDiscontinuity({ kind, sampleIndex: expected, nextSampleIndex: block.sampleIndex, nextFile: next.wav });
         const previousFile = part.wavName;
-        this.#endPart(part, null);
+        // The parts of one recording stay linked (previousFile / nextFile) across a break too; the
+        // discontinuity notes say that the timeline does not run on between them.
+        this.#endPart(part, next.wav);
         this.#anchor = null; // the stream's clock jumped: wall clock re-anchors at this block
-        part = this.#openPart(block, null);
+        part = this.#openPart(block, previousFile);
         part.sidecar.addDiscontinuity({ kind, sampleIndex: block.sampleIndex, previousEndSampleIndex: expected, previousFile });
       } else if (this.#rotationDue(part, frames)) {
         const previous = part;
@@ -363,6 +391,7 @@ export class RecorderTrack {
         endSampleIndex: block.sampleIndex,
         frames: 0,
         closed: false,
+        ...(this.#beamChannels ? { beamChannels: this.#beamChannels, beamChanges: [] } : {}),
       },
       // As current as the WAV header: after a kill both lag by at most the refresh interval.
       { minIntervalMs: o.sidecarIntervalMs ?? o.headerRefreshMs ?? 500, onError },
@@ -496,6 +525,8 @@ export interface RecorderStatus {
   stopReason: { code: OutputErrorCode; message: string } | null;
 }
 
+type DistributiveOmit<T, K extends PropertyKey> = T extends unknown ? Omit<T, K> : never;
+
 /** `20250102T030405Z`: the UTC start time in file names (ISO 8601 basic format, no colons). */
 export function fileStamp(ms: number): string {
   return new Date(ms).toISOString().replace(/\.\d+Z$/, 'Z').replace(/[-:]/g, '');
@@ -599,6 +630,11 @@ export class Recorder {
     const t = this.#tracks.get('raw')!;
     t.push(block);
     this.#watchSpace(block.frames * block.channels * bytesPerSample(t.encoding));
+  }
+
+  /** A track of the running recording by name (e.g. 'beams'), or undefined. */
+  track(name: string): RecorderTrack | undefined {
+    return this.#recording ? this.#tracks.get(name) : undefined;
   }
 
   /** A block of another track (its sample indices on the same stream clock). Unknown tracks are ignored. */

@@ -74,6 +74,33 @@ export interface DiscontinuityNote {
   nextFile?: string;
 }
 
+/** What one channel of a beams recording carries: which beam, steered where, how. */
+export interface BeamChannelNote {
+  channel: number;
+  beamId: number;
+  azimuthDeg: number;
+  elevationDeg: number;
+  method: 'mvdr' | 'delay-and-sum';
+  gainDb: number;
+  limiter: boolean;
+}
+
+/**
+ * A beam steered, retuned, added or removed while the recording ran, at its sample index; or
+ * (`channels`) the channels' meaning changed within this file (same channel count, other beams).
+ */
+export type BeamChangeNote =
+  | {
+      sampleIndex: number;
+      wallClock: string;
+      kind: 'add' | 'update' | 'remove';
+      beamId: number;
+      /** The beam's look direction, method, gain and limiter before and after (null: it did not exist). */
+      before: Omit<BeamChannelNote, 'channel'> | null;
+      after: Omit<BeamChannelNote, 'channel'> | null;
+    }
+  | { sampleIndex: number; wallClock: string; kind: 'channels'; channels: BeamChannelNote[] };
+
 export interface SidecarDoc {
   format: 'nullsteer-recording';
   version: 1;
@@ -96,12 +123,19 @@ export interface SidecarDoc {
   changes: ParamChange[];
   gaps: GapNote[];
   discontinuities: DiscontinuityNote[];
-  /** The file that precedes this one on the same timeline (rotation), null for the first. */
+  /**
+   * The part before this one in the same recording, null for the first: after a rotation the
+   * timeline runs on; after a break (see `discontinuities`) it does not.
+   */
   previousFile: string | null;
-  /** The file that continues this one's timeline (rotation), null if none (yet). */
+  /** The part after this one in the same recording (rotation or break), null if none (yet). */
   nextFile: string | null;
   /** startSampleIndex + frames. */
   endSampleIndex: number;
+  /** Beams recordings: what each channel carries at the part's start (absent for other tracks). */
+  beamChannels?: BeamChannelNote[];
+  /** Beams recordings: every steer, method, gain or limiter change with its sample index. */
+  beamChanges?: BeamChangeNote[];
   /**
    * Frames accepted for the WAV file. While `closed` is false the WAV header may lag by up to its
    * refresh interval; after a crash the WAV header is authoritative.
@@ -175,6 +209,17 @@ export class SidecarWriter {
 
   addDiscontinuity(note: DiscontinuityNote): void {
     this.#doc.discontinuities.push(note);
+    this.#touch();
+  }
+
+  /** Beams recordings: what each channel carries (set when the part opens and when the beam set changes). */
+  setBeamChannels(channels: BeamChannelNote[]): void {
+    this.#doc.beamChannels = channels;
+    this.#touch();
+  }
+
+  addBeamChange(change: BeamChangeNote): void {
+    (this.#doc.beamChanges ??= []).push(change);
     this.#touch();
   }
 

@@ -196,7 +196,9 @@ describe('Recorder: sample-exact raw capture', () => {
       { kind: 'clock', sampleIndex: 50_200, nextSampleIndex: 60_000, nextFile: st.files[2].wav },
     ]);
     expect(c.discontinuities[0]).toMatchObject({ kind: 'clock', previousEndSampleIndex: 50_200 });
-    expect(a.nextFile).toBeNull(); // not a continuation of the same timeline
+    // The parts stay linked across breaks (the discontinuities say the timeline does not run on).
+    expect(a.nextFile).toBe(st.files[1].wav);
+    expect(c.previousFile).toBe(st.files[1].wav);
   });
 
   it('a second track (beams) records its own channel count beside raw', async () => {
