@@ -24,7 +24,7 @@ import { AuthFailureLimiter, createAccessStats } from './http/access.ts';
 import { OriginPolicy } from './http/origin-policy.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { currentActor, SERVER_ACTOR } from './http/actor.ts';
-import { folderLabel, fsErrorText } from './io/disk-space.ts';
+import { folderLabel, freeBytesSync, fsErrorText } from './io/disk-space.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
 import { tidy } from '../shared/numbers.ts';
 import { PresetStore } from './session/presets.ts';
@@ -35,7 +35,7 @@ import { patchParams } from './engine/params.ts';
 import { Recorder, type RecorderStatus } from './outputs/recorder.ts';
 import { writeFileAtomic } from './outputs/sidecar.ts';
 import { BeamStreamOut } from './outputs/stream-out.ts';
-import { basename, resolve as resolvePath } from 'node:path';
+import { basename, dirname, resolve as resolvePath } from 'node:path';
 import { BlockBus } from './ingest/block-bus.ts';
 import { RateMeter, type IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
 import { InputChoiceError, Inputs, withMemberOffsets } from './ingest/inputs.ts';
@@ -189,6 +189,16 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   );
   const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
   noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
+  /** Free bytes on the recordings' disk (its folder, or the nearest existing parent), null when unknown. */
+  const outputsFreeBytes = (): number | null => {
+    for (let d = resolvePath(config.outputs.dir); ; d = dirname(d)) {
+      try {
+        return freeBytesSync(d);
+      } catch {
+        if (dirname(d) === d) return null;
+      }
+    }
+  };
   let recordingStartSeq = 0;
   let recordBeams = false;
   let beamChannelsKey = '';
@@ -500,7 +510,13 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       },
     },
     recording: {
-      status: () => ({ ...recorder.status(), raw: recordRaw, beams: recordBeams, streamOut: streamOut.stats() }),
+      status: () => {
+        const st = recorder.status();
+        // Duration on the stream's clock (the raw track's, else the beams'); free space of the recordings' disk.
+        const track = st.tracks.raw ?? st.tracks.beams;
+        const frames = track ? track.frames : 0;
+        return { ...st, raw: recordRaw, beams: recordBeams, durationS: frames > 0 && track?.sampleRateHz ? frames / track.sampleRateHz : 0, freeBytes: outputsFreeBytes(), streamOut: streamOut.stats() };
+      },
       start: async (r) => {
         const st = await recorder.start({
           dir: resolvePath(config.outputs.dir),

@@ -133,6 +133,10 @@ describe.skipIf(!browserAvailable)('dashboard in a browser', () => {
     await page.getByTestId('record-toggle').click();
     await expect.poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/recording`)).json()) as any).recording, { timeout: 10_000 }).toBe(true);
     await page.getByTestId('record-status').waitFor({ timeout: 10_000 });
+    // Duration as h:mm:ss, free space of the recordings' disk, the folder's name.
+    await expect.poll(async () => (await page.getByTestId('record-duration').textContent()) ?? '', { timeout: 10_000 }).toMatch(/^0:00:0\d$/);
+    expect((await page.getByTestId('record-free').textContent()) ?? '').toMatch(/^\d+(\.\d)? (B|kB|MB|GB|TB)$/);
+    expect((await page.getByTestId('record-where').textContent()) ?? '').toMatch(/folder \S+/);
     await page.waitForTimeout(600);
     await page.getByTestId('record-toggle').click();
     await expect.poll(async () => ((await (await fetch(`http://127.0.0.1:${port}/api/recording`)).json()) as any).recording, { timeout: 10_000 }).toBe(false);

@@ -92,6 +92,12 @@ export interface RecordingStatus {
   error: { code: string; message: string } | null;
   /** Why the last recording stopped by itself (e.g. the disk filled); null when stopped on request. */
   stopReason: { code: string; message: string } | null;
+  /** The recordings folder as the server names it (its last name), null before the first start. */
+  dir?: string | null;
+  /** Recorded time on the stream's clock, seconds. */
+  durationS?: number;
+  /** Free space on the recordings' disk, bytes (null when unknown). */
+  freeBytes?: number | null;
 }
 export interface RecordingRequest {
   raw?: boolean;

@@ -35,3 +35,26 @@ export function fmtCount(n: number | null | undefined): string {
   if (n === null || n === undefined || !Number.isFinite(n)) return '—';
   return Math.round(n).toString().replace(/\B(?=(\d{3})+(?!\d))/g, '\u2009');
 }
+
+/** A duration as h:mm:ss ("0:00:07", "12:03:45"); "—" for null or a negative/non-finite value. */
+export function fmtDuration(s: number | null | undefined): string {
+  if (s === null || s === undefined || !Number.isFinite(s) || s < 0) return '—';
+  const t = Math.floor(s);
+  const h = Math.floor(t / 3600);
+  const m = Math.floor((t % 3600) / 60);
+  const sec = t % 60;
+  return `${h}:${String(m).padStart(2, '0')}:${String(sec).padStart(2, '0')}`;
+}
+
+/** Bytes with a decimal unit: "812 B", "23.0 MB", "45.6 GB"; "—" for null. */
+export function fmtBytes(b: number | null | undefined): string {
+  if (b === null || b === undefined || !Number.isFinite(b) || b < 0) return '—';
+  const units = ['B', 'kB', 'MB', 'GB', 'TB'];
+  let v = b;
+  let u = 0;
+  while (v >= 1000 && u < units.length - 1) {
+    v /= 1000;
+    u++;
+  }
+  return u === 0 ? `${Math.round(v)} B` : `${v.toFixed(1)} ${units[u]}`;
+}
