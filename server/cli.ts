@@ -6,6 +6,7 @@ commands:
   serve   run the server (what \`npm start\` runs)
   send    stream a WAV or raw file to a server as ingest frames
   analyze scan a WAV or raw recording offline: spectra and peaks (table or --json)
+  simulate write the built-in scene as heard by an array to a WAV file
 run \`nullsteer <command> --help\` for a command's options.`;
 
 export async function main(argv: string[]): Promise<number> {
@@ -20,6 +21,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'analyze': {
       const { analyzeCommand } = await import('./tools/analyze.ts');
       return analyzeCommand(rest);
+    }
+    case 'simulate': {
+      const { simulateCommand } = await import('./tools/simulate.ts');
+      return simulateCommand(rest);
     }
     case undefined:
     case '-h':
