@@ -425,10 +425,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     }),
     listPresets: () => presets.list(),
     getPreset: (name) => presets.get(name),
-    savePreset: (name, params) => {
-      const p = presets.save(name, params ?? eng.params);
-      journalNote('preset-save', null, { name }, `preset ${name} saved`);
-      return p;
+    savePreset: (name, params, overwrite) => {
+      const { preset, replaced } = presets.save(name, params ?? eng.params, { overwrite });
+      // A replacement names the earlier version (its savedAt; null when its file did not validate).
+      if (replaced) journalNote('preset-save', { name, savedAt: replaced.savedAt }, { name, replaced: true }, `preset ${name} replaced`);
+      else journalNote('preset-save', null, { name }, `preset ${name} saved`);
+      return preset;
     },
     applyPreset: async (name) => {
       const p = presets.get(name);

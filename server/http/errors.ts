@@ -9,6 +9,7 @@ export const HTTP_ERRORS = {
   ERR_HTTP_BAD_BODY: { statusCode: 400, template: '{detail}' },
   ERR_HTTP_UNAUTHORIZED: { statusCode: 401, template: '{method} {url} needs the header Authorization: Bearer <token>' },
   ERR_HTTP_PRESET_NOT_FOUND: { statusCode: 404, template: 'no preset named {name}' },
+  ERR_HTTP_PRESET_EXISTS: { statusCode: 409, template: 'a preset named {name} exists; to replace it, save again with ?overwrite=true' },
   ERR_HTTP_PRESET_INVALID: { statusCode: 422, template: 'preset {name} cannot be used: {detail}' },
   ERR_HTTP_BODY_TOO_LARGE: { statusCode: 413, template: 'request body exceeds {limit} bytes' },
   ERR_HTTP_HOST_REFUSED: { statusCode: 403, template: 'Host {host} is not a name of this server; add it to server.allowedHosts to allow it' },

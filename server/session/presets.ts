@@ -7,13 +7,14 @@
  * as a REST change (patchParams, given as `validate`). A file that fails is listed with its error
  * and cannot be applied; the others are unaffected.
  *
+ * A save under a name in use is refused (kind 'exists') unless the caller asks to overwrite.
  * Writes go to a temporary file first and are renamed into place, so a preset is never
  * half-written. A save is refused (kind 'no-space') while the folder's free space is below
  * `minFreeBytes`, and when the write fails for want of space; a failed write removes its temporary
  * file and leaves the earlier version of the preset as it was. Temporary files left by a killed
  * server are removed when the store opens. Messages name the folder by `label`, never by its path.
  */
-import { mkdirSync, readdirSync, readFileSync, renameSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, renameSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import type { ProcessingParams } from '../engine/params.ts';
 import { freeBytesSync, fsErrorText, isNoSpace, reserveText } from '../io/disk-space.ts';
@@ -33,14 +34,25 @@ const TMP_FILE = /\.json\.\d+\.tmp$/;
 
 export class PresetError extends Error {
   constructor(
-    /** bad-name, not-found, invalid: the client's; no-space: the disk is (nearly) full; write-failed: another I/O error. */
-    readonly kind: 'bad-name' | 'not-found' | 'invalid' | 'no-space' | 'write-failed',
+    /** bad-name, not-found, invalid, exists: the client's; no-space: the disk is (nearly) full; write-failed: another I/O error. */
+    readonly kind: 'bad-name' | 'not-found' | 'invalid' | 'exists' | 'no-space' | 'write-failed',
     readonly presetName: string,
     message: string,
   ) {
     super(message);
     this.name = 'PresetError';
   }
+}
+
+export interface PresetSaveOptions {
+  /** Replace a preset of the same name; without it such a save is refused (kind 'exists'). Default false. */
+  overwrite?: boolean;
+}
+
+/** What save() did: the preset as stored, and the one it replaced (null when the name was new). */
+export interface PresetSaved {
+  preset: Preset;
+  replaced: { savedAt: string | null } | null;
 }
 
 export interface PresetStoreOptions {
@@ -127,17 +139,32 @@ export class PresetStore {
   }
 
   /**
-   * Save (or replace) a preset; returns it as stored.
-   * @throws PresetError bad-name or invalid (the client's), no-space (free space below the
-   *   reserve, or the write failed for want of space), write-failed (another I/O error)
+   * Save a preset. A name already in use (its file valid or not) is refused unless
+   * `options.overwrite`; then the earlier file is replaced and its savedAt reported (null when it
+   * did not validate).
+   * @throws PresetError bad-name or invalid (the client's), exists (the name is in use and no
+   *   overwrite asked), no-space (free space below the reserve, or the write failed for want of
+   *   space), write-failed (another I/O error)
    */
-  save(name: string, params: unknown): Preset {
+  save(name: string, params: unknown, options: PresetSaveOptions = {}): PresetSaved {
     PresetStore.checkName(name);
     let checked: ProcessingParams;
     try {
       checked = this.#validate(params);
     } catch (e) {
       throw new PresetError('invalid', name, (e as Error).message);
+    }
+    // Checked and written in one synchronous run: no other save can come between.
+    let replaced: PresetSaved['replaced'] = null;
+    if (existsSync(this.#file(name))) {
+      if (options.overwrite !== true) throw new PresetError('exists', name, `a preset named ${JSON.stringify(name)} exists; save with overwrite to replace it`);
+      let savedAt: string | null = null;
+      try {
+        savedAt = this.get(name).savedAt;
+      } catch {
+        savedAt = null; // an unreadable file is replaced all the same
+      }
+      replaced = { savedAt };
     }
     if (this.#minFreeBytes > 0) {
       let free: number;
@@ -157,7 +184,7 @@ export class PresetStore {
       rmSync(tmp, { force: true });
       throw new PresetError(isNoSpace(e) ? 'no-space' : 'write-failed', name, `saving preset ${JSON.stringify(name)}: ${fsErrorText(e)}`);
     }
-    return p;
+    return { preset: p, replaced };
   }
 
   /** @throws PresetError not-found or bad-name */

@@ -110,7 +110,7 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     expect(problems).toEqual([]);
   });
 
-  it('presets: save, list, load, delete, errors; the journal lists the changes newest first', { timeout: 90_000 }, async () => {
+  it('presets: save, list, load, ask before replacing (cancel, replace), delete, errors; the journal lists the changes newest first', { timeout: 90_000 }, async () => {
     expect((await api('/api/presets')).status).toBe(200);
 
     // Save the parameters in force as "e2e-base".
@@ -129,6 +129,36 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     await item.getByTestId('preset-load').click();
     await expect.poll(async () => (await processing()).params.lambda, { timeout: 10_000 }).toBe(lambda0);
     await expect.poll(async () => Number(await page.getByTestId('input-lambda').inputValue()), { timeout: 10_000 }).toBeCloseTo(lambda0, 6);
+
+    // Saving under a name in use asks inline ("Replace preset …?"); Cancel leaves the old preset as it was.
+    const savedAt0 = ((await (await api('/api/presets/e2e-base')).json()) as any).savedAt;
+    const confirm = page.getByTestId('preset-confirm');
+    await page.getByTestId('preset-name').fill('e2e-base');
+    await page.getByTestId('preset-save').click();
+    await confirm.waitFor({ timeout: 10_000 });
+    expect(await confirm.textContent()).toContain('Replace preset “e2e-base”?');
+    expect(await confirm.getAttribute('data-name')).toBe('e2e-base');
+    expect(await page.getByTestId('preset-save').isDisabled()).toBe(true); // one question at a time
+    await page.getByTestId('preset-cancel').click();
+    await confirm.waitFor({ state: 'detached', timeout: 10_000 });
+    const kept: any = await (await api('/api/presets/e2e-base')).json();
+    expect([kept.savedAt, kept.params.lambda]).toEqual([savedAt0, lambda0]);
+    expect(await page.getByTestId('preset-name').inputValue()).toBe('e2e-base'); // the name stays, to edit or ask again
+
+    // Ask again with λ changed on the server; Replace saves with overwrite=true: the new λ, a new savedAt.
+    const patched2 = await api('/api/processing', { method: 'PATCH', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ lambda: 0.996 }) });
+    expect(patched2.status).toBe(200);
+    await page.getByTestId('preset-save').click();
+    await confirm.waitFor({ timeout: 10_000 });
+    await page.getByTestId('preset-replace').click();
+    await confirm.waitFor({ state: 'detached', timeout: 10_000 });
+    await expect.poll(async () => ((await (await api('/api/presets/e2e-base')).json()) as any).params.lambda, { timeout: 10_000 }).toBe(0.996);
+    expect(((await (await api('/api/presets/e2e-base')).json()) as any).savedAt).not.toBe(savedAt0);
+    expect(await page.getByTestId('presets-note').textContent()).toBe('replaced “e2e-base”');
+    const replacedEntry: any = ((await (await api('/api/journal?limit=50')).json()) as any).entries.filter((e: any) => e.kind === 'preset-save').at(-1);
+    expect(replacedEntry).toMatchObject({ summary: 'preset e2e-base replaced', before: { name: 'e2e-base', savedAt: savedAt0 } });
+    // λ back to its first value for what follows.
+    await api('/api/processing', { method: 'PATCH', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ lambda: lambda0 }) });
 
     // A name the server refuses: its message is shown, nothing is saved.
     await page.getByTestId('preset-name').fill('-bad name');
@@ -156,7 +186,8 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     await expect.poll(kinds, { timeout: 20_000 }).toEqual(expect.arrayContaining(['preset-save', 'processing', 'preset-apply', 'preset-delete']));
     const shown = await kinds();
     expect(shown[0]).toBe('preset-delete');
-    expect(shown.indexOf('preset-apply')).toBeLessThan(shown.indexOf('preset-save'));
+    expect(shown.indexOf('preset-save')).toBeLessThan(shown.indexOf('preset-apply')); // the replacement, newer than the load
+    expect(shown.indexOf('preset-apply')).toBeLessThan(shown.lastIndexOf('preset-save')); // the first save, older
     const seqs = (await page.getByTestId('journal-entry').evaluateAll((els) => els.map((e) => Number((e as HTMLElement).dataset.seq)))) as number[];
     expect(seqs).toEqual([...seqs].sort((a, b) => b - a));
     const journal: any = await (await api('/api/journal?limit=50')).json();

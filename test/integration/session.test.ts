@@ -117,6 +117,51 @@ describe('journal and presets', () => {
     expect(now[0].seq).toBe(11);
   });
 
+  it('a save under a name in use is 409 unless ?overwrite=true; the query is closed; the journal says replaced', async () => {
+    const data = mkdtempSync(join(tmpdir(), 'nullsteer-session-'));
+    svc = await startTestService({ data: { dir: data } });
+    const first = await call('PUT', '/api/presets/field day', {});
+    expect(first.status).toBe(200);
+    expect(first.json.params.lambda).not.toBe(0.95); // the default τ's λ, so the replacement is a change
+    const file = join(data, 'presets', 'field day.json');
+    const before = readFileSync(file, 'utf8');
+
+    // Without overwrite (or with overwrite=false): 409 naming the preset and how to replace it; the file untouched.
+    const refusal = { status: 409, json: { error: { code: 'ERR_HTTP_PRESET_EXISTS', message: 'a preset named "field day" exists; to replace it, save again with ?overwrite=true', statusCode: 409 } } };
+    expect(await call('PUT', '/api/presets/field day', { params: { ...first.json.params, lambda: 0.95 } })).toEqual(refusal);
+    expect(await call('PUT', '/api/presets/field day?overwrite=false', { params: { ...first.json.params, lambda: 0.95 } })).toEqual(refusal);
+    expect(readFileSync(file, 'utf8')).toBe(before);
+
+    // A query other than overwrite=true|false: 400, nothing saved.
+    for (const [q, message] of [
+      ['overwrite=yes', 'overwrite: "yes" not allowed; true or false'],
+      ['overwrite=TRUE', 'overwrite: "TRUE" not allowed; true or false'],
+      ['overwrite=', 'overwrite: "" not allowed; true or false'],
+      ['overwrite=true&overwrite=true', 'overwrite: ["true","true"] not allowed; true or false'],
+      ['force=true', 'force: unknown query parameter; known: overwrite'],
+    ]) {
+      expect(await call('PUT', `/api/presets/field day?${q}`, { params: { ...first.json.params, lambda: 0.95 } }), q).toEqual({ status: 400, json: { error: { code: 'ERR_HTTP_VALIDATION', message, statusCode: 400 } } });
+    }
+    expect((await call('PUT', '/api/presets/fresh?overwrite=maybe', {})).status).toBe(400);
+    expect((await call('GET', '/api/presets')).json.presets.map((p: any) => p.name)).toEqual(['field day']);
+    expect(readFileSync(file, 'utf8')).toBe(before);
+
+    // With overwrite=true: 200, the new parameters stored; on a new name overwrite=true is a plain save.
+    const replaced = await call('PUT', '/api/presets/field day?overwrite=true', { params: { ...first.json.params, lambda: 0.95 } });
+    expect(replaced.status).toBe(200);
+    expect(replaced.json.params.lambda).toBe(0.95);
+    expect((await call('GET', '/api/presets/field day')).json.params.lambda).toBe(0.95);
+    expect((await call('PUT', '/api/presets/fresh?overwrite=true', {})).status).toBe(200);
+
+    // The journal: a first save, a replacement naming the version it replaced, a first save (refusals are not journaled).
+    const entries = (await call('GET', '/api/journal')).json.entries;
+    expect(entries.map((e: any) => [e.kind, e.summary, e.before, e.after])).toEqual([
+      ['preset-save', 'preset field day saved', null, { name: 'field day' }],
+      ['preset-save', 'preset field day replaced', { name: 'field day', savedAt: first.json.savedAt }, { name: 'field day', replaced: true }],
+      ['preset-save', 'preset fresh saved', null, { name: 'fresh' }],
+    ]);
+  });
+
   it('a preset file with a field the format does not have is listed as invalid and refused with 422', async () => {
     const data = mkdtempSync(join(tmpdir(), 'nullsteer-session-'));
     svc = await startTestService({ data: { dir: data } });

@@ -236,7 +236,7 @@ describe('disk full: presets', () => {
     disk.fill(0);
     let err: unknown = null;
     try {
-      s.save('keep', { ...BASE, lambda: 0.9 });
+      s.save('keep', { ...BASE, lambda: 0.9 }, { overwrite: true });
     } catch (e) {
       err = e;
     }
@@ -258,6 +258,6 @@ describe('disk full: presets', () => {
     );
     expect(readdirSync(dir)).toEqual([]);
     disk.release();
-    expect(s.save('x', BASE).name).toBe('x');
+    expect(s.save('x', BASE).preset.name).toBe('x');
   });
 });

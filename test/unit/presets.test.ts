@@ -1,5 +1,5 @@
 /** Preset files: save, list, get, delete, names, and corrupt files that leave the others usable. */
-import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
@@ -25,7 +25,7 @@ describe('PresetStore', () => {
   it('saves, lists, reads back and deletes; files are complete JSON with no temporary left', () => {
     const dir = mkdtempSync(join(tmpdir(), 'nullsteer-presets-'));
     const s = new PresetStore(dir, validate);
-    const short = s.save('short memory', { ...BASE, lambda: 0.95 });
+    const short = s.save('short memory', { ...BASE, lambda: 0.95 }).preset;
     s.save('long-memory.v2', { ...BASE, lambda: 0.999 });
     expect(short.params.lambda).toBe(0.95);
     expect(readdirSync(dir).sort()).toEqual(['long-memory.v2.json', 'short memory.json']);
@@ -37,6 +37,31 @@ describe('PresetStore', () => {
     s.delete('short memory');
     expect(s.list().map((p) => p.name)).toEqual(['long-memory.v2']);
     expect(() => s.delete('short memory')).toThrow(expect.objectContaining({ kind: 'not-found' }));
+  });
+
+  it('a name in use is refused unless overwrite is asked; a replacement reports the version it replaced', () => {
+    const dir = mkdtempSync(join(tmpdir(), 'nullsteer-presets-'));
+    const s = new PresetStore(dir, validate);
+    const first = s.save('field day', { ...BASE, lambda: 0.95 });
+    expect(first.replaced).toBeNull();
+    const before = readFileSync(join(dir, 'field day.json'), 'utf8');
+    for (const options of [undefined, {}, { overwrite: false }]) {
+      expect(() => s.save('field day', { ...BASE, lambda: 0.999 }, options)).toThrow(
+        expect.objectContaining({ kind: 'exists', presetName: 'field day', message: 'a preset named "field day" exists; save with overwrite to replace it' }),
+      );
+    }
+    expect(readFileSync(join(dir, 'field day.json'), 'utf8')).toBe(before); // refused: the file untouched
+    const second = s.save('field day', { ...BASE, lambda: 0.999 }, { overwrite: true });
+    expect(second.replaced).toEqual({ savedAt: first.preset.savedAt });
+    expect(s.get('field day').params.lambda).toBe(0.999);
+    expect(readdirSync(dir)).toEqual(['field day.json']);
+    // A file that does not validate takes the name too; overwrite replaces it (its savedAt unknown).
+    writeFileSync(join(dir, 'broken.json'), '{ not json');
+    expect(() => s.save('broken', BASE)).toThrow(expect.objectContaining({ kind: 'exists' }));
+    expect(s.save('broken', BASE, { overwrite: true }).replaced).toEqual({ savedAt: null });
+    expect(s.get('broken').params).toEqual(BASE);
+    // Bad parameters are named first, whether or not the name is in use.
+    expect(() => s.save('field day', { ...BASE, lambda: 1.5 })).toThrow(expect.objectContaining({ kind: 'invalid' }));
   });
 
   it('refuses bad names and bad parameters when saving', () => {

@@ -3,9 +3,12 @@
  *   GET    /api/journal?limit=N&afterSeq=S&session=current|all  → { session, total, corruptLines, entries }
  *   GET    /api/presets                    → { presets: [{ name, savedAt, valid: true } | { name, valid: false, error }] }
  *   GET    /api/presets/:name              → { name, savedAt, params }
- *   PUT    /api/presets/:name  { params? } → the preset saved (absent params: the ones in force)
+ *   PUT    /api/presets/:name[?overwrite=true|false]  { params? }
+ *                                         → the preset saved (absent params: the ones in force)
  *   POST   /api/presets/:name/apply        → { params, derived } as applied (like PUT /api/processing)
  *   DELETE /api/presets/:name              → 204
+ * A save under a name in use is 409 ERR_HTTP_PRESET_EXISTS unless `?overwrite=true` (the journal
+ * then notes the preset as replaced); a query other than `overwrite=true|false` is 400.
  * A bad name is 400 ERR_HTTP_VALIDATION, a missing preset 404 ERR_HTTP_PRESET_NOT_FOUND, a preset
  * file that does not validate 422 ERR_HTTP_PRESET_INVALID naming the reason, a save while the data
  * folder's free space is below `data.minFreeBytes` (or that fails for want of space) 507
@@ -23,7 +26,8 @@ export interface SessionController {
   journal(q: { afterSeq?: number; limit: number; all: boolean }): JournalPage;
   listPresets(): PresetListing[];
   getPreset(name: string): Preset;
-  savePreset(name: string, params: unknown | undefined): Preset;
+  /** @param overwrite replace a preset of the same name; without it such a save throws PresetError 'exists' */
+  savePreset(name: string, params: unknown | undefined, overwrite: boolean): Preset;
   applyPreset(name: string): Promise<{ params: ProcessingParams; derived: ProcessingDerived }>;
   deletePreset(name: string): void;
 }
@@ -33,6 +37,7 @@ export const JOURNAL_LIMIT_MAX = 10_000;
 function toHttp(e: unknown): unknown {
   if (!(e instanceof PresetError)) return e;
   if (e.kind === 'bad-name') return new HttpError('ERR_HTTP_VALIDATION', { detail: e.message });
+  if (e.kind === 'exists') return new HttpError('ERR_HTTP_PRESET_EXISTS', { name: JSON.stringify(e.presetName) });
   if (e.kind === 'not-found') return new HttpError('ERR_HTTP_PRESET_NOT_FOUND', { name: JSON.stringify(e.presetName) });
   if (e.kind === 'no-space') return new HttpError('ERR_HTTP_INSUFFICIENT_STORAGE', { detail: e.message });
   if (e.kind === 'write-failed') return new HttpError('ERR_HTTP_PRESET_WRITE_FAILED', { detail: e.message });
@@ -69,8 +74,12 @@ export function sessionRoutes(c: SessionController, serial: Serial = createSeria
     app.put<{ Params: { name: string } }>('/presets/:name', { schema: { body: { type: 'object' } } }, async (req) => {
       const body = (req.body ?? {}) as Record<string, unknown>;
       for (const k of Object.keys(body)) if (k !== 'params') throw new HttpError('ERR_HTTP_VALIDATION', { detail: `${k}: unknown field; known: params` });
+      const q = (req.query ?? {}) as Record<string, unknown>;
+      for (const k of Object.keys(q)) if (k !== 'overwrite') throw new HttpError('ERR_HTTP_VALIDATION', { detail: `${k}: unknown query parameter; known: overwrite` });
+      const ow = q.overwrite ?? 'false';
+      if (ow !== 'true' && ow !== 'false') throw new HttpError('ERR_HTTP_VALIDATION', { detail: `overwrite: ${JSON.stringify(ow)} not allowed; true or false` });
       try {
-        return c.savePreset(req.params.name, body.params);
+        return c.savePreset(req.params.name, body.params, ow === 'true');
       } catch (e) {
         throw toHttp(e);
       }
