@@ -1,5 +1,5 @@
 /** Checks that generated documentation is up to date and the README carries what it must. */
-import { readFileSync } from 'node:fs';
+import { readdirSync, readFileSync } from 'node:fs';
 import semver from 'semver';
 import { describe, expect, it } from 'vitest';
 import { configReference } from '../../scripts/config-reference.ts';
@@ -21,6 +21,17 @@ describe('documentation', () => {
     expect(readme).toContain('npm test');
     expect(readme).toMatch(/Recording people is regulated/);
     expect(readme).toMatch(/Steered audio can be loud/);
+  });
+
+  it('the README screenshot shows every panel the dashboard has (regenerate with npm run screenshot)', () => {
+    const dir = new URL('../../client/src/components/', import.meta.url);
+    const panels = readdirSync(dir)
+      .filter((f) => f.endsWith('.svelte'))
+      .flatMap((f) => [...readFileSync(new URL(f, dir), 'utf8').matchAll(/<section class="panel[^"]*"[^>]*data-testid="([^"]+)"/g)].map((m) => m[1]))
+      .sort();
+    const shown = JSON.parse(readFileSync(new URL('../../docs/dashboard-panels.json', import.meta.url), 'utf8')).panels;
+    expect(panels.length).toBeGreaterThan(5);
+    expect(shown).toEqual(panels);
   });
 
   it('the wire-format document names every reject reason the server counts', () => {
