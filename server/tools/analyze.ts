@@ -3,7 +3,6 @@
  * same DSP code as the live server (dsp/scan-pipeline.ts). Prints, per method, the direction grid,
  * the broadband spectrum in dB over the whole file and the peaks; a table by default, JSON with --json.
  */
-import { parseArgs } from 'node:util';
 import { decodeInterleaved, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
 import { loadGeometry } from '../config/array-file.ts';
 import { ConfigError } from '../config/validate.ts';
@@ -14,6 +13,7 @@ import type { AngleRangeDeg } from '../dsp/steering.ts';
 import { lambdaFromTau, speedOfSoundFromTemperature } from '../dsp/units.ts';
 import { openRaw, type FileSampleReader } from '../io/raw.ts';
 import { openWav } from '../io/wav.ts';
+import { FlagError, parseFlags } from './flag-suggest.ts';
 
 export const ANALYZE_USAGE = `usage: nullsteer analyze FILE --array ARRAY.json [--band LO:HI] [--method mvdr|conventional|both]
          [--grid AZ0:AZ1:STEP[,EL0:EL1:STEP]] [--lambda L | --tau S] [--loading SPEC] [--fft N]
@@ -70,35 +70,49 @@ interface Parsed {
   build: (fs: number, geometry: ScanPipelineOptions['geometry']) => ScanPipelineOptions;
 }
 
+const ANALYZE_OPTIONS = {
+  array: { type: 'string' },
+  band: { type: 'string' },
+  method: { type: 'string' },
+  grid: { type: 'string' },
+  lambda: { type: 'string' },
+  tau: { type: 'string' },
+  loading: { type: 'string' },
+  fft: { type: 'string' },
+  c: { type: 'string' },
+  temperature: { type: 'string' },
+  'focus-range': { type: 'string' },
+  mask: { type: 'string' },
+  'dead-db': { type: 'string' },
+  normalise: { type: 'boolean' },
+  'threshold-db': { type: 'string' },
+  'max-peaks': { type: 'string' },
+  json: { type: 'boolean' },
+  raw: { type: 'boolean' },
+  channels: { type: 'string' },
+  rate: { type: 'string' },
+  encoding: { type: 'string' },
+} as const;
+const ANALYZE_FLAGS = Object.keys(ANALYZE_OPTIONS);
+
+/**
+ * The flags of `analyze --timeline` (server/tools/timeline.ts parses them; keep the two lists
+ * equal), checked here first so a misspelt one gets a clean message and a suggestion.
+ */
+const TIMELINE_OPTIONS = {
+  timeline: { type: 'string' },
+  array: { type: 'string' },
+  preset: { type: 'string' },
+  'no-replay': { type: 'boolean' },
+  'image-method': { type: 'string' },
+  workers: { type: 'string' },
+  c: { type: 'string' },
+  quiet: { type: 'boolean' },
+} as const;
+const TIMELINE_ONLY_FLAGS = Object.keys(TIMELINE_OPTIONS).filter((f) => !(f in ANALYZE_OPTIONS));
+
 export function parseAnalyzeArgs(argv: string[]): Parsed {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    allowPositionals: true,
-    strict: true,
-    options: {
-      array: { type: 'string' },
-      band: { type: 'string' },
-      method: { type: 'string' },
-      grid: { type: 'string' },
-      lambda: { type: 'string' },
-      tau: { type: 'string' },
-      loading: { type: 'string' },
-      fft: { type: 'string' },
-      c: { type: 'string' },
-      temperature: { type: 'string' },
-      'focus-range': { type: 'string' },
-      mask: { type: 'string' },
-      'dead-db': { type: 'string' },
-      normalise: { type: 'boolean' },
-      'threshold-db': { type: 'string' },
-      'max-peaks': { type: 'string' },
-      json: { type: 'boolean' },
-      raw: { type: 'boolean' },
-      channels: { type: 'string' },
-      rate: { type: 'string' },
-      encoding: { type: 'string' },
-    },
-  });
+  const { values, positionals } = parseFlags(argv, ANALYZE_OPTIONS, true, [...TIMELINE_ONLY_FLAGS, 'help']);
   if (positionals.length !== 1) throw new UsageError(positionals.length === 0 ? 'FILE is required' : `one FILE expected, got ${positionals.length}`);
   if (!values.array) throw new UsageError('--array ARRAY.json is required');
   if (values.lambda !== undefined && values.tau !== undefined) throw new UsageError('give --lambda or --tau, not both');
@@ -241,7 +255,18 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
   const out = io.out ?? ((s: string) => process.stdout.write(`${s}\n`));
   const err = io.err ?? ((s: string) => process.stderr.write(`${s}\n`));
   if (argv.some((a) => a === '--timeline' || a.startsWith('--timeline='))) {
-    const { timelineCommand } = await import('./timeline.ts');
+    const { timelineCommand, TIMELINE_USAGE } = await import('./timeline.ts');
+    if (argv.includes('--help') || argv.includes('-h')) {
+      out(TIMELINE_USAGE);
+      return 0;
+    }
+    try {
+      parseFlags(argv, TIMELINE_OPTIONS, true, [...ANALYZE_FLAGS, 'help']);
+    } catch (e) {
+      if (!(e instanceof FlagError)) throw e;
+      err(`nullsteer analyze: ${e.message}\n${TIMELINE_USAGE}`);
+      return 2;
+    }
     return timelineCommand(argv, io);
   }
   if (argv.includes('--help') || argv.includes('-h')) {
@@ -269,7 +294,7 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
     out(parsed.json ? JSON.stringify(rep) : reportTable(rep));
     return 0;
   } catch (e) {
-    if (e instanceof UsageError) {
+    if (e instanceof UsageError || e instanceof FlagError) {
       err(`nullsteer analyze: ${e.message}\n${ANALYZE_USAGE}`);
       return 2;
     }
