@@ -4,7 +4,7 @@
  * the broadband spectrum in dB over the whole file and the peaks; a table by default, JSON with --json.
  */
 import { decodeInterleaved, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
-import { loadGeometry } from '../config/array-file.ts';
+import { loadArrayFile } from '../config/load.ts';
 import { ConfigError } from '../config/validate.ts';
 import { validateLoading, type LoadingSpec } from '../dsp/loading.ts';
 import { defaultGrid, ScanPipeline, type ScanPipelineOptions, type ScanResult } from '../dsp/scan-pipeline.ts';
@@ -282,7 +282,7 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
   }
   let reader: FileSampleReader | null = null;
   try {
-    const geometry = await loadGeometry(parsed.arrayFile);
+    const { geometry } = await loadArrayFile(parsed.arrayFile);
     reader = parsed.raw ? await openRaw(parsed.file, parsed.raw) : await openWav(parsed.file);
     const info = reader.info;
     if (info.channels !== geometry.positions.length) {
