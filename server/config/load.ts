@@ -128,14 +128,14 @@ function readJsonFile(path: string, what: string): unknown {
 
 /**
  * The places a geometry path is looked for, in order: an absolute path as is; a relative one against
- * cwd, then against the project's config/ directory, and (when it starts with config/) against the
- * project root, so `config/arrays/x.json` names the shipped file from any working directory.
+ * cwd, then against the project's config/ directory, or the project root when it starts with config/
+ * (so `config/arrays/x.json` names the shipped file from any directory, never config/config/…).
  */
 export function arrayPathCandidates(file: string, cwd: string): string[] {
   if (isAbsolute(file)) return [file];
-  const tried = [resolve(cwd, file), resolve(PROJECT_CONFIG_DIR, file)];
   const rel = normalize(file);
-  if (rel === 'config' || rel.startsWith(`config${sep}`)) tried.push(resolve(PROJECT_CONFIG_DIR, '..', rel));
+  const fromProject = rel.startsWith(`config${sep}`) ? resolve(PROJECT_CONFIG_DIR, '..', rel) : resolve(PROJECT_CONFIG_DIR, rel);
+  const tried = [resolve(cwd, file), fromProject];
   return tried.filter((p, i) => tried.indexOf(p) === i);
 }
 
