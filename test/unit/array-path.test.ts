@@ -52,7 +52,9 @@ describe('array file paths', () => {
 
   it('analyze resolves --array the same way and names the paths tried', async () => {
     let err = '';
-    const code = await analyzeCommand(['x.wav', '--array', 'arrays/nope.json'], { out: () => {}, err: (s) => (err += s) });
+    const raw = join(elsewhere, 'tiny.raw');
+    writeFileSync(raw, Buffer.alloc(8 * 2 * 1024));
+    const code = await analyzeCommand([raw, '--raw', '--channels', '8', '--rate', '16000', '--encoding', 'int16', '--array', 'arrays/nope.json'], { out: () => {}, err: (s) => (err += s) });
     expect(code).toBe(2);
     expect(err).toContain(`tried ${resolve('arrays/nope.json')}, ${join(PROJECT_CONFIG_DIR, 'arrays/nope.json')}`);
   });
