@@ -1,5 +1,6 @@
 /** The `nullsteer` command: one subcommand per job. */
 import { serveCommand, processIo } from './main.ts';
+import { nearestFlag } from './tools/flag-suggest.ts';
 
 const USAGE = `usage: nullsteer <command> [options]
 commands:
@@ -8,6 +9,8 @@ commands:
   analyze scan a WAV or raw recording offline: spectra and peaks (table or --json)
   simulate write the built-in scene as heard by an array to a WAV file
 run \`nullsteer <command> --help\` for a command's options.`;
+
+const COMMANDS = ['serve', 'send', 'analyze'];
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
@@ -32,8 +35,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'help':
       processIo.out(USAGE);
       return cmd === undefined ? 2 : 0;
-    default:
-      processIo.err(`nullsteer: unknown command ${JSON.stringify(cmd)}\n${USAGE}`);
+    default: {
+      const near = nearestFlag(cmd, COMMANDS);
+      processIo.err(`nullsteer: unknown command ${JSON.stringify(cmd.slice(0, 64))}${near ? `; did you mean ${near}?` : ''}\n${USAGE}`);
       return 2;
+    }
   }
 }

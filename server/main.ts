@@ -3,10 +3,10 @@
  * print where it listens, and shut down cleanly on SIGINT/SIGTERM.
  */
 import { basename } from 'node:path';
-import { parseArgs } from 'node:util';
 import { FLAG_FIELDS, loadConfig } from './config/load.ts';
 import { ConfigError } from './config/validate.ts';
 import { startService, VERSION } from './service.ts';
+import { parseFlags } from './tools/flag-suggest.ts';
 
 export const SERVE_USAGE = `usage: nullsteer serve [--config FILE] [--host ADDR] [--http-port N] [--udp-port N]
                        [--source simulator|network|capture] [--array FILE] [--sdp FILE]... [--token T]
@@ -28,24 +28,19 @@ export const processIo: CliIo = {
   env: process.env,
 };
 
-/** Parse serve's flags into config overrides; throws TypeError with a usage-ready message. */
+/** Parse serve's flags into config overrides; throws TypeError or FlagError with a usage-ready one-line message. */
 export function parseServeArgs(argv: string[]): { configFile?: string; overrides: [string, string][]; help: boolean } {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    allowPositionals: true,
-    strict: true,
-    options: {
-      config: { type: 'string' },
-      host: { type: 'string' },
-      'http-port': { type: 'string' },
-      'udp-port': { type: 'string' },
-      source: { type: 'string' },
-      array: { type: 'string' },
-      token: { type: 'string' },
-      sdp: { type: 'string', multiple: true },
-      set: { type: 'string', multiple: true },
-      help: { type: 'boolean', short: 'h' },
-    },
+  const { values, positionals } = parseFlags(argv, {
+    config: { type: 'string' },
+    host: { type: 'string' },
+    'http-port': { type: 'string' },
+    'udp-port': { type: 'string' },
+    source: { type: 'string' },
+    array: { type: 'string' },
+    token: { type: 'string' },
+    sdp: { type: 'string', multiple: true },
+    set: { type: 'string', multiple: true },
+    help: { type: 'boolean', short: 'h' },
   });
   if (positionals.length > 0) throw new TypeError(`unexpected argument ${JSON.stringify(positionals[0])}`);
   const overrides: [string, string][] = [];

@@ -4,7 +4,7 @@
  * validated as a whole, so one start-up lists every problem.
  */
 import { existsSync, readFileSync } from 'node:fs';
-import { dirname, isAbsolute, join, resolve } from 'node:path';
+import { dirname, isAbsolute, join, normalize, resolve, sep } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import type { ArrayGeometry } from '../../shared/types.ts';
 import { loadGeometry } from './array-file.ts';
@@ -126,12 +126,35 @@ function readJsonFile(path: string, what: string): unknown {
   }
 }
 
-/** Resolve a geometry path: absolute as is; relative against cwd first, then config/. */
+/**
+ * The places a geometry path is looked for, in order: an absolute path as is; a relative one against
+ * cwd, then against the project's config/ directory, or the project root when it starts with config/
+ * (so `config/arrays/x.json` names the shipped file from any directory, never config/config/…).
+ */
+export function arrayPathCandidates(file: string, cwd: string): string[] {
+  if (isAbsolute(file)) return [file];
+  const rel = normalize(file);
+  const fromProject = rel.startsWith(`config${sep}`) ? resolve(PROJECT_CONFIG_DIR, '..', rel) : resolve(PROJECT_CONFIG_DIR, rel);
+  const tried = [resolve(cwd, file), fromProject];
+  return tried.filter((p, i) => tried.indexOf(p) === i);
+}
+
+/**
+ * Resolve a geometry path to the first candidate that exists ({@link arrayPathCandidates}).
+ * @throws ConfigError on array.file naming every path tried when none exists
+ */
 export function resolveArrayPath(file: string, cwd: string): string {
-  if (isAbsolute(file)) return file;
-  const fromCwd = resolve(cwd, file);
-  if (existsSync(fromCwd)) return fromCwd;
-  return join(PROJECT_CONFIG_DIR, file);
+  const tried = arrayPathCandidates(file, cwd);
+  const found = tried.find((p) => existsSync(p));
+  if (found !== undefined) return found;
+  const where = tried.length === 1 ? tried[0] : `tried ${tried.join(', ')}`;
+  throw new ConfigError([{ path: 'array.file', value: file, message: `array.file = ${JSON.stringify(file)}: no such file (${where})` }]);
+}
+
+/** Resolve (see {@link resolveArrayPath}) and read a geometry file. @throws ConfigError */
+export async function loadArrayFile(file: string, cwd: string = process.cwd()): Promise<{ geometry: ArrayGeometry; arrayPath: string }> {
+  const arrayPath = resolveArrayPath(file, cwd);
+  return { geometry: await loadGeometry(arrayPath), arrayPath };
 }
 
 /** Build and validate the configuration from all layers, then load the array geometry. */
@@ -150,8 +173,7 @@ export async function loadConfig(opts: LoadOptions = {}): Promise<LoadedConfig> 
   for (const [path, text] of opts.overrides ?? []) setPath(tail, path, parseFieldText(path, text));
   merged = mergeLayers(merged, tail);
   const config = validateConfig(merged);
-  const arrayPath = resolveArrayPath(config.array.file, cwd);
-  const geometry = await loadGeometry(arrayPath);
+  const { geometry, arrayPath } = await loadArrayFile(config.array.file, cwd);
   return { config, geometry, arrayPath };
 }
 

@@ -3,9 +3,11 @@
  * same DSP code as the live server (dsp/scan-pipeline.ts). Prints, per method, the direction grid,
  * the broadband spectrum in dB over the whole file and the peaks; a table by default, JSON with --json.
  */
-import { parseArgs } from 'node:util';
+import { readFile, stat } from 'node:fs/promises';
 import { decodeInterleaved, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
-import { loadGeometry } from '../config/array-file.ts';
+import type { ArrayGeometry } from '../../shared/types.ts';
+import { validateGeometry } from '../config/array-file.ts';
+import { loadArrayFile } from '../config/load.ts';
 import { ConfigError } from '../config/validate.ts';
 import { validateLoading, type LoadingSpec } from '../dsp/loading.ts';
 import { defaultGrid, ScanPipeline, type ScanPipelineOptions, type ScanResult } from '../dsp/scan-pipeline.ts';
@@ -14,12 +16,15 @@ import type { AngleRangeDeg } from '../dsp/steering.ts';
 import { lambdaFromTau, speedOfSoundFromTemperature } from '../dsp/units.ts';
 import { openRaw, type FileSampleReader } from '../io/raw.ts';
 import { openWav } from '../io/wav.ts';
+import { FlagError, parseFlags } from './flag-suggest.ts';
 
-export const ANALYZE_USAGE = `usage: nullsteer analyze FILE --array ARRAY.json [--band LO:HI] [--method mvdr|conventional|both]
+export const ANALYZE_USAGE = `usage: nullsteer analyze FILE [--array ARRAY.json] [--band LO:HI] [--method mvdr|conventional|both]
          [--grid AZ0:AZ1:STEP[,EL0:EL1:STEP]] [--lambda L | --tau S] [--loading SPEC] [--fft N]
          [--c M_PER_S | --temperature DEG_C] [--focus-range M] [--mask CH[,CH…]] [--dead-db DB|off]
-         [--normalise] [--threshold-db DB] [--max-peaks N] [--json]
+         [--normalise] [--threshold-db DB] [--max-peaks N] [--json | --all]
          [--raw --channels M --rate HZ --encoding int16|int24|int32|float32]
+  Without --array the geometry comes from the recording's sidecar (FILE.json, written beside it).
+  The table gives the summary and the peaks; --all adds the spectrum at every direction of the grid.
   SPEC: ratio:R (δ = R·tr(R)/M, default ratio:0.01), db:D (the same in dB), fixed:δ, wng:FLOOR_DB, none`;
 
 export interface AnalyzeIo {
@@ -64,43 +69,62 @@ export function parseLoading(text: string): LoadingSpec {
 
 interface Parsed {
   file: string;
-  arrayFile: string;
+  /** null: take the geometry from the recording's sidecar. */
+  arrayFile: string | null;
   json: boolean;
+  /** Table output: print the spectrum at every direction too. */
+  all: boolean;
   raw: { channels: number; sampleRateHz: number; encoding: SampleEncoding } | null;
   build: (fs: number, geometry: ScanPipelineOptions['geometry']) => ScanPipelineOptions;
 }
 
+const ANALYZE_OPTIONS = {
+  array: { type: 'string' },
+  band: { type: 'string' },
+  method: { type: 'string' },
+  grid: { type: 'string' },
+  lambda: { type: 'string' },
+  tau: { type: 'string' },
+  loading: { type: 'string' },
+  fft: { type: 'string' },
+  c: { type: 'string' },
+  temperature: { type: 'string' },
+  'focus-range': { type: 'string' },
+  mask: { type: 'string' },
+  'dead-db': { type: 'string' },
+  normalise: { type: 'boolean' },
+  'threshold-db': { type: 'string' },
+  'max-peaks': { type: 'string' },
+  json: { type: 'boolean' },
+  all: { type: 'boolean' },
+  raw: { type: 'boolean' },
+  channels: { type: 'string' },
+  rate: { type: 'string' },
+  encoding: { type: 'string' },
+} as const;
+const ANALYZE_FLAGS = Object.keys(ANALYZE_OPTIONS);
+
+/**
+ * The flags of `analyze --timeline` (server/tools/timeline.ts parses them; keep the two lists
+ * equal), checked here first so a misspelt one gets a clean message and a suggestion.
+ */
+const TIMELINE_OPTIONS = {
+  timeline: { type: 'string' },
+  array: { type: 'string' },
+  preset: { type: 'string' },
+  'no-replay': { type: 'boolean' },
+  'image-method': { type: 'string' },
+  workers: { type: 'string' },
+  c: { type: 'string' },
+  quiet: { type: 'boolean' },
+} as const;
+const TIMELINE_ONLY_FLAGS = Object.keys(TIMELINE_OPTIONS).filter((f) => !(f in ANALYZE_OPTIONS));
+
 export function parseAnalyzeArgs(argv: string[]): Parsed {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    allowPositionals: true,
-    strict: true,
-    options: {
-      array: { type: 'string' },
-      band: { type: 'string' },
-      method: { type: 'string' },
-      grid: { type: 'string' },
-      lambda: { type: 'string' },
-      tau: { type: 'string' },
-      loading: { type: 'string' },
-      fft: { type: 'string' },
-      c: { type: 'string' },
-      temperature: { type: 'string' },
-      'focus-range': { type: 'string' },
-      mask: { type: 'string' },
-      'dead-db': { type: 'string' },
-      normalise: { type: 'boolean' },
-      'threshold-db': { type: 'string' },
-      'max-peaks': { type: 'string' },
-      json: { type: 'boolean' },
-      raw: { type: 'boolean' },
-      channels: { type: 'string' },
-      rate: { type: 'string' },
-      encoding: { type: 'string' },
-    },
-  });
+  const { values, positionals } = parseFlags(argv, ANALYZE_OPTIONS, true, [...TIMELINE_ONLY_FLAGS, 'help']);
   if (positionals.length !== 1) throw new UsageError(positionals.length === 0 ? 'FILE is required' : `one FILE expected, got ${positionals.length}`);
-  if (!values.array) throw new UsageError('--array ARRAY.json is required');
+  if (values.array === '') throw new UsageError('--array needs a file name');
+  if (values.json && values.all) throw new UsageError('give --json or --all, not both (the JSON report always holds every direction)');
   if (values.lambda !== undefined && values.tau !== undefined) throw new UsageError('give --lambda or --tau, not both');
   if (values.c !== undefined && values.temperature !== undefined) throw new UsageError('give --c or --temperature, not both');
   const methodText = values.method ?? 'both';
@@ -142,8 +166,9 @@ export function parseAnalyzeArgs(argv: string[]): Parsed {
   const maxPeaks = values['max-peaks'] === undefined ? 8 : num('max-peaks', values['max-peaks'], 1, 1000, true);
   return {
     file: positionals[0],
-    arrayFile: values.array,
+    arrayFile: values.array ?? null,
     json: values.json === true,
+    all: values.all === true,
     raw,
     build: (fs, geometry) => {
       const hop = fftSize / 2;
@@ -214,9 +239,41 @@ export function reportJson(file: string, arrayName: string, fs: number, frames: 
   };
 }
 
-function reportTable(rep: Record<string, any>): string {
+/** The sidecar the recorder writes beside FILE.wav (server/outputs/recorder.ts): FILE.json. */
+export function sidecarPathOf(file: string): string {
+  return /\.(wav|raw)$/i.test(file) ? file.replace(/\.(wav|raw)$/i, '.json') : `${file}.json`;
+}
+
+/** Largest sidecar read (it grows with parameter changes and gaps; a bound against a wrong file). */
+const MAX_SIDECAR_BYTES = 64 * 1024 * 1024;
+
+/** The array geometry of a recording's sidecar. @throws UsageError when there is none, ConfigError when it is invalid */
+export async function geometryFromSidecar(file: string): Promise<{ geometry: ArrayGeometry; sidecar: string }> {
+  const sidecar = sidecarPathOf(file);
+  let text: string;
+  try {
+    const st = await stat(sidecar);
+    if (st.size > MAX_SIDECAR_BYTES) throw new UsageError(`no array geometry: give --array (the sidecar ${sidecar} is ${st.size} bytes, above the ${MAX_SIDECAR_BYTES} read)`);
+    text = await readFile(sidecar, 'utf8');
+  } catch (e) {
+    if (e instanceof UsageError) throw e;
+    const code = (e as NodeJS.ErrnoException).code ?? String(e);
+    throw new UsageError(`no array geometry: give --array (no sidecar ${sidecar}: ${code})`);
+  }
+  let doc: unknown;
+  try {
+    doc = JSON.parse(text);
+  } catch (e) {
+    throw new UsageError(`no array geometry: give --array (the sidecar ${sidecar} is not valid JSON: ${(e as Error).message})`);
+  }
+  const array = typeof doc === 'object' && doc !== null ? (doc as { array?: unknown }).array : undefined;
+  if (array === undefined || array === null) throw new UsageError(`no array geometry: give --array (the sidecar ${sidecar} has none)`);
+  return { geometry: validateGeometry(array, `${sidecar} array`), sidecar };
+}
+
+function reportTable(rep: Record<string, any>, all: boolean): string {
   const lines: string[] = [];
-  lines.push(`${rep.file}: ${rep.channels} channels, ${rep.sample_rate_hz} Hz, ${rep.duration_s.toFixed(3)} s; array ${rep.array}`);
+  lines.push(`${rep.file}: ${rep.channels} channels, ${rep.sample_rate_hz} Hz, ${rep.duration_s.toFixed(3)} s; array ${rep.array}${rep.array_from === 'sidecar' ? ` (from the sidecar ${rep.array_file})` : ''}`);
   lines.push(`band ${rep.band_hz[0]}–${rep.band_hz[1]} Hz (${rep.bins} bins, N = ${rep.fft_size}), ${rep.snapshots} snapshots, covariance ${rep.covariance}${rep.tau_s ? ` (λ = ${rep.lambda.toFixed(6)}, τ = ${rep.tau_s.toFixed(3)} s)` : ''}`);
   lines.push(`loading ${JSON.stringify(rep.loading)}, c = ${rep.speed_of_sound_mps.toFixed(1)} m/s, ${rep.active_channels} channels used`);
   if (rep.dead_channels.length) lines.push(`dead channels (excluded): ${rep.dead_channels.join(', ')}`);
@@ -228,6 +285,10 @@ function reportTable(rep: Record<string, any>): string {
     for (const p of rep.methods[n].peaks) {
       lines.push(`  ${p.azimuth_deg.toFixed(2).padStart(11)}${p.elevation_deg !== undefined ? p.elevation_deg.toFixed(2).padStart(15) : ''}${p.level_db.toFixed(2).padStart(10)}`);
     }
+  }
+  if (!all) {
+    lines.push('', `(--all adds the broadband spectrum at all ${rep.grid.azimuth_deg.length} directions)`);
+    return lines.join('\n');
   }
   lines.push('', `broadband spectrum (dB):`, '  azimuth_deg' + (rep.grid.elevation_deg ? '  elevation_deg' : '') + names.map((n) => n.padStart(14)).join(''));
   const az = rep.grid.azimuth_deg as number[];
@@ -241,7 +302,18 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
   const out = io.out ?? ((s: string) => process.stdout.write(`${s}\n`));
   const err = io.err ?? ((s: string) => process.stderr.write(`${s}\n`));
   if (argv.some((a) => a === '--timeline' || a.startsWith('--timeline='))) {
-    const { timelineCommand } = await import('./timeline.ts');
+    const { timelineCommand, TIMELINE_USAGE } = await import('./timeline.ts');
+    if (argv.includes('--help') || argv.includes('-h')) {
+      out(TIMELINE_USAGE);
+      return 0;
+    }
+    try {
+      parseFlags(argv, TIMELINE_OPTIONS, true, [...ANALYZE_FLAGS, 'help']);
+    } catch (e) {
+      if (!(e instanceof FlagError)) throw e;
+      err(`nullsteer analyze: ${e.message}\n${TIMELINE_USAGE}`);
+      return 2;
+    }
     return timelineCommand(argv, io);
   }
   if (argv.includes('--help') || argv.includes('-h')) {
@@ -257,19 +329,22 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
   }
   let reader: FileSampleReader | null = null;
   try {
-    const geometry = await loadGeometry(parsed.arrayFile);
     reader = parsed.raw ? await openRaw(parsed.file, parsed.raw) : await openWav(parsed.file);
     const info = reader.info;
+    const from = parsed.arrayFile !== null ? { ...(await loadArrayFile(parsed.arrayFile)), kind: 'file' as const } : { ...(await geometryFromSidecar(parsed.file)), kind: 'sidecar' as const };
+    const geometry = from.geometry;
     if (info.channels !== geometry.positions.length) {
       throw new UsageError(`${parsed.file} has ${info.channels} channels, the array ${geometry.name} has ${geometry.positions.length}`);
     }
     const options = parsed.build(info.sampleRateHz, geometry);
     const result = await analyzeFile(reader, options);
     const rep = reportJson(parsed.file, geometry.name, info.sampleRateHz, info.frames, options, result);
-    out(parsed.json ? JSON.stringify(rep) : reportTable(rep));
+    rep.array_from = from.kind;
+    rep.array_file = from.kind === 'file' ? from.arrayPath : from.sidecar;
+    out(parsed.json ? JSON.stringify(rep) : reportTable(rep, parsed.all));
     return 0;
   } catch (e) {
-    if (e instanceof UsageError) {
+    if (e instanceof UsageError || e instanceof FlagError) {
       err(`nullsteer analyze: ${e.message}\n${ANALYZE_USAGE}`);
       return 2;
     }

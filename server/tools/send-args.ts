@@ -5,6 +5,7 @@
  * FILE `-` reads standard input (a file named `-` is `./-`).
  */
 import { FRAME_HEADER_BYTES, MAX_FRAME_BYTES, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
+import { unknownFlagText } from './flag-suggest.ts';
 import { sendError, type SendError } from './send-errors.ts';
 import { DEFAULT_UDP_TARGET, type SendTarget } from './send-plan.ts';
 import type { SendOptions } from './send.ts';
@@ -28,6 +29,7 @@ export const FLAG_OF_OPTION: Record<string, string> = {
 
 const VALUE_FLAGS = ['udp', 'ws', 'channels', 'rate', 'encoding', 'speed', 'stream-id', 'frame-samples', 'max-frame-bytes', 'start-sample'] as const;
 const BOOLEAN_FLAGS = ['raw', 'fast', 'loop', 'quiet', 'help'] as const;
+const ALL_FLAGS: readonly string[] = [...VALUE_FLAGS, ...BOOLEAN_FLAGS];
 type ValueFlag = (typeof VALUE_FLAGS)[number];
 type BooleanFlag = (typeof BOOLEAN_FLAGS)[number];
 
@@ -110,7 +112,7 @@ function tokenize(argv: readonly string[]) {
       continue;
     }
     if (!arg.startsWith('--')) {
-      if (arg.startsWith('-') && arg.length > 1) throw usage(`unknown option ${arg}`);
+      if (arg.startsWith('-') && arg.length > 1) throw usage(unknownFlagText(arg, ALL_FLAGS));
       positionals.push(arg);
       continue;
     }
@@ -126,7 +128,7 @@ function tokenize(argv: readonly string[]) {
       if (value === undefined || value === '') throw usage(`--${name} needs a value`);
       values.set(name as ValueFlag, value);
     } else {
-      throw usage(`unknown option --${name}`);
+      throw usage(unknownFlagText(arg, ALL_FLAGS));
     }
   }
   return { values, booleans, positionals };

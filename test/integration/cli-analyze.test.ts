@@ -3,7 +3,7 @@
  * and masked channels, the JSON and table outputs, and its errors.
  */
 import { spawnSync } from 'node:child_process';
-import { mkdtempSync, writeFileSync } from 'node:fs';
+import { copyFileSync, mkdtempSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -114,12 +114,46 @@ describe('nullsteer analyze', () => {
     }
   });
 
-  it('prints a table by default through the real command', () => {
+  it('prints a table by default through the real command: summary and peaks; --all adds every direction', () => {
     const p = spawnSync(process.execPath, [BIN, 'analyze', twoSources, '--array', line8, '--band', '1500:4000', '--grid', '60:120:2'], { encoding: 'utf8' });
     expect(p.status).toBe(0);
     expect(p.stdout).toMatch(/mvdr peaks:\n\s+azimuth_deg\s+level_db\n/);
-    expect(p.stdout).toMatch(/broadband spectrum \(dB\):\n\s+azimuth_deg\s+mvdr\s+conventional/);
-    expect(p.stdout.trim().split('\n').filter((l) => /^\s+\d+\.00\s+-?\d/.test(l)).length).toBeGreaterThanOrEqual(31);
+    expect(p.stdout).not.toMatch(/broadband spectrum \(dB\):/);
+    expect(p.stdout).toContain('(--all adds the broadband spectrum at all 31 directions)');
+    const all = spawnSync(process.execPath, [BIN, 'analyze', twoSources, '--array', line8, '--band', '1500:4000', '--grid', '60:120:2', '--all'], { encoding: 'utf8' });
+    expect(all.status).toBe(0);
+    expect(all.stdout).toMatch(/mvdr peaks:\n\s+azimuth_deg\s+level_db\n/);
+    expect(all.stdout).toMatch(/broadband spectrum \(dB\):\n\s+azimuth_deg\s+mvdr\s+conventional/);
+    // 60:120:2 is 31 directions, one line each (the peak lines have two numbers, these three).
+    expect(all.stdout.trim().split('\n').filter((l) => /^\s+\d+\.00\s+-?\d+\.\d+\s+-?\d+\.\d+$/.test(l)).length).toBe(31);
+  });
+
+  it('takes the array from the recording\'s sidecar when --array is omitted', async () => {
+    const rec = join(dir, 'recorded.wav');
+    copyFileSync(twoSources, rec);
+    // The recorder's sidecar (server/outputs/sidecar.ts) holds the geometry as loaded; only `array` is read here.
+    const g = await loadGeometry(line8);
+    writeFileSync(join(dir, 'recorded.json'), JSON.stringify({ startSampleIndex: 0, array: g, params: {}, changes: [] }));
+    const viaSidecar = await analyze([rec, '--band', '1500:4000', '--json', '--loading', 'ratio:0.001']);
+    expect(viaSidecar.err).toBe('');
+    expect(viaSidecar.code).toBe(0);
+    const viaFile = await analyze([rec, '--array', line8, '--band', '1500:4000', '--json', '--loading', 'ratio:0.001']);
+    const a = JSON.parse(viaSidecar.out);
+    const b = JSON.parse(viaFile.out);
+    expect(a.array_from).toBe('sidecar');
+    expect(a.array_file).toBe(join(dir, 'recorded.json'));
+    expect(b.array_from).toBe('file');
+    expect(a.methods).toEqual(b.methods);
+    const table = await analyze([rec, '--band', '1500:4000']);
+    expect(table.out.split('\n')[0]).toContain(`array line-8 (from the sidecar ${join(dir, 'recorded.json')})`);
+    // A sidecar without an array, and no sidecar at all: a usage error that says to give --array.
+    writeFileSync(join(dir, 'recorded.json'), JSON.stringify({ array: null }));
+    const none = await analyze([rec]);
+    expect(none.code).toBe(2);
+    expect(none.err).toContain(`no array geometry: give --array (the sidecar ${join(dir, 'recorded.json')} has none)`);
+    const missing = await analyze([twoSources]);
+    expect(missing.code).toBe(2);
+    expect(missing.err).toContain(`no array geometry: give --array (no sidecar ${join(dir, 'two-sources.json')}: ENOENT)`);
   });
 
   it('reads raw files and reports usage errors by flag, with exit code 2', async () => {
@@ -140,7 +174,8 @@ describe('nullsteer analyze', () => {
     expect(silent.code).toBe(1);
     expect(silent.err).toMatch(/not positive definite[\s\S]*loading/);
     const cases: [string[], RegExp][] = [
-      [[twoSources], /--array ARRAY\.json is required/],
+      [[twoSources], /no array geometry: give --array/],
+      [[twoSources, '--array', line8, '--json', '--all'], /give --json or --all, not both/],
       [[twoSources, '--array', line8, '--method', 'music'], /--method music: allowed mvdr, conventional, both/],
       [[twoSources, '--array', line8, '--loading', 'ratio:-1'], /--loading ratio:-1: loading\.ratio must be in 0…1000000, got -1/],
       [[twoSources, '--array', line8, '--band', '3000:1000'], /--band 3000:1000: HI must exceed LO/],

@@ -271,8 +271,8 @@ describe('sendCommand', () => {
   const bad: [string[], RegExp][] = [
     [[], /FILE is missing/],
     [['a.wav', 'b.wav'], /one FILE expected, got 2/],
-    [['f.wav', '--bogus'], /unknown option --bogus/],
-    [['f.wav', '-x'], /unknown option -x/],
+    [['f.wav', '--bogus'], /unknown flag --bogus/],
+    [['f.wav', '-x'], /unknown flag -x/],
     [['f.wav', '--udp'], /--udp needs a value/],
     [['f.wav', '--udp', 'localhost'], /--udp "localhost": not HOST:PORT; allowed HOST:PORT/],
     [['f.wav', '--udp', '127.0.0.1:0'], /--udp "127.0.0.1:0": port 0 out of range; allowed .*port 1–65535/],
