@@ -8,6 +8,7 @@ import { decodeInterleaved, SAMPLE_ENCODINGS, type SampleEncoding } from '../../
 import type { ArrayGeometry } from '../../shared/types.ts';
 import { validateGeometry } from '../config/array-file.ts';
 import { loadArrayFile } from '../config/load.ts';
+import { TIMELINE_OPTIONS } from './timeline-flags.ts';
 import { ConfigError } from '../config/validate.ts';
 import { validateLoading, type LoadingSpec } from '../dsp/loading.ts';
 import { defaultGrid, ScanPipeline, type ScanPipelineOptions, type ScanResult } from '../dsp/scan-pipeline.ts';
@@ -104,20 +105,6 @@ const ANALYZE_OPTIONS = {
 } as const;
 const ANALYZE_FLAGS = Object.keys(ANALYZE_OPTIONS);
 
-/**
- * The flags of `analyze --timeline` (server/tools/timeline.ts parses them; keep the two lists
- * equal), checked here first so a misspelt one gets a clean message and a suggestion.
- */
-const TIMELINE_OPTIONS = {
-  timeline: { type: 'string' },
-  array: { type: 'string' },
-  preset: { type: 'string' },
-  'no-replay': { type: 'boolean' },
-  'image-method': { type: 'string' },
-  workers: { type: 'string' },
-  c: { type: 'string' },
-  quiet: { type: 'boolean' },
-} as const;
 const TIMELINE_ONLY_FLAGS = Object.keys(TIMELINE_OPTIONS).filter((f) => !(f in ANALYZE_OPTIONS));
 
 export function parseAnalyzeArgs(argv: string[]): Parsed {

@@ -15,7 +15,9 @@ import { parseArgs } from 'node:util';
 import { COLORMAP_RGB, COLORMAP_SIZE } from '../../shared/colormap.ts';
 import { decodeInterleaved } from '../../shared/frame.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
-import { loadGeometry, validateGeometry } from '../config/array-file.ts';
+import { validateGeometry } from '../config/array-file.ts';
+import { loadArrayFile } from '../config/load.ts';
+import { TIMELINE_OPTIONS } from './timeline-flags.ts';
 import { Engine, type EngineRow } from '../engine/engine.ts';
 import { FFT_SIZES, patchParams, type ProcessingParams } from '../engine/params.ts';
 import { encodePng } from '../io/png.ts';
@@ -232,16 +234,7 @@ export async function timelineCommand(argv: string[], io: TimelineIo = {}): Prom
         args: argv,
         allowPositionals: true,
         strict: true,
-        options: {
-          timeline: { type: 'string' },
-          array: { type: 'string' },
-          preset: { type: 'string' },
-          'no-replay': { type: 'boolean' },
-          'image-method': { type: 'string' },
-          workers: { type: 'string' },
-          c: { type: 'string' },
-          quiet: { type: 'boolean' },
-        },
+        options: TIMELINE_OPTIONS,
       });
     } catch (e) {
       throw new UsageError((e as Error).message);
@@ -265,7 +258,7 @@ export async function timelineCommand(argv: string[], io: TimelineIo = {}): Prom
     }
     const c = v.c !== undefined ? Number(v.c) : (side.source?.speedOfSoundMps ?? 343.2);
     if (!(c >= 200 && c <= 2000)) throw new UsageError(`--c ${v.c}: allowed a number 200–2000`);
-    const geometry = v.array ? await loadGeometry(v.array) : side.array ? validateGeometry(side.array, sideFile) : null;
+    const geometry = v.array ? (await loadArrayFile(v.array)).geometry : side.array ? validateGeometry(side.array, sideFile) : null;
     if (!geometry) throw new UsageError(`no array geometry: give --array (the sidecar ${sideFile} has none)`);
     if (geometry.positions.length !== info.channels) throw new UsageError(`${file} has ${info.channels} channels, the array ${geometry.name} has ${geometry.positions.length}`);
     let params: ProcessingParams;
