@@ -8,10 +8,9 @@
  */
 import { existsSync, readFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { parseArgs } from 'node:util';
 import type { ArrayGeometry } from '../../shared/types.ts';
-import { loadGeometry } from '../config/array-file.ts';
-import { PROJECT_CONFIG_DIR, resolveArrayPath } from '../config/load.ts';
+import { loadArrayFile, PROJECT_CONFIG_DIR } from '../config/load.ts';
+import { parseFlags } from './flag-suggest.ts';
 import { ConfigError, validateConfig } from '../config/validate.ts';
 import { SceneSimulator } from '../ingest/simulator.ts';
 import { RECORDING_ENCODINGS, WavStreamWriter, type RecordingEncoding } from '../outputs/wav-writer.ts';
@@ -35,7 +34,6 @@ const OPTIONS = {
   help: { type: 'boolean', short: 'h' },
 } as const;
 
-const VALID_FLAGS = Object.keys(OPTIONS).map((k) => `--${k}`);
 
 /** Longest file, seconds. */
 export const MAX_SIMULATE_SECONDS = 3600;
@@ -150,18 +148,10 @@ export interface ParsedSimulateArgs {
 export function parseSimulateArgs(argv: string[]): ParsedSimulateArgs {
   let parsed;
   try {
-    parsed = parseArgs({ args: argv, allowPositionals: true, strict: true, options: OPTIONS });
+    // The shared flag check: a misspelt flag gets the nearest valid one, as in the other commands.
+    parsed = parseFlags(argv, OPTIONS, true);
   } catch (e) {
-    const err = e as NodeJS.ErrnoException;
-    if (err.code === 'ERR_PARSE_ARGS_UNKNOWN_OPTION') {
-      const flag = /'([^']+)'/.exec(err.message)?.[1] ?? '?';
-      throw new UsageError(`unknown option ${flag}; valid options: ${VALID_FLAGS.join(', ')}`);
-    }
-    if (err.code === 'ERR_PARSE_ARGS_INVALID_OPTION_VALUE') {
-      const flag = /--[a-z-]+/.exec(err.message)?.[0] ?? '';
-      throw new UsageError(flag === '--force' || flag === '--help' ? `${flag} takes no value` : `${flag || 'an option'} needs a value`);
-    }
-    throw new UsageError(err.message);
+    throw new UsageError((e as Error).message);
   }
   const { values, positionals } = parsed;
   const help = values.help === true;
@@ -194,9 +184,8 @@ export async function simulateCommand(argv: string[], io: SimulateIo = {}): Prom
   try {
     if (!p.force && existsSync(p.out)) throw new UsageError(`${p.out} exists; give --force to overwrite it`);
     // Same lookup as the server's --array: the path as given (from the working directory), else under config/.
-    const arrayPath = resolveArrayPath(p.arrayFile, process.cwd());
-    if (!existsSync(arrayPath)) throw new UsageError(`array file ${p.arrayFile} not found (looked in the working directory, then config/)`);
-    const geometry = await loadGeometry(arrayPath);
+    // (a missing file is a ConfigError listing every path tried)
+    const { geometry } = await loadArrayFile(p.arrayFile);
     const defaults = simulatorDefaults();
     const seed = p.seed ?? defaults.seed;
     const r = await simulateToWav({

@@ -164,13 +164,14 @@ describe('nullsteer simulate', () => {
 
     const unknown = await run(['simulate', join(dir, 'u.wav'), '--array', array, '--colour', 'blue']);
     expect(unknown.code).toBe(2);
-    expect(unknown.err).toContain('unknown option --colour');
+    // The shared flag check (server/tools/flag-suggest.ts): one line naming the flag, then the usage with every flag.
+    expect(unknown.err).toContain('unknown flag --colour');
     for (const f of ['--array', '--seconds', '--seed', '--rate', '--encoding', '--force']) expect(unknown.err).toContain(f);
 
     const missing = await run(['simulate', join(dir, 'm.wav'), '--array', 'no/such-array.json']);
     expect(missing.code).toBe(2);
     expect(missing.err).toContain('no/such-array.json');
-    expect(missing.err).toContain('not found');
+    expect(missing.err).toContain('no such file (tried ');
 
     const badEnc = await run(['simulate', join(dir, 'e.wav'), '--array', array, '--encoding', 'int8']);
     expect(badEnc.code).toBe(2);
