@@ -57,10 +57,17 @@ export class InputMask {
     this.#update(sampleIndex);
   }
 
+  /** Called for every block: allocates only when the set of channels in use changes. */
   #update(at: number): void {
+    let changed = false;
+    let anyIn = false;
+    for (let c = 0; c < this.#channels; c++) {
+      const inUse = this.#user[c] && !(this.#outUntil[c] > at);
+      if (inUse) anyIn = true;
+      if (inUse !== this.#applied[c]) changed = true;
+    }
+    if (!changed || !anyIn) return;
     const next = this.#user.map((u, c) => u && !(this.#outUntil[c] > at));
-    if (!next.some((a) => a)) return;
-    if (next.every((a, c) => a === this.#applied[c])) return;
     this.#applied = next;
     this.#apply(next);
   }
