@@ -313,7 +313,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       source: { kind: config.source.kind, ...(scene ? { scenario: scene.describe() } : {}) },
       // The file's name only: status may be open to anyone who can reach the port.
       array: { name: geometry.name, file: basename(arrayPath), channels, calibration: describeCalibration(geometry.calibration) },
-      input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0, waiting: inputs ? inputs.waiting : false, ...(inputs ? inputs.selection(now) : {}), channelsOut: inputMask.inputOut },
+      input: { sampleRateHz: config.input.sampleRateHz, encodings: config.input.encodings, selectedStreamId: hub ? hub.selectedStream : 0, waiting: false, ...(inputs ? inputs.selection(now, streams as StreamStatus[]) : {}), channelsOut: inputMask.inputOut },
       listeners: {
         http: { host: config.server.host, port: httpPort },
         udp: udp ? udpStatus(udp, config.ingest.udp.queueBytes) : null,
@@ -546,7 +546,10 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       },
     },
     input: {
-      describe: () => ({ source: config.source.kind, waiting: inputs ? inputs.waiting : false, ...(inputs ? inputs.selection() : {}), streams: inputs ? inputs.streams() : [], channelsOut: inputMask.inputOut }),
+      describe: () => {
+        const streams = inputs ? inputs.streams() : [];
+        return { source: config.source.kind, waiting: false, ...(inputs ? inputs.selection(performance.now(), streams) : {}), streams, channelsOut: inputMask.inputOut };
+      },
       selectStream: (id) => {
         try {
           inputs?.selectStream(id);

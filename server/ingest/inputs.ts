@@ -231,13 +231,6 @@ export class Inputs {
   }
 
   /** Nothing has arrived yet from any live input. */
-  get waiting(): boolean {
-    const hubWaits = this.hub ? this.hub.status().every((s) => s.samplesAccepted === 0) : true;
-    const rtpWaits = this.rtp.every((r) => r.stream.status().packets === 0);
-    const captureWaits = this.capture ? this.capture.status().samplesRead === 0 : true;
-    return hubWaits && rtpWaits && captureWaits;
-  }
-
   streams(nowMs = performance.now()): StreamStatus[] {
     return this.hub ? this.hub.status(nowMs) : [];
   }
@@ -275,13 +268,19 @@ export class Inputs {
     return { ...s, warnAboveUs: 1e6 / (10 * this.#loaded.config.processing.bandHighHz), members: s.members.map((mm, i) => ({ ...mm, source: inputs[i]?.source ?? mm.name, positions: inputs[i]?.positions ?? [] })) };
   }
 
-  /** The processed stream and how it was chosen, the capture, RTP sessions and members: status and GET /api/input. */
-  selection(nowMs = performance.now()): Record<string, unknown> {
+  /**
+   * The processed stream and how it was chosen, the capture, RTP sessions and members, and whether
+   * nothing has arrived yet from any input (`waiting`): status and GET /api/input. `streams` is the
+   * hub's status when the caller has it already.
+   */
+  selection(nowMs = performance.now(), streams: StreamStatus[] = this.streams(nowMs)): Record<string, unknown> {
     const hub = this.hub;
-    const st = hub ? (hub.status(nowMs).find((s) => s.selected) ?? null) : null;
+    const st = streams.find((s) => s.selected) ?? null;
     const cap = this.captureStatus();
+    const rtp = this.rtpStatus(nowMs);
     const cfg = this.#loaded.config.input;
     return {
+      waiting: streams.every((s) => s.samplesAccepted === 0) && rtp.every((r) => r.packets === 0) && (cap === null || cap.samplesRead === 0),
       mode: hub && !this.group ? cfg.select : null,
       selectedStreamId: hub && !this.group ? hub.selectedStream : null,
       selected: st ? { streamId: st.streamId, transport: st.transport, remote: st.remote, lastFrameAgoS: st.lastFrameAgoS } : null,
@@ -290,7 +289,7 @@ export class Inputs {
       eligibleAfterMs: cfg.eligibleAfterMs,
       switchAfterS: cfg.switchAfterS,
       capture: cap ? { ...cap, command: cap.commandLine, argv: cap.command, error: cap.error ? cap.error.message : null } : null,
-      rtp: this.rtpStatus(nowMs),
+      rtp,
       group: this.groupStatus(nowMs),
     };
   }
