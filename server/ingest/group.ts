@@ -144,8 +144,14 @@ export interface GroupStatus {
 /** Hold marks kept (leading-edge advances with their arrival times), a ring. */
 export const MARK_SLOTS = 2048;
 
+/** The counters a member keeps, as its status reports them. */
+type MemberCounters = Pick<
+  GroupMemberStatus,
+  'samples' | 'gaps' | 'gapSamples' | 'absentSpans' | 'absentSamples' | 'lateSamples' | 'offClockBlocks' | 'offClockSamples' | 'rejoins' | 'beforeStart' | 'discontinuities' | 'dropped' | 'lastDrop'
+>;
+
 /** Per-member state. Rings are indexed by sample index & mask (sample indices are whole, ≥ 0). */
-interface Member {
+interface Member extends MemberCounters {
   readonly name: string;
   /** Stream channels stored: the mapped ones in mapping order, then the reference if it feeds no position. */
   readonly stored: Int32Array;
@@ -167,19 +173,6 @@ interface Member {
   offClockEnd: number;
   lastPushMs: number;
   wasAbsent: boolean;
-  samples: number;
-  gaps: number;
-  gapSamples: number;
-  absentSpans: number;
-  absentSamples: number;
-  lateSamples: number;
-  offClockBlocks: number;
-  offClockSamples: number;
-  rejoins: number;
-  beforeStart: number;
-  discontinuities: number;
-  dropped: Record<GroupDropReason, number>;
-  lastDrop: string | null;
 }
 
 /** Kind of a member's samples in an output chunk. */
