@@ -10,7 +10,7 @@ commands:
   simulate write the built-in scene as heard by an array to a WAV file
 run \`nullsteer <command> --help\` for a command's options.`;
 
-const COMMANDS = ['serve', 'send', 'analyze'];
+const COMMANDS = ['serve', 'send', 'analyze', 'simulate'];
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
