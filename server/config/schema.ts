@@ -4,6 +4,8 @@
  * uses it to parse command-line strings.
  */
 
+import { PROCESSING_LIMITS } from '../../shared/processing-fields.ts';
+
 export type FieldSpec =
   | { kind: 'int'; min: number; max: number; doc: string; nullable?: boolean }
   | { kind: 'number'; min: number; max: number; doc: string; nullable?: boolean }
@@ -20,6 +22,9 @@ export type FieldSpec =
 export type LeafSpec = Exclude<FieldSpec, { kind: 'object' } | { kind: 'recordList' }>;
 
 const ENCODINGS = ['int16', 'int24', 'int32', 'float32'] as const;
+
+// The processing ranges are the panel's and the live checks' too (shared/processing-fields.ts).
+const PL = PROCESSING_LIMITS;
 
 export const CONFIG_SCHEMA: FieldSpec = {
   kind: 'object',
@@ -141,12 +146,12 @@ export const CONFIG_SCHEMA: FieldSpec = {
     processing: {
       kind: 'object',
       fields: {
-        tauS: { kind: 'number', min: 0.01, max: 3600, doc: 'Covariance time constant τ = hop/(fs·(1−λ)), seconds; changeable live.' },
-        bandLowHz: { kind: 'number', min: 0, max: 192000, doc: 'Lowest frequency scanned, Hz.' },
-        bandHighHz: { kind: 'number', min: 1, max: 192000, doc: 'Highest frequency scanned, Hz (≤ fs/2).' },
-        loadingRatio: { kind: 'number', min: 0, max: 1000000, doc: 'Diagonal loading δ = ratio·tr(R)/M at start; changeable live.' },
-        spectrumRateHz: { kind: 'number', min: 0.5, max: 50, doc: 'Spectrum rows per second at start; changeable live.' },
-        azimuthStepDeg: { kind: 'number', min: 0.1, max: 90, doc: 'Azimuth grid step, degrees (full turn, or half a turn for a line array).' },
+        tauS: { kind: 'number', min: PL.tauS.min, max: PL.tauS.max, doc: 'Covariance time constant τ = hop/(fs·(1−λ)), seconds; changeable live.' },
+        bandLowHz: { kind: 'number', min: PL.bandLowHz.min, max: PL.bandLowHz.max, doc: 'Lowest frequency scanned, Hz.' },
+        bandHighHz: { kind: 'number', min: PL.bandHighHz.min, max: PL.bandHighHz.max, doc: 'Highest frequency scanned, Hz (≤ fs/2).' },
+        loadingRatio: { kind: 'number', min: PL.loadingRatio.min, max: PL.loadingRatio.max, doc: 'Diagonal loading δ = ratio·tr(R)/M at start; changeable live.' },
+        spectrumRateHz: { kind: 'number', min: PL.spectrumRateHz.min, max: PL.spectrumRateHz.max, doc: 'Spectrum rows per second at start; changeable live.' },
+        azimuthStepDeg: { kind: 'number', min: PL.azimuthStepDeg.min, max: PL.azimuthStepDeg.max, doc: 'Azimuth grid step, degrees (full turn, or half a turn for a line array).' },
       },
     },
     hub: {

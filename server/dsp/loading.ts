@@ -19,6 +19,7 @@
  * bisection on log δ.
  */
 import { HermitianSolver, NotPositiveDefiniteError, hermitianTrace } from './hermitian.ts';
+import { PROCESSING_LIMITS } from '../../shared/processing-fields.ts';
 
 /** How to choose the loading level; see the module comment. */
 export type LoadingSpec =
@@ -28,23 +29,23 @@ export type LoadingSpec =
   | { mode: 'wng'; floorDb: number; maxRatio?: number };
 
 /** Largest `ratio` (and `maxRatio`) accepted: 60 dB above the average sensor power. */
-export const MAX_LOADING_RATIO = 1e6;
+export const MAX_LOADING_RATIO = PROCESSING_LIMITS.loadingRatio.max;
 /** Range of `db` for mode 'relative-db'. */
-export const MIN_LOADING_DB = -200;
-export const MAX_LOADING_DB = 60;
+export const MIN_LOADING_DB = PROCESSING_LIMITS.loadingDb.min;
+export const MAX_LOADING_DB = PROCESSING_LIMITS.loadingDb.max;
 /**
  * Largest fixed δ accepted: 10¹², in the engine's units one bin's power 120 dB above full scale,
  * 60 dB above the loudest input the server accepts (+60 dBFS). Bounded so that R + δI and the
  * spectra stay finite in float64 (δ = 1.7e308 made every MVDR value non-finite).
  */
-export const MAX_FIXED_DELTA = 1e12;
+export const MAX_FIXED_DELTA = PROCESSING_LIMITS.loadingDelta.max;
 /** Range of a WNG floor, dB (WNG ≤ 10·log10 M, at most 30.1 dB for 1024 sensors). */
-export const MIN_WNG_FLOOR_DB = -100;
-export const MAX_WNG_FLOOR_DB = 100;
+export const MIN_WNG_FLOOR_DB = PROCESSING_LIMITS.wngFloorDb.min;
+export const MAX_WNG_FLOOR_DB = PROCESSING_LIMITS.wngFloorDb.max;
 /** Default upper end of the WNG search, as a ratio to tr(R)/M (30 dB above the average sensor power). */
 export const DEFAULT_WNG_MAX_RATIO = 1e3;
 /** Lower end of the WNG search, as a ratio to tr(R)/M (−90 dB). */
-export const WNG_MIN_RATIO = 1e-9;
+export const WNG_MIN_RATIO = PROCESSING_LIMITS.wngMaxRatio.min;
 /** The WNG search stops when the bracket [lo, hi] satisfies hi/lo ≤ 1 + this (δ to 0.01 %). */
 export const WNG_DELTA_RELATIVE_TOLERANCE = 1e-4;
 

@@ -7,6 +7,7 @@ import type { LoadingSpec } from '../dsp/loading.ts';
 import { cleanLoading, validateLoading } from '../dsp/loading.ts';
 import type { SpectrumMethod } from '../dsp/spectrum.ts';
 import type { AngleRangeDeg } from '../dsp/steering.ts';
+import { inRange, PROCESSING_LIMITS } from '../../shared/processing-fields.ts';
 
 export interface ProcessingParams {
   /** Forgetting factor per hop, (0, 1). */
@@ -36,7 +37,7 @@ export class ParamError extends Error {
   }
 }
 
-export const SPECTRUM_RATE_LIMITS_HZ = [0.5, 50] as const;
+export const SPECTRUM_RATE_LIMITS_HZ = [PROCESSING_LIMITS.spectrumRateHz.min, PROCESSING_LIMITS.spectrumRateHz.max] as const;
 export const MAX_DIRECTIONS = 20_000;
 
 function angleRange(field: string, v: unknown, lo: number, hi: number): AngleRangeDeg {
@@ -49,7 +50,8 @@ function angleRange(field: string, v: unknown, lo: number, hi: number): AngleRan
     if (k !== 'stepDeg' && (x < lo || x > hi)) throw new ParamError(`${field}.${k}`, `${x} out of range; allowed ${lo}–${hi}`);
   }
   const { startDeg, stopDeg, stepDeg } = r as unknown as AngleRangeDeg;
-  if (!(stepDeg > 0 && stepDeg <= 90)) throw new ParamError(`${field}.stepDeg`, `${stepDeg} out of range; allowed > 0 and ≤ 90`);
+  const step = PROCESSING_LIMITS.azimuthStepDeg;
+  if (!(stepDeg >= step.min && stepDeg <= step.max)) throw new ParamError(`${field}.stepDeg`, `${stepDeg} out of range; allowed ${step.min}–${step.max}`);
   if (stopDeg < startDeg) throw new ParamError(`${field}.stopDeg`, `${stopDeg} is below startDeg ${startDeg}`);
   return { startDeg, stopDeg, stepDeg };
 }
@@ -88,8 +90,11 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
   }
   if (p.tauS !== undefined) {
     const v = p.tauS;
-    const minTau = hop / ctx.sampleRateHz;
-    if (typeof v !== 'number' || !(v > minTau && v <= 3600)) throw new ParamError('tauS', `${JSON.stringify(v)} out of range; allowed ${minTau.toFixed(6)}–3600 s`);
+    const { min, max } = PROCESSING_LIMITS.tauS;
+    if (typeof v !== 'number' || !(v >= min && v <= max)) throw new ParamError('tauS', `${JSON.stringify(v)} out of range; allowed ${min}–${max} s`);
+    // λ = 1 − hop/(fs τ) must stay above 0: τ longer than one hop.
+    const hopS = hop / ctx.sampleRateHz;
+    if (!(v > hopS)) throw new ParamError('tauS', `${v} out of range; allowed more than one hop (${Number(hopS.toPrecision(6))} s at FFT size ${2 * hop}) up to ${max} s`);
     out.lambda = 1 - hop / (ctx.sampleRateHz * v);
   }
   if (p.loading !== undefined) {
@@ -104,7 +109,7 @@ export function patchParams(base: ProcessingParams, patch: unknown, ctx: { sampl
     const b = p.bandHz;
     const ny = ctx.sampleRateHz / 2;
     if (!Array.isArray(b) || b.length !== 2 || !b.every((x) => typeof x === 'number' && Number.isFinite(x))) throw new ParamError('bandHz', 'must be [lowHz, highHz]');
-    if (!(b[0] >= 0 && b[1] > b[0] && b[1] <= ny)) throw new ParamError('bandHz', `[${b[0]}, ${b[1]}] out of range; allowed 0 ≤ low < high ≤ ${ny}`);
+    if (!(b[0] >= 0 && b[1] > b[0] && b[1] <= ny && inRange(b[0], PROCESSING_LIMITS.bandLowHz) && inRange(b[1], PROCESSING_LIMITS.bandHighHz))) throw new ParamError('bandHz', `[${b[0]}, ${b[1]}] out of range; allowed 0 ≤ low < high ≤ ${Math.min(ny, PROCESSING_LIMITS.bandHighHz.max)}`);
     out.bandHz = [b[0], b[1]];
   }
   if (p.grid !== undefined) {

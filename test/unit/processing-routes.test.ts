@@ -128,13 +128,15 @@ describe('/api/processing', () => {
     const cases: [unknown, string][] = [
       [{ lambda: 1 }, 'lambda: 1 out of range; allowed a number in (0, 1)'],
       [{ lambda: '0.9' }, 'lambda: "0.9" out of range; allowed a number in (0, 1)'],
-      [{ tauS: 0.001 }, `tauS: 0.001 out of range; allowed ${(HOP / FS).toFixed(6)}–3600 s`],
+      // The configuration's range (shared/processing-fields.ts), and more than one hop.
+      [{ tauS: 0.001 }, 'tauS: 0.001 out of range; allowed 0.01–3600 s'],
+      [{ fftSize: 4096, tauS: 0.02 }, `tauS: 0.02 out of range; allowed more than one hop (${Number((2048 / FS).toPrecision(6))} s at FFT size 4096) up to 3600 s`],
       [{ lambda: 0.9, tauS: 1 }, 'tauS: give lambda or tauS, not both'],
       [{ spectrumRateHz: 100 }, 'spectrumRateHz: 100 out of range; allowed 0.5–50'],
       [{ bandHz: [300, 30000] }, 'bandHz: [300, 30000] out of range; allowed 0 ≤ low < high ≤ 24000'],
       [{ methods: [] }, 'methods: []: allowed a non-empty list of mvdr, conventional'],
       [{ normalise: 'yes' }, 'normalise: must be true or false'],
-      [{ grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 0 } } }, 'grid.azimuthDeg.stepDeg: 0 out of range; allowed > 0 and ≤ 90'],
+      [{ grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 0 } } }, 'grid.azimuthDeg.stepDeg: 0 out of range; allowed 0.01–90'],
       [{ loading: { mode: 'relative', ratio: -1 } }, 'loading: ratio must be in 0…1000000, got -1'],
       [[1, 2], '(body): must be object'],
     ];
