@@ -3,8 +3,12 @@
  * fixture (test/fixtures/tau-advisor/generate.py: white noise through the project's STFT and
  * exponential averaging, the per-bin variance measured).
  */
-import { readFileSync } from 'node:fs';
-import { describe, expect, it } from 'vitest';
+import { spawnSync } from 'node:child_process';
+import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { afterAll, describe, expect, it } from 'vitest';
 import { sqrtHannWindow } from '../../server/dsp/stft.ts';
 import {
   adviseTau,
@@ -128,4 +132,16 @@ describe('adviseTau and suggestTau', () => {
     expect(roundUp3(0.123)).toBe(0.123);
     expect(roundUp3(1234)).toBe(1240);
   });
+});
+
+describe('the fixture', () => {
+  const python = spawnSync('python3', ['-c', 'import numpy, scipy'], { encoding: 'utf8' }).status === 0;
+  const dir = mkdtempSync(join(tmpdir(), 'nullsteer-tau-'));
+  afterAll(() => rmSync(dir, { recursive: true, force: true }));
+  it.skipIf(!python)('regenerating it gives no difference', () => {
+    const fixtures = fileURLToPath(new URL('../fixtures/tau-advisor/', import.meta.url));
+    const run = spawnSync('python3', [join(fixtures, 'generate.py'), dir], { encoding: 'utf8' });
+    expect(run.status, run.stderr).toBe(0);
+    expect(readFileSync(join(dir, 'snapshots.json'), 'utf8')).toBe(readFileSync(join(fixtures, 'snapshots.json'), 'utf8'));
+  }, 60_000);
 });

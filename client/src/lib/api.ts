@@ -1,7 +1,8 @@
 /**
  * Small typed helpers for the server's REST API (same origin). Every helper resolves — it never
  * throws — to `{ ok: true, data }` or `{ ok: false, message }`, where `message` is the server's own
- * `error.message` (e.g. "tauS: -1 out of range; allowed 0.005333–3600 s") when it sent one.
+ * `error.message` (e.g. "tauS: -1 out of range; allowed 0.01–3600 s") when it sent one; the
+ * panels show it in their own words through shared/processing-fields.ts refusalMessage.
  */
 import type { ProcessingDerived, ProcessingParams } from '../../../shared/messages.ts';
 
