@@ -128,6 +128,11 @@ describe('time-axis labels', () => {
     }
   });
 
+  it('keeps the labels evenly spaced on a short view (two histories on a 720 px screen)', () => {
+    // 30 s over 75 px: 10 s steps (25 px) would lose −10 and −30 to the clamped ends; 15 s steps (37.5 px) keep all
+    expect(placeTimeLabels(30, 0, 75, 22, 13).map((l) => l.text)).toEqual(['0 s', '−15', '−30']);
+  });
+
   it('puts labels where their age is on the view', () => {
     // 30 s over 300 px, live (offset 0): step 5 s (50 px); 0 s clamped to 6.5 px (half a label)
     const labels = placeTimeLabels(30, 0, 300, 22, 13);

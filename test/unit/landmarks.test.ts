@@ -7,6 +7,7 @@ import { describe, expect, it } from 'vitest';
 import { azimuthDistanceDeg, landmarkChangeSummary, nearestLandmark, normaliseAzimuthDeg, peakAzimuthText, validateLandmarks, type Landmark } from '../../shared/landmarks.ts';
 import { validateGeometry } from '../../server/config/array-file.ts';
 import { ConfigError } from '../../server/config/validate.ts';
+import { azimuthFraction, landmarksOnAxis, placeAxisNames } from '../../client/src/lib/landmark-axis.ts';
 import { liveGrid, MESSAGES_VERSION, MessageParseError, parseServerMessage } from '../../shared/messages.ts';
 
 const L: Landmark[] = [
@@ -126,5 +127,61 @@ describe('validation', () => {
     }
     expect(err).toBeInstanceOf(MessageParseError);
     expect((err as MessageParseError).field).toBe('array.landmarks[0].azimuthDeg');
+  });
+});
+
+describe('landmark names on an azimuth axis (client/src/lib/landmark-axis.ts)', () => {
+  it('places names centred on their ticks, within the axis, never overlapping on a line', () => {
+    const placed = placeAxisNames(
+      [
+        { xPx: 100, widthPx: 40 },
+        { xPx: 120, widthPx: 40 },
+        { xPx: 300, widthPx: 40 },
+        { xPx: 110, widthPx: 40 },
+        { xPx: 2, widthPx: 40 },
+      ],
+      320,
+      6,
+      2,
+    );
+    // Left to right: 2 px (kept inside the left end: 0–40) and 100 px (80–120) share line 0 (gap 40 ≥ 6);
+    // 110 px (90–130) takes line 1; 120 px (100–140) has no room on either line: hidden; 300 px fits line 0.
+    expect(placed).toEqual([
+      { leftPx: 80, line: 0 },
+      { leftPx: 100, line: -1 },
+      { leftPx: 280, line: 0 },
+      { leftPx: 90, line: 1 },
+      { leftPx: 0, line: 0 },
+    ]);
+  });
+
+  it('keeps the gap between any two names on one line, for random layouts', () => {
+    let seed = 7;
+    const rnd = () => ((seed = (seed * 1103515245 + 12345) % 2 ** 31) / 2 ** 31);
+    for (let trial = 0; trial < 200; trial++) {
+      const items = Array.from({ length: 1 + Math.floor(rnd() * 20) }, () => ({ xPx: rnd() * 500, widthPx: 10 + rnd() * 80 }));
+      const placed = placeAxisNames(items, 500, 6, 2);
+      for (let a = 0; a < items.length; a++) {
+        if (placed[a].line < 0) continue;
+        expect(placed[a].leftPx).toBeGreaterThanOrEqual(0);
+        expect(placed[a].leftPx + items[a].widthPx).toBeLessThanOrEqual(500 + 1e-9);
+        for (let b = a + 1; b < items.length; b++) {
+          if (placed[b].line !== placed[a].line) continue;
+          const [l, r] = placed[a].leftPx <= placed[b].leftPx ? [a, b] : [b, a];
+          expect(placed[r].leftPx - (placed[l].leftPx + items[l].widthPx)).toBeGreaterThanOrEqual(6 - 1e-9);
+        }
+      }
+    }
+  });
+
+  it('finds an azimuth on a grid axis as the dashboard draws it (column centres)', () => {
+    const ring = Array.from({ length: 360 }, (_, i) => i); // 0…359° in 1° steps: a full circle
+    expect(azimuthFraction(0, ring)).toBeCloseTo(0.5 / 360, 12);
+    expect(azimuthFraction(35, ring)).toBeCloseTo(35.5 / 360, 12);
+    expect(azimuthFraction(-10, ring)).toBeCloseTo(350.5 / 360, 12);
+    const half = Array.from({ length: 181 }, (_, i) => i); // a line array's 0…180°
+    expect(azimuthFraction(270, half)).toBeNull();
+    expect(azimuthFraction(90, half)).toBeCloseTo(90.5 / 181, 12);
+    expect(landmarksOnAxis(L, half).map((m) => m.landmark.name)).toEqual(['gate', 'shed']);
   });
 });

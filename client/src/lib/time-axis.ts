@@ -34,7 +34,8 @@ export function timeLabelText(ageS: number): string {
 
 /**
  * Labels for a view `heightPx` tall showing `spanS` seconds whose top row is `offsetS` seconds
- * before the newest row: one at every multiple of the step ({@link timeLabelStepS}) within the view,
+ * before the newest row: one at every multiple of the step ({@link timeLabelStepS} for
+ * `minGapPx + labelHeightPx / 2`) within the view,
  * each kept `labelHeightPx / 2` inside the view's ends, and dropped when it would come nearer
  * than `minGapPx` to the label above it (only possible at the clamped ends).
  * @param minGapPx smallest distance between two labels' centres; at least labelHeightPx
@@ -42,7 +43,9 @@ export function timeLabelText(ageS: number): string {
 export function placeTimeLabels(spanS: number, offsetS: number, heightPx: number, minGapPx: number, labelHeightPx: number): TimeLabel[] {
   const out: TimeLabel[] = [];
   if (!(spanS > 0) || !(heightPx > labelHeightPx) || !(minGapPx >= labelHeightPx)) return out;
-  const step = timeLabelStepS(spanS, heightPx, minGapPx);
+  // The newest label is clamped half a label in from the top: the step leaves room for that too,
+  // so no label in between is dropped and the labels stay evenly spaced.
+  const step = timeLabelStepS(spanS, heightPx, minGapPx + labelHeightPx / 2);
   const half = labelHeightPx / 2;
   const first = Math.ceil(offsetS / step - 1e-9) * step;
   for (let age = first; age <= offsetS + spanS + 1e-9; age += step) {
