@@ -39,6 +39,12 @@ describe('row time line from sample indices', () => {
     expect(t(5)).toBeCloseTo(0.35, 12); // the row of sample index 7·2400
     expect(d(5)).toBeCloseTo(0.05, 12); // keeps one row's duration: 0.1 s of the gap stays empty
     expect(d(6)).toBeCloseTo(0.05, 12);
+    // What a pointer finds: row 5 (sample 7·2400) covers 0.30–0.35 s; 0.2–0.3 s is the gap.
+    expect(h.rowCovering(0.33)).toBe(5);
+    expect(h.rowCovering(0.35)).toBe(5);
+    expect(h.rowCovering(0.25)).toBe(-1);
+    expect(h.rowCovering(0.19)).toBe(4);
+    expect(h.rowCovering(0.5)).toBe(-1);
     // The runs drawn: rows 7–9 (slots 5–7) above the gap, rows 0–4 (slots 0–4) below it.
     const runs = visibleRuns(h, 7, 1);
     expect(runs.map((r) => [r.firstSlot, r.rows])).toEqual([

@@ -102,6 +102,19 @@ export class RowHistory {
     return lo;
   }
 
+  /**
+   * The row drawn at time line position `tS`: the oldest row whose span [timeS − durationS, timeS]
+   * reaches `tS`, or −1 when `tS` falls in a gap, after the newest row or before the oldest held.
+   */
+  rowCovering(tS: number): number {
+    const below = this.rowAtOrBefore(tS);
+    if (below >= 0 && this.timeS[this.slot(below)] === tS) return below;
+    const n = below < 0 ? this.oldest : below + 1;
+    if (n >= this.#count) return -1;
+    const s = this.slot(n);
+    return this.timeS[s] - this.durationS[s] <= tS + 1e-9 ? n : -1;
+  }
+
   /** Rows pushed since creation (monotonic; the newest is number count − 1). */
   get count(): number {
     return this.#count;
