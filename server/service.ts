@@ -44,6 +44,8 @@ import type { UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades } from './ingest/websocket.ts';
 import { InputMask } from './engine/input-mask.ts';
 import { HttpError } from './http/errors.ts';
+import { arrayFileLandmarks } from './http/routes/landmarks.ts';
+import { landmarkChangeSummary } from '../shared/landmarks.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -167,7 +169,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       version: 1,
       grid: { nAz: g.nAz, nEl: g.nEl, azimuthDeg: Array.from(g.azimuthDeg.subarray(0, g.nAz)), elevationDeg: Array.from({ length: g.nEl }, (_, i) => g.elevationDeg[i * g.nAz]) },
       params,
-      array: { name: geometry.name, positions: geometry.positions, calibration: describeCalibration(geometry.calibration) },
+      array: { name: geometry.name, positions: geometry.positions, calibration: describeCalibration(geometry.calibration), landmarks: landmarks.list() },
       derived: d,
     };
   };
@@ -188,6 +190,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     { minFreeBytes: config.data.minFreeBytes, label: `${folderLabel(config.data.dir)}/presets` },
   );
   const journalNote = (kind: JournalKind, before: unknown, after: unknown, summary?: string) => journal.record(kind, currentActor(), bus.status().nextSample, before, after, summary);
+  // Landmarks (named azimuths) saved into the array file: journaled, and a new hello tells the dashboards.
+  const landmarks = arrayFileLandmarks(arrayPath, geometry.landmarks ?? [], (before, after) => {
+    journalNote('landmarks', before, after, landmarkChangeSummary(before, after));
+    if (engine) live.broadcastJson(hello());
+    if (chain) compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
+  });
   noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
   /** Free bytes on the recordings' disk (its folder, or the nearest existing parent), null when unknown. */
   const outputsFreeBytes = (): number | null => {
@@ -464,6 +472,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     token: config.server.token,
     openStatus: config.access.openStatus,
     rateLimit: config.access.controlRatePerS > 0 ? { perS: config.access.controlRatePerS, burst: config.access.controlBurst } : null,
+    landmarks,
     processing: {
       get: () => eng.params,
       apply: (next) => applyParams(next, 'processing'),

@@ -30,6 +30,7 @@
  * At least one method is present. Layout changes bump the version; a reader refuses others.
  */
 import type { ProcessingParams } from '../server/engine/params.ts';
+import { validateLandmarks, type Landmark } from './landmarks.ts';
 
 export type { ProcessingParams };
 
@@ -331,7 +332,7 @@ export interface HelloMessage {
   grid: LiveGrid;
   params: ProcessingParams;
   /** calibration: the largest per-channel correction applied (null or absent: channels nominal). */
-  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null } | null };
+  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null } | null; landmarks?: Landmark[] };
   derived?: ProcessingDerived;
 }
 
@@ -455,6 +456,8 @@ export function parseServerMessage(text: string): ServerMessage {
           throw new MessageParseError('array.calibration.splOffsetDb', 'must be a finite number or null');
         }
       }
+      // Named azimuths (shared/landmarks.ts); a hello is sent again when they change.
+      if (a.landmarks !== undefined) validateLandmarks(a.landmarks, 'array.landmarks', (path, _v, msg) => { throw new MessageParseError(path, msg); });
       derived('derived', m.derived);
       return m as unknown as HelloMessage;
     }

@@ -2,6 +2,8 @@
  * Types that cross stage boundaries. Samples inside the server are float32 in full-scale units (±1).
  */
 
+import type { Landmark } from './landmarks.ts';
+
 /** Sensor positions of one array, metres, in the array's own x–y–z frame. */
 export interface ArrayGeometry {
   name: string;
@@ -15,6 +17,8 @@ export interface ArrayGeometry {
    * units, RTP sessions, own-format streams); absent: one input carries every position in order.
    */
   inputs?: InputMapping[];
+  /** Named azimuths of the surroundings (shared/landmarks.ts), azimuths in [0, 360). */
+  landmarks?: Landmark[];
 }
 
 /**

@@ -1,12 +1,14 @@
 /**
  * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres, optionally
  * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": … }`
- * (the lists one entry per position, each part optional); more fields allowed
+ * (the lists one entry per position, each part optional),
+ * `"landmarks": [{ "name": "gate", "azimuthDeg": 35 }]` (shared/landmarks.ts); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
 import type { ArrayGeometry, ChannelCalibration, InputMapping } from '../../shared/types.ts';
 import { ConfigError, type ConfigIssue } from './validate.ts';
+import { validateLandmarks } from '../../shared/landmarks.ts';
 
 export const MAX_SENSORS = 1024;
 /** Coordinates beyond this are almost certainly millimetres or a typo, not metres. */
@@ -49,10 +51,12 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
   }
   const calibration = o.calibration === undefined ? undefined : validateCalibration(o.calibration, pos.length, add);
   const inputs = o.inputs === undefined ? undefined : validateInputs(o.inputs, pos.length, add);
+  const landmarks = o.landmarks === undefined ? undefined : validateLandmarks(o.landmarks, 'landmarks', add);
   if (issues.length > 0) throw new ConfigError(issues);
   const g: ArrayGeometry = { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
   if (calibration) g.calibration = calibration;
   if (inputs) g.inputs = inputs;
+  if (landmarks) g.landmarks = landmarks;
   return g;
 }
 

@@ -16,6 +16,7 @@ import { processingRoutes, type ProcessingController } from './routes/processing
 import { recordingRoutes, type RecordingController } from './routes/recording.ts';
 import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
+import { landmarksRoutes, type LandmarksController } from './routes/landmarks.ts';
 import { actorOf, runAs } from './actor.ts';
 import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
@@ -37,6 +38,8 @@ export interface AppDeps {
   compare?: CompareController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
+  /** Named azimuths saved in the array file (`/api/landmarks`); absent without it. */
+  landmarks?: LandmarksController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
   staticDir?: string;
   /**
@@ -200,6 +203,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
   if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
+  if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }

@@ -28,6 +28,7 @@ export const HTTP_ERRORS = {
   ERR_HTTP_PRESET_WRITE_FAILED: { statusCode: 500, template: 'the preset could not be written: {detail}' },
   ERR_HTTP_UNKNOWN_STREAM: { statusCode: 404, template: 'no stream {streamId} has been received; streams seen: {seen}' },
   ERR_HTTP_INPUT_FIXED: { statusCode: 409, template: '{detail}' },
+  ERR_HTTP_ARRAY_FILE_FAILED: { statusCode: 500, template: 'the array file could not be updated (it is unchanged): {detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 

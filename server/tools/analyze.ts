@@ -3,6 +3,7 @@
  * same DSP code as the live server (dsp/scan-pipeline.ts). Prints, per method, the direction grid,
  * the broadband spectrum in dB over the whole file and the peaks; a table by default, JSON with --json.
  */
+import { nearestLandmark, type Landmark } from '../../shared/landmarks.ts';
 import { readFile, stat } from 'node:fs/promises';
 import { decodeInterleaved, SAMPLE_ENCODINGS, type SampleEncoding } from '../../shared/frame.ts';
 import type { ArrayGeometry } from '../../shared/types.ts';
@@ -189,6 +190,11 @@ export async function analyzeFile(reader: FileSampleReader, options: ScanPipelin
 }
 
 const r3 = (x: number) => Math.round(x * 1000) / 1000;
+/** `{ landmark: name }` when the array file names an azimuth within LANDMARK_TOLERANCE_DEG of the peak. */
+const landmarkOf = (azDeg: number, landmarks: readonly Landmark[] | undefined) => {
+  const near = landmarks ? nearestLandmark(azDeg, landmarks) : null;
+  return near ? { landmark: near.landmark.name } : {};
+};
 
 /** The JSON report: snake_case keys, angles in degrees, levels in dB. */
 export function reportJson(file: string, arrayName: string, fs: number, frames: number, o: ScanPipelineOptions, r: ScanResult): Record<string, unknown> {
@@ -197,7 +203,7 @@ export function reportJson(file: string, arrayName: string, fs: number, frames: 
   for (const [name, m] of Object.entries(r.methods)) {
     methods[name] = {
       spectrum_db: Array.from(m!.spectrumDb, r3),
-      peaks: m!.peaks.map((p) => ({ azimuth_deg: r3(p.azimuthDeg), ...(twoD ? { elevation_deg: r3(p.elevationDeg) } : {}), level_db: r3(p.levelDb) })),
+      peaks: m!.peaks.map((p) => ({ azimuth_deg: r3(p.azimuthDeg), ...(twoD ? { elevation_deg: r3(p.elevationDeg) } : {}), level_db: r3(p.levelDb), ...landmarkOf(p.azimuthDeg, o.geometry.landmarks) })),
     };
   }
   return {
@@ -270,7 +276,7 @@ function reportTable(rep: Record<string, any>, all: boolean): string {
   for (const n of names) {
     lines.push('', `${n} peaks:`, '  azimuth_deg' + (rep.grid.elevation_deg ? '  elevation_deg' : '') + '  level_db');
     for (const p of rep.methods[n].peaks) {
-      lines.push(`  ${p.azimuth_deg.toFixed(2).padStart(11)}${p.elevation_deg !== undefined ? p.elevation_deg.toFixed(2).padStart(15) : ''}${p.level_db.toFixed(2).padStart(10)}`);
+      lines.push(`  ${p.azimuth_deg.toFixed(2).padStart(11)}${p.elevation_deg !== undefined ? p.elevation_deg.toFixed(2).padStart(15) : ''}${p.level_db.toFixed(2).padStart(10)}${p.landmark !== undefined ? `  · ${p.landmark}` : ''}`);
     }
   }
   if (!all) {

@@ -58,32 +58,30 @@ export class HistoryPainter {
   }
 
   /**
-   * Draw rows `topRow` (at the top) down to `topRow − visibleRows + 1` onto `ctx`, filling the
-   * whole `widthPx × heightPx` device-pixel area. Returns the number of rows drawn.
+   * Draw the rows of the `spanS` seconds up to row `topRow` (at the top) onto `ctx`, filling the
+   * whole `widthPx × heightPx` device-pixel area: each row at its place on the history's time line
+   * (from sample indices, see {@link visibleRuns}), so gaps stay empty. Returns the number of rows drawn.
    */
-  composite(ctx: CanvasRenderingContext2D, widthPx: number, heightPx: number, h: RowHistory, topRow: number, visibleRows: number): number {
+  composite(ctx: CanvasRenderingContext2D, widthPx: number, heightPx: number, h: RowHistory, topRow: number, spanS: number): number {
     ctx.setTransform(1, 0, 0, 1, 0, 0);
     ctx.fillStyle = BACKGROUND;
     ctx.fillRect(0, 0, widthPx, heightPx);
     const strip = this.#strip;
-    if (!strip || h !== this.#history || h.count === 0 || visibleRows < 1) return 0;
-    const top = Math.min(h.count - 1, Math.max(h.oldest, topRow));
-    const bottom = Math.max(h.oldest, top - visibleRows + 1);
-    const rowH = heightPx / visibleRows;
+    if (!strip || h !== this.#history || h.count === 0 || !(spanS > 0)) return 0;
     ctx.imageSmoothingEnabled = true;
     ctx.imageSmoothingQuality = 'low';
     // Flip vertically: the strip holds rows oldest-first, the display shows newest at the top.
     ctx.setTransform(1, 0, 0, -1, 0, heightPx);
-    let n = bottom;
-    while (n <= top) {
-      const s = h.slot(n);
-      const len = Math.min(top - n + 1, h.capacity - s);
-      const ageOld = top - n;
-      ctx.drawImage(strip, 0, s, h.nAz, len, 0, heightPx - (ageOld + 1) * rowH, widthPx, len * rowH);
-      n += len;
+    let rows = 0;
+    for (const r of visibleRuns(h, topRow, spanS)) {
+      const yTop = r.topFraction * heightPx;
+      // At least one device pixel, so a lone row (or the very first, of no duration) shows.
+      const yBottom = Math.max(r.bottomFraction * heightPx, yTop + 1);
+      ctx.drawImage(strip, 0, r.firstSlot, h.nAz, r.rows, 0, heightPx - yBottom, widthPx, yBottom - yTop);
+      rows += r.rows;
     }
     ctx.setTransform(1, 0, 0, 1, 0, 0);
-    return top - bottom + 1;
+    return rows;
   }
 
   #adopt(h: RowHistory): void {
@@ -116,38 +114,51 @@ export class HistoryPainter {
   }
 }
 
-/** Tick step for a time axis spanning `spanS` seconds. */
-export function timeStepS(spanS: number): number {
-  for (const s of [1, 2, 5, 10, 15, 30, 60, 120, 300]) if (spanS / s <= 7) return s;
-  return 600;
-}
-
-export interface TimeTick {
-  /** Position from the top, as a fraction of the height. */
-  y: number;
-  /** Seconds before the newest row. */
-  ageS: number;
+/**
+ * A run of rows drawn with one scaled copy: consecutive ring slots `firstSlot … firstSlot + rows − 1`
+ * (oldest first) with no gap between them, covering the view from `topFraction` (the newest row's
+ * top edge) to `bottomFraction` (the oldest row's bottom edge), as fractions of the view's height
+ * from the top (they may pass 1 at the bottom). Inside a run rows share the height evenly; its ends
+ * are exact, and the rows inside are off by at most the jitter of their spacing (one hop).
+ */
+export interface HistoryRun {
+  firstSlot: number;
+  rows: number;
+  topFraction: number;
+  bottomFraction: number;
 }
 
 /**
- * Time ticks of the displayed rows: where the age (seconds before the newest stored row, from
- * arrival times) crosses a multiple of `stepS`. O(visible rows).
+ * The runs of rows shown when row `topRow` is at the top of a view `spanS` seconds tall: every row
+ * whose time (RowHistory.timeS, from sample indices) lies within the span, split where a gap
+ * leaves empty time (a row covering less than its spacing) and where the ring wraps. Newest first.
  */
-export function timeTicks(h: RowHistory, topRow: number, visibleRows: number, stepS: number): TimeTick[] {
-  const out: TimeTick[] = [];
-  if (h.count === 0) return out;
+export function visibleRuns(h: RowHistory, topRow: number, spanS: number): HistoryRun[] {
+  const out: HistoryRun[] = [];
+  if (h.count === 0 || !(spanS > 0)) return out;
   const top = Math.min(h.count - 1, Math.max(h.oldest, topRow));
-  const bottom = Math.max(h.oldest, top - visibleRows + 1);
-  const newestMs = h.arrivalMs[h.slot(h.count - 1)];
-  let prev = Math.floor((newestMs - h.arrivalMs[h.slot(top)]) / 1000 / stepS);
-  if (top === h.count - 1) out.push({ y: 0, ageS: 0 });
-  for (let n = top - 1; n >= bottom; n--) {
-    const age = (newestMs - h.arrivalMs[h.slot(n)]) / 1000;
-    const k = Math.floor(age / stepS);
-    if (k > prev) {
-      out.push({ y: (top - n) / visibleRows, ageS: k * stepS });
-      prev = k;
+  const tTop = h.timeS[h.slot(top)];
+  let runTop = top;
+  let n = top;
+  while (n >= h.oldest) {
+    const s = h.slot(n);
+    const age = tTop - h.timeS[s];
+    // A row whose top edge is at the bottom edge shows nothing (1e-9 s: the sums' rounding).
+    if (age >= spanS - 1e-9) break;
+    // The run ends at n when n is the oldest shown row, sits at the ring's start, or has a gap below it.
+    const prev = n - 1;
+    const prevShown = prev >= h.oldest && tTop - h.timeS[h.slot(prev)] < spanS - 1e-9;
+    const contiguous = prevShown && s > 0 && h.durationS[s] >= h.timeS[s] - h.timeS[h.slot(prev)] - 1e-9;
+    if (!contiguous) {
+      out.push({
+        firstSlot: s,
+        rows: runTop - n + 1,
+        topFraction: (tTop - h.timeS[h.slot(runTop)]) / spanS,
+        bottomFraction: (age + h.durationS[s]) / spanS,
+      });
+      runTop = prev;
     }
+    n = prev;
   }
   return out;
 }

@@ -16,6 +16,35 @@ export const MAX_HISTORY_ROWS = 9000;
 export const HISTORY_BUDGET_BYTES = 64 * 1024 * 1024;
 const MIN_HISTORY_ROWS = 64;
 
+/** A spacing above this many times the previous spacing is a gap (rows skipped or shed). */
+export const GAP_FACTOR = 1.5;
+/**
+ * A step of the sample index backwards, or forwards by more than this, is a discontinuity (a new
+ * stream, a clock reset), not elapsed time: the row is then placed one row duration later.
+ */
+export const MAX_ROW_GAP_S = 3600;
+
+/**
+ * Time between two rows from their sample indices, seconds: (index − prevIndex) / sampleRateHz;
+ * for a discontinuity (a step backwards, or more than {@link MAX_ROW_GAP_S}) `fallbackS`.
+ */
+export function rowSpacingS(prevIndex: number, index: number, sampleRateHz: number, fallbackS: number): number {
+  const d = (index - prevIndex) / sampleRateHz;
+  return d >= 0 && d <= MAX_ROW_GAP_S ? d : fallbackS;
+}
+
+/**
+ * The time a row covers, seconds, given its spacing to the previous row and the previous row's
+ * spacing and duration: the spacing, unless it is a gap (above {@link GAP_FACTOR} × the previous
+ * spacing: rows skipped or shed), when the row keeps the previous row's duration and the rest of
+ * the gap stays empty. A lasting change of rate is taken from the second row on (its spacing then
+ * matches the one before). The first spacing (no previous one) is taken as it is.
+ */
+export function rowDurationS(spacingS: number, prevSpacingS: number, prevDurationS: number): number {
+  if (prevSpacingS > 0 && spacingS > GAP_FACTOR * prevSpacingS) return prevDurationS;
+  return spacingS;
+}
+
 export class RowHistory {
   readonly nAz: number;
   readonly capacity: number;
@@ -25,8 +54,21 @@ export class RowHistory {
   readonly levels: Record<HistoryMethod, Float32Array>;
   /** Largest level of each stored row, per method (−∞ when the method was off). */
   readonly rowMaxDb: Record<HistoryMethod, Float32Array>;
-  /** performance.now() at arrival of each stored row, ms. */
+  /** performance.now() at arrival of each stored row, ms (informational: placement uses timeS). */
   readonly arrivalMs: Float64Array;
+  /** Stream-clock sample index of each stored row (the row's `sampleIndex`). */
+  readonly sampleIndex: Float64Array;
+  /**
+   * Each stored row's place on the history's own time line, seconds: the previous row's plus the
+   * spacing of their sample indices over the sample rate ({@link rowSpacingS}). Non-decreasing, so
+   * rows arriving late or in bursts land at their true time and skipped rows leave their true gap.
+   */
+  readonly timeS: Float64Array;
+  /**
+   * How much time each stored row covers, seconds (its top edge is timeS): the spacing to the
+   * previous row, or after a gap the previous row's duration ({@link rowDurationS}).
+   */
+  readonly durationS: Float64Array;
   #count = 0;
 
   constructor(azimuthDeg: ArrayLike<number>, capacity?: number) {
@@ -39,6 +81,38 @@ export class RowHistory {
     this.levels = { mvdr: new Float32Array(n).fill(Number.NaN), conventional: new Float32Array(n).fill(Number.NaN) };
     this.rowMaxDb = { mvdr: new Float32Array(this.capacity).fill(-Infinity), conventional: new Float32Array(this.capacity).fill(-Infinity) };
     this.arrivalMs = new Float64Array(this.capacity);
+    this.sampleIndex = new Float64Array(this.capacity);
+    this.timeS = new Float64Array(this.capacity);
+    this.durationS = new Float64Array(this.capacity);
+  }
+
+  /**
+   * The newest row at or before (older than or as old as) time line position `tS`, or −1 when every
+   * stored row is later. O(log rows).
+   */
+  rowAtOrBefore(tS: number): number {
+    let lo = this.oldest;
+    let hi = this.#count - 1;
+    if (hi < lo || this.timeS[this.slot(lo)] > tS) return -1;
+    while (lo < hi) {
+      const mid = Math.ceil((lo + hi) / 2);
+      if (this.timeS[this.slot(mid)] <= tS) lo = mid;
+      else hi = mid - 1;
+    }
+    return lo;
+  }
+
+  /**
+   * The row drawn at time line position `tS`: the oldest row whose span [timeS − durationS, timeS]
+   * reaches `tS`, or −1 when `tS` falls in a gap, after the newest row or before the oldest held.
+   */
+  rowCovering(tS: number): number {
+    const below = this.rowAtOrBefore(tS);
+    if (below >= 0 && this.timeS[this.slot(below)] === tS) return below;
+    const n = below < 0 ? this.oldest : below + 1;
+    if (n >= this.#count) return -1;
+    const s = this.slot(n);
+    return this.timeS[s] - this.durationS[s] <= tS + 1e-9 ? n : -1;
   }
 
   /** Rows pushed since creation (monotonic; the newest is number count − 1). */
@@ -66,9 +140,28 @@ export class RowHistory {
     return row.nAz === this.nAz;
   }
 
-  /** Store one row (its azimuth count must match); overwrites the oldest when full. */
-  push(row: SpectrumRow, arrivalMs: number): void {
+  /**
+   * Store one row (its azimuth count must match); overwrites the oldest when full. `sampleRateHz`
+   * (the stream's rate) places the row in time by its sample index; without it (not known yet)
+   * the arrival time stands in.
+   */
+  push(row: SpectrumRow, arrivalMs: number, sampleRateHz?: number): void {
     const s = this.#count % this.capacity;
+    if (this.#count === 0) {
+      this.timeS[s] = 0;
+      this.durationS[s] = 0;
+    } else {
+      const p = (this.#count - 1) % this.capacity;
+      const prevSpacingS = this.#count >= 2 ? this.timeS[p] - this.timeS[(this.#count - 2) % this.capacity] : 0;
+      const fallbackS = this.durationS[p];
+      const spacing =
+        sampleRateHz !== undefined && sampleRateHz > 0
+          ? rowSpacingS(this.sampleIndex[p], row.sampleIndex, sampleRateHz, fallbackS)
+          : rowSpacingS(this.arrivalMs[p], arrivalMs, 1000, fallbackS);
+      this.timeS[s] = this.timeS[p] + spacing;
+      this.durationS[s] = rowDurationS(spacing, prevSpacingS, this.durationS[p]);
+    }
+    this.sampleIndex[s] = row.sampleIndex;
     const nAz = this.nAz;
     const off = s * nAz;
     for (const m of HISTORY_METHODS) {
@@ -130,6 +223,9 @@ export class RowHistory {
         next.rowMaxDb[m][t] = this.rowMaxDb[m][s];
       }
       next.arrivalMs[t] = this.arrivalMs[s];
+      next.sampleIndex[t] = this.sampleIndex[s];
+      next.timeS[t] = this.timeS[s];
+      next.durationS[t] = this.durationS[s];
     }
     next.#count = this.stored;
     return next;

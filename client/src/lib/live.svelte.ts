@@ -286,7 +286,7 @@ export class LiveConnection {
       this.#lastProblem = `row ${row.seq} has ${row.nAz}×${row.nEl} directions, the grid ${g ? `${g.nAz}×${g.nEl}` : 'is not known yet'}`;
       return;
     }
-    h.push(row, now);
+    h.push(row, now, this.#derived?.sampleRateHz);
     this.#latest = row;
     this.#rateRows++;
     this.#rows++;
