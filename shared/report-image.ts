@@ -198,6 +198,12 @@ export function composeReportImage(raster: HistoryRaster, meta: ReportImageMeta,
   if (raster.data.length !== rw * rh * raster.channels) throw new RangeError(`${raster.data.length} bytes for a ${rw}×${rh} raster of ${raster.channels} channels`);
   if (meta.azimuthDeg.length !== rw) throw new RangeError(`${meta.azimuthDeg.length} azimuths for ${rw} columns`);
   if (meta.timeS.length !== rh) throw new RangeError(`${meta.timeS.length} times for ${rh} rows`);
+  if (!Number.isFinite(meta.lowDb) || !Number.isFinite(meta.highDb) || meta.lowDb >= meta.highDb) throw new RangeError(`colour scale ${meta.lowDb}…${meta.highDb} dB: need finite low < high`);
+  for (const [name, v] of [
+    ['azimuth', meta.azimuthDeg],
+    ['time', meta.timeS],
+  ] as const)
+    for (let i = 0; i < v.length; i++) if (!Number.isFinite(v[i])) throw new RangeError(`${name} ${i} is ${v[i]}`);
 
   const capH = GLYPH_HEIGHT * S;
   const lineH = CELL_HEIGHT * S + 3 * S;

@@ -219,5 +219,8 @@ describe('report image', () => {
     expect(() => composeReportImage(r, { ...meta, timeS: [0] })).toThrow(RangeError);
     expect(() => composeReportImage(r, { ...meta, azimuthDeg: [0] })).toThrow(RangeError);
     expect(() => composeReportImage(r, meta, { textScale: 0 })).toThrow(RangeError);
+    expect(() => composeReportImage(r, { ...meta, lowDb: -Infinity })).toThrow(RangeError);
+    expect(() => composeReportImage(r, { ...meta, lowDb: 0 })).toThrow(RangeError);
+    expect(() => composeReportImage(r, { ...meta, timeS: [0, 1, Number.NaN, 3, 4] })).toThrow(RangeError);
   });
 });
