@@ -274,7 +274,7 @@ export function composeReportImage(raster: HistoryRaster, meta: ReportImageMeta,
   const rect = (x: number, y: number, w: number, h: number, rgb: readonly [number, number, number]) => {
     for (let yy = y; yy < y + h; yy++) for (let xx = x; xx < x + w; xx++) put(xx, yy, rgb);
   };
-  rect(0, 0, width, height, PAPER_RGB);
+  data.fill(255); // paper (PAPER_RGB is white), opaque
 
   // The raster, byte for byte (alpha dropped or set opaque).
   const src = raster.data;
