@@ -8,6 +8,7 @@ export const TIMELINE_OPTIONS = {
   preset: { type: 'string' },
   'no-replay': { type: 'boolean' },
   'image-method': { type: 'string' },
+  plain: { type: 'boolean' },
   workers: { type: 'string' },
   c: { type: 'string' },
   quiet: { type: 'boolean' },

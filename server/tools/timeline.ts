@@ -3,10 +3,13 @@
  * file goes through the live engine itself (STFT, worker pool, fast kernels, the same scan schedule)
  * as fast as the machine allows, with the parameters of the recording's sidecar and its parameter
  * changes replayed at their sample indices, or with a preset. Writes to DIR:
- *   history.png   the direction history, one row per spectrum row (time downward), nightfield scale
- *   history.csv   sample_index,time_s, then the level in dB per direction (the image's method)
+ *   history.png   the direction history, one row per spectrum row (time downward), nightfield scale,
+ *                 with azimuth and time axes, a colour bar in dB and a caption (timeline-report.ts);
+ *                 --plain: the bare history only, one pixel per row and azimuth
+ *   history.csv   time_s,stream_time_s,sample_index (shared/time-columns.ts: time_s from the file's
+ *                 start), then the level in dB per direction (the image's method)
  *   history.json  grid, parameters, changes and every row (both methods, peaks)
- *   peaks.csv     every peak of every row; tracks.json  peaks linked into tracks row to row
+ *   peaks.csv     every peak of every row (the same time columns); tracks.json  peaks linked into tracks row to row
  * Progress goes to stderr; the last line gives the speed as a multiple of real time.
  */
 import { mkdirSync, readFileSync, writeFileSync } from 'node:fs';
@@ -22,12 +25,15 @@ import { Engine, type EngineRow } from '../engine/engine.ts';
 import { FFT_SIZES, patchParams, type ProcessingParams } from '../engine/params.ts';
 import { encodePng } from '../io/png.ts';
 import { openWav } from '../io/wav.ts';
+import { TIME_COLUMNS_HEADER, timeColumns } from '../../shared/time-columns.ts';
+import { reportHistoryImage } from './timeline-report.ts';
 import type { FileSampleReader } from '../io/raw.ts';
 
 export const TIMELINE_USAGE = `usage: nullsteer analyze FILE.wav --timeline DIR [--array ARRAY.json] [--preset PRESET.json] [--no-replay]
-         [--image-method mvdr|conventional] [--workers N] [--c M_PER_S] [--quiet]
+         [--image-method mvdr|conventional] [--plain] [--workers N] [--c M_PER_S] [--quiet]
   Parameters: the recording's sidecar (FILE.json: parameters at its start, changes replayed at their
-  sample index) unless --preset gives a preset file (then no replay); --no-replay keeps the start ones.`;
+  sample index) unless --preset gives a preset file (then no replay); --no-replay keeps the start ones.
+  history.png has azimuth and time axes, a dB colour bar and a caption; --plain writes the bare history.`;
 
 /** What the engine starts from before the file's parameters replace every field. */
 const BASE: ProcessingParams = {
@@ -177,8 +183,23 @@ export function linkTracks(rows: EngineRow[], method: 'mvdr' | 'conventional', g
   return tracks;
 }
 
+/** The coloured history before encoding: RGB bytes and the colour scale's ends in dB. */
+export interface HistoryPixels {
+  width: number;
+  height: number;
+  rgb: Uint8Array;
+  lowDb: number;
+  highDb: number;
+}
+
 /** The history image: one pixel row per spectrum row, one column per azimuth (max over elevation). */
 export function historyImage(rows: EngineRow[], method: 'mvdr' | 'conventional', rangeDb = 30): { width: number; height: number; png: Uint8Array } {
+  const px = historyPixels(rows, method, rangeDb);
+  return { width: px.width, height: px.height, png: encodePng(px.width, px.height, px.rgb) };
+}
+
+/** The pixels of {@link historyImage}: the scale runs from the largest level down `rangeDb`. */
+export function historyPixels(rows: EngineRow[], method: 'mvdr' | 'conventional', rangeDb = 30): HistoryPixels {
   const pick = (r: EngineRow) => (method === 'mvdr' ? r.mvdrDb : r.conventionalDb);
   const width = rows.reduce((w, r) => Math.max(w, r.nAz), 1);
   const height = Math.max(1, rows.length);
@@ -201,7 +222,7 @@ export function historyImage(rows: EngineRow[], method: 'mvdr' | 'conventional',
       rgb.set(COLORMAP_RGB.subarray(3 * k, 3 * k + 3), (y * width + x) * 3);
     }
   });
-  return { width, height, png: encodePng(width, height, rgb) };
+  return { width, height, rgb, lowDb: lo, highDb: hi };
 }
 
 export interface TimelineIo {
@@ -215,6 +236,7 @@ class UsageError extends Error {}
 
 interface SidecarDoc {
   startSampleIndex?: number;
+  startWallClock?: string;
   params?: unknown;
   array?: unknown;
   changes?: { sampleIndex: number; params?: unknown }[];
@@ -304,7 +326,13 @@ export async function timelineCommand(argv: string[], io: TimelineIo = {}): Prom
     });
     if (!v.quiet && tty) process.stderr.write('\n');
     mkdirSync(outDir, { recursive: true });
-    writeOutputs(outDir, file, result, params, changes, method);
+    const startWallMs = typeof side.startWallClock === 'string' ? Date.parse(side.startWallClock) : Number.NaN;
+    writeOutputs(outDir, file, result, params, changes, method, {
+      plain: v.plain === true,
+      arrayName: geometry.name,
+      startSampleIndex: side.startSampleIndex ?? 0,
+      startUtcMs: Number.isFinite(startWallMs) ? startWallMs : null,
+    });
     const signalS = result.frames / result.sampleRateHz;
     const speed = signalS / result.wallS;
     out(`${result.rows.length} rows from ${signalS.toFixed(2)} s of signal in ${result.wallS.toFixed(2)} s: ${speed.toFixed(1)}× real time (parameters: ${source}) → ${outDir}`);
@@ -323,25 +351,52 @@ export async function timelineCommand(argv: string[], io: TimelineIo = {}): Prom
 
 const f3 = (x: number) => (Number.isFinite(x) ? x.toFixed(3) : '');
 
-function writeOutputs(dir: string, file: string, r: TimelineResult, params: ProcessingParams, changes: TimelineChange[], method: 'mvdr' | 'conventional'): void {
+interface OutputInfo {
+  /** Bare history image (today's) instead of the annotated one. */
+  plain: boolean;
+  arrayName: string;
+  /** Stream sample index of the file's first frame: time_s counts from here. */
+  startSampleIndex: number;
+  startUtcMs: number | null;
+}
+
+function writeOutputs(dir: string, file: string, r: TimelineResult, params: ProcessingParams, changes: TimelineChange[], method: 'mvdr' | 'conventional', info: OutputInfo): void {
   const fs = r.sampleRateHz;
-  const img = historyImage(r.rows, method);
-  writeFileSync(join(dir, 'history.png'), img.png);
-  const lines = [`# ${basename(file)}: ${method} level in dB per direction, one line per spectrum row`, `sample_index,time_s,${r.azimuthDeg.map((a) => `az_${a}`).join(',')}`];
+  const px = historyPixels(r.rows, method);
+  const report = info.plain
+    ? null
+    : reportHistoryImage(px, r.rows, r.azimuthDeg, method, { arrayName: info.arrayName, params, changes: changes.length, sampleRateHz: fs, startSampleIndex: info.startSampleIndex, frames: r.frames, startUtcMs: info.startUtcMs });
+  writeFileSync(join(dir, 'history.png'), report ? report.png : encodePng(px.width, px.height, px.rgb));
+  const t = (row: EngineRow) => timeColumns(row.sampleIndex, info.startSampleIndex, fs);
+  const lines = [
+    `# ${basename(file)}: ${method} level in dB per direction, one line per spectrum row; time_s from the file's start (stream sample ${info.startSampleIndex}), stream_time_s = sample_index / ${fs} Hz`,
+    `${TIME_COLUMNS_HEADER},${r.azimuthDeg.map((a) => `az_${a}`).join(',')}`,
+  ];
   for (const row of r.rows) {
     const d = method === 'mvdr' ? row.mvdrDb : row.conventionalDb;
-    lines.push(`${row.sampleIndex},${(row.sampleIndex / fs).toFixed(6)},${d ? Array.from(d.subarray(0, row.nAz), f3).join(',') : ''}`);
+    lines.push(`${t(row)},${d ? Array.from(d.subarray(0, row.nAz), f3).join(',') : ''}`);
   }
   writeFileSync(join(dir, 'history.csv'), `${lines.join('\n')}\n`);
-  const peaks = ['sample_index,time_s,method,rank,azimuth_deg,elevation_deg,level_db'];
+  const peaks = [`${TIME_COLUMNS_HEADER},method,rank,azimuth_deg,elevation_deg,level_db`];
   for (const row of r.rows)
     for (const m of ['mvdr', 'conventional'] as const)
-      row.peaks[m].forEach((p, k) => peaks.push(`${row.sampleIndex},${(row.sampleIndex / fs).toFixed(6)},${m},${k + 1},${f3(p.azimuthDeg)},${f3(p.elevationDeg)},${f3(p.levelDb)}`));
+      row.peaks[m].forEach((p, k) => peaks.push(`${t(row)},${m},${k + 1},${f3(p.azimuthDeg)},${f3(p.elevationDeg)},${f3(p.levelDb)}`));
   writeFileSync(join(dir, 'peaks.csv'), `${peaks.join('\n')}\n`);
   writeFileSync(join(dir, 'tracks.json'), `${JSON.stringify({ gateDeg: 5, tracks: [...linkTracks(r.rows, 'mvdr'), ...linkTracks(r.rows, 'conventional')] })}\n`);
   const doc = {
     file: basename(file),
     sampleRateHz: fs,
+    startSampleIndex: info.startSampleIndex,
+    // Where history.png's pixels are: the history raster (one pixel per row and azimuth) at `raster`
+    // inside the image, and the colour scale's ends.
+    image: {
+      method,
+      width: report ? report.width : px.width,
+      height: report ? report.height : px.height,
+      raster: report ? report.layout.raster : { x: 0, y: 0, w: px.width, h: px.height },
+      lowDb: Number.isFinite(px.lowDb) ? px.lowDb : null,
+      highDb: Number.isFinite(px.highDb) ? px.highDb : null,
+    },
     frames: r.frames,
     params,
     changes,

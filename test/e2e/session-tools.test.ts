@@ -11,6 +11,8 @@ import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
+import { COLORMAP_RGB, COLORMAP_SIZE, NO_DATA_RGB } from '../../shared/colormap.ts';
+import { decodePng } from '../helpers/png-decode.ts';
 
 // A browser and a server on a loaded 2-core machine: waits are for conditions, with room to spare.
 vi.setConfig({ testTimeout: 60_000 });
@@ -75,14 +77,22 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     expect(comments.some((l) => /^# sample_index: \d+$/.test(l))).toBe(true);
     const paramLine = comments.find((l) => l.startsWith('# params: '));
     expect(JSON.parse(paramLine!.slice('# params: '.length))).toEqual(params);
-    expect(body[0]).toBe('azimuth_deg,elevation_deg,conventional_db,mvdr_db');
+    expect(body[0]).toBe('time_s,stream_time_s,sample_index,azimuth_deg,elevation_deg,conventional_db,mvdr_db');
     const rows = body.slice(1);
+    // The time fields, the same on every line: stream time = sample index / rate (to the µs); time
+    // from the history's start, when the history keeps its rows' sample indices, not above it.
+    const sampleIndex = Number(comments.find((l) => l.startsWith('# sample_index: '))!.slice('# sample_index: '.length));
+    const [timeS, streamS, si] = rows[0].split(',');
+    expect(Number(si)).toBe(sampleIndex);
+    expect(streamS).toBe(String(Number((sampleIndex / derived.sampleRateHz).toFixed(6))));
+    if (timeS !== '') expect(Number(timeS)).toBeLessThanOrEqual(Number(streamS));
+    for (const r of rows) expect(r.split(',').slice(0, 3)).toEqual([timeS, streamS, si]);
     expect(derived.directions).toBe(360); // 1° full turn, azimuth only
     expect(rows.length).toBe(derived.directions);
     // Azimuth column: the grid's directions in order (0°, 1°, … 359°).
     const az = params.grid.azimuthDeg;
     rows.forEach((r, i) => {
-      const f = r.split(',');
+      const f = r.split(',').slice(3);
       expect(f.length).toBe(4);
       expect(f[0]).toBe((az.startDeg + i * az.stepDeg).toFixed(3));
       expect(f[1]).toBe('0.000');
@@ -96,17 +106,66 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     });
   });
 
-  it('downloads the direction history as a PNG image', async () => {
+  it('downloads the direction history as a plain PNG image (shift-click: the canvas as drawn)', async () => {
     const button = page.getByTestId('export-history-png');
     await expect.poll(() => button.isEnabled(), { timeout: 10_000 }).toBe(true);
-    const [download] = await Promise.all([page.waitForEvent('download'), button.click()]);
-    expect(download.suggestedFilename()).toMatch(/^nullsteer-history-\d{8}T\d{6}Z\.png$/);
+    const [download] = await Promise.all([page.waitForEvent('download'), button.click({ modifiers: ['Shift'] })]);
+    expect(download.suggestedFilename()).toMatch(/^nullsteer-history-\d{8}T\d{6}Z-plain\.png$/);
     const bytes = await downloadBytes(download);
     // PNG signature (RFC 2083 §3.1 / ISO 15948): 89 50 4E 47 0D 0A 1A 0A, then the IHDR chunk.
     expect([...bytes.subarray(0, 8)]).toEqual([0x89, 0x50, 0x4e, 0x47, 0x0d, 0x0a, 0x1a, 0x0a]);
     expect(bytes.subarray(12, 16).toString('latin1')).toBe('IHDR');
     const canvasSize = await page.getByTestId('history-canvas').evaluate((c) => [(c as HTMLCanvasElement).width, (c as HTMLCanvasElement).height]);
     expect([bytes.readUInt32BE(16), bytes.readUInt32BE(20)]).toEqual(canvasSize);
+    expect(problems).toEqual([]);
+  });
+
+  it('downloads the direction history as a report PNG: the history with axes, colour bar and caption', async () => {
+    const button = page.getByTestId('export-history-png');
+    await expect.poll(() => button.isEnabled(), { timeout: 10_000 }).toBe(true);
+    const [download] = await Promise.all([page.waitForEvent('download'), button.click()]);
+    expect(download.suggestedFilename()).toMatch(/^nullsteer-history-\d{8}T\d{6}Z\.png$/);
+    const img = decodePng(await downloadBytes(download));
+    const px = (x: number, y: number) => Array.from(img.rgba.subarray((y * img.width + x) * 4, (y * img.width + x) * 4 + 3));
+    // The frame round the history (shared/report-image.ts draws it in grey 110,110,118): its top
+    // line is the first image row holding a run of at least 362 frame pixels (360 azimuths + 2).
+    const isFrame = (p: number[]) => p[0] === 110 && p[1] === 110 && p[2] === 118;
+    let frameTop = -1;
+    let frameLeft = -1;
+    for (let y = 0; y < img.height && frameTop < 0; y++) {
+      let run = 0;
+      for (let x = 0; x < img.width; x++) {
+        run = isFrame(px(x, y)) ? run + 1 : 0;
+        if (run >= 362) {
+          frameTop = y;
+          frameLeft = x - run + 1;
+          break;
+        }
+      }
+    }
+    expect(frameTop, 'frame found').toBeGreaterThan(0);
+    const rasterX = frameLeft + 1;
+    const rasterY = frameTop + 1;
+    expect(isFrame(px(rasterX + 360, rasterY)), 'frame right of 360 azimuth columns').toBe(true);
+    // History rows: down the left frame column to the first row of the frame's bottom line.
+    let rows = 0;
+    while (rasterY + rows < img.height && !isFrame(px(rasterX, rasterY + rows))) rows++;
+    expect(rows).toBeGreaterThan(0);
+    // Every pixel of the first history row is a colour of the dashboard's scale (or the no-data grey).
+    const scale = new Set<string>([NO_DATA_RGB.join(',')]);
+    for (let k = 0; k < COLORMAP_SIZE; k++) scale.add(`${COLORMAP_RGB[3 * k]},${COLORMAP_RGB[3 * k + 1]},${COLORMAP_RGB[3 * k + 2]}`);
+    for (let x = 0; x < 360; x++) expect(scale.has(px(rasterX + x, rasterY).join(',')), `column ${x}`).toBe(true);
+    // Larger than the bare history by the margins: time axis on the left, colour bar and its
+    // labels on the right, titles above, azimuth axis and caption below.
+    expect(rasterX).toBeGreaterThan(20);
+    expect(img.width - (rasterX + 360)).toBeGreaterThan(40);
+    expect(rasterY).toBeGreaterThan(10);
+    expect(img.height - (rasterY + rows)).toBeGreaterThan(50);
+    // The caption: dark ink in the band under the azimuth axis title (the last 30 % of the margin below).
+    const below = img.height - (rasterY + rows);
+    let ink = 0;
+    for (let y = img.height - Math.floor(below * 0.3); y < img.height; y++) for (let x = 0; x < img.width; x++) if (px(x, y)[0] < 80) ink++;
+    expect(ink).toBeGreaterThan(100);
     expect(problems).toEqual([]);
   });
 

@@ -98,18 +98,20 @@ describe('re-analysis of a capture', () => {
 
     // The other outputs: CSV rows, PNG signature and size, peaks near the sources, tracks.
     const csv = readFileSync(join(outDir, 'history.csv'), 'utf8').trim().split('\n');
-    expect(csv[1].split(',').slice(0, 3)).toEqual(['sample_index', 'time_s', 'az_0']);
+    expect(csv[1].split(',').slice(0, 4)).toEqual(['time_s', 'stream_time_s', 'sample_index', 'az_0']);
     expect(csv.length).toBe(2 + live.length);
     const png = readFileSync(join(outDir, 'history.png'));
     expect([...png.subarray(0, 8)]).toEqual([0x89, 0x50, 0x4e, 0x47, 0x0d, 0x0a, 0x1a, 0x0a]); // PNG signature (ISO/IEC 15948)
-    expect([png.readUInt32BE(16), png.readUInt32BE(20)]).toEqual([180, live.length]);
+    // The annotated image (axes, colour bar, caption) round the 180 × rows history raster.
+    expect([doc.image.raster.w, doc.image.raster.h]).toEqual([180, live.length]);
+    expect([png.readUInt32BE(16), png.readUInt32BE(20)]).toEqual([doc.image.width, doc.image.height]);
     const idat = png.indexOf('IDAT');
-    expect(inflateSync(png.subarray(idat + 4, idat + 4 + png.readUInt32BE(idat - 4))).length).toBe(live.length * (1 + 180 * 3));
+    expect(inflateSync(png.subarray(idat + 4, idat + 4 + png.readUInt32BE(idat - 4))).length).toBe(doc.image.height * (1 + doc.image.width * 3));
     const tracks = JSON.parse(readFileSync(join(outDir, 'tracks.json'), 'utf8')).tracks.filter((t: { method: string; points: unknown[] }) => t.method === 'mvdr' && t.points.length > 20);
     const bearings = tracks.map((t: { points: { azimuthDeg: number }[] }) => t.points[t.points.length - 1].azimuthDeg).sort((a: number, b: number) => a - b);
     expect(bearings, JSON.stringify(bearings)).toHaveLength(2);
     expect(Math.abs(bearings[0] - 60)).toBeLessThanOrEqual(2);
     expect(Math.abs(bearings[1] - 200)).toBeLessThanOrEqual(2);
-    expect(readFileSync(join(outDir, 'peaks.csv'), 'utf8').split('\n')[0]).toBe('sample_index,time_s,method,rank,azimuth_deg,elevation_deg,level_db');
+    expect(readFileSync(join(outDir, 'peaks.csv'), 'utf8').split('\n')[0]).toBe('time_s,stream_time_s,sample_index,method,rank,azimuth_deg,elevation_deg,level_db');
   }, 40000);
 });
