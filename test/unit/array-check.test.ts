@@ -16,6 +16,7 @@ import { describe, expect, it } from 'vitest';
 import { checkArray, DEFAULT_MISPLACED_BOUND_US, type ArrayCheckResult } from '../../server/dsp/array-check.ts';
 import { ScanPipeline } from '../../server/dsp/scan-pipeline.ts';
 import { validateGeometry } from '../../server/config/array-file.ts';
+import { ChannelCorrection } from '../../server/dsp/calibration.ts';
 import type { ArrayGeometry, ChannelCalibration } from '../../shared/types.ts';
 import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
 
@@ -187,5 +188,37 @@ describe('array check on a simulated 8-microphone ring', () => {
     expect(DEFAULT_MISPLACED_BOUND_US).toBe(20);
     const r = checkArray({ data: render(faults), channels: M, frames: FRAMES, sampleRateHz: FS, positions: RING, speedOfSoundMps: C, bandHz: BAND, direction: { azimuthDeg: SOURCE_AZ }, misplacedBoundUs: 80 });
     expect(kinds(r)).toEqual(['inverted:6', 'swapped:2,5']);
+  });
+});
+
+describe('calibration: polarity and channel order', () => {
+  it('array files accept them closed and explain refusals', () => {
+    const two = [[0, 0, 0], [0.1, 0, 0]];
+    const cal = { gainDb: [0, 0], delayUs: [0, 0], polarity: [1, -1], channelOrder: [1, 0] };
+    expect(validateGeometry({ positions: two, calibration: cal }, 'a.json').calibration).toEqual(cal);
+    const bad = (c: unknown) => {
+      try {
+        validateGeometry({ positions: two, calibration: c }, 'g.json');
+      } catch (e) {
+        return (e as { issues: { message: string }[] }).issues.map((i) => i.message);
+      }
+      return [];
+    };
+    expect(bad({ polarity: [1, 0] })).toEqual(['g.json: calibration.polarity must list 1 or -1 per position (-1: inverted), 2 in all']);
+    expect(bad({ polarity: [1] })).toEqual(['g.json: calibration.polarity must list 1 or -1 per position (-1: inverted), 2 in all']);
+    expect(bad({ channelOrder: [0, 0] })).toEqual(['g.json: calibration.channelOrder must list, per position, the input channel it reads: each of 0–1 exactly once']);
+    expect(bad({ channelOrder: [0, 2] })).toEqual(['g.json: calibration.channelOrder must list, per position, the input channel it reads: each of 0–1 exactly once']);
+  });
+
+  it('the front end reorders, then multiplies by −1 and the gain (by hand: position p takes channel order[p])', () => {
+    // Two bins of three channels, bin-major interleaved: x[b][m] = (10b + m) + j(−m).
+    const x = new Float64Array(12);
+    for (let b = 0; b < 2; b++) for (let m = 0; m < 3; m++) [x[2 * (3 * b + m)], x[2 * (3 * b + m) + 1]] = [10 * b + m, -m];
+    const corr = ChannelCorrection.create({ gainDb: [0, 20, 0], delayUs: [0, 0, 0], polarity: [1, 1, -1], channelOrder: [2, 0, 1] }, 3, [1000, 2000])!;
+    corr.apply(x, 0);
+    // Position 0 ← channel 2; position 1 ← channel 0, divided by 10 (20 dB); position 2 ← channel 1, negated.
+    expect(Array.from(x)).toEqual([2, -2, 0, 0, -1, 1, 12, -2, 1, 0, -11, 1].map((v) => v + 0));
+    expect(ChannelCorrection.create({ gainDb: [0, 0], delayUs: [0, 0], channelOrder: [0, 1], polarity: [1, 1] }, 2, [1000])).toBeNull();
+    expect(ChannelCorrection.create(undefined, 2, [1000])).toBeNull();
   });
 });
