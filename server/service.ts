@@ -44,6 +44,9 @@ import type { UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades } from './ingest/websocket.ts';
 import { InputMask } from './engine/input-mask.ts';
 import { HttpError } from './http/errors.ts';
+import { ArrayCheckRunner, createArrayCheckController } from './engine/array-check-runner.ts';
+import { updateArrayFile } from './config/array-file-update.ts';
+import { memberDelaysUs } from './ingest/group.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -442,6 +445,18 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journalNote('preset-delete', { name }, null, `preset ${name} deleted`);
     },
   };
+  // The array check (POST /api/array-check): its calibration is saved into the array file and applied live.
+  let fileCalibration = loaded.geometry.calibration;
+  const arrayCheck = createArrayCheckController({
+    runner: new ArrayCheckRunner({ subscribe: (s) => bus.subscribe(s, 'array-check'), channels, sampleRateHz: fs, positions: () => geometry.positions, speedOfSoundMps: config.engine.speedOfSoundMps, bandHz: () => eng.params.bandHz }),
+    arrayPath,
+    fileLabel: basename(arrayPath),
+    fileCalibration: () => fileCalibration,
+    memberDelaysUs: geometry.inputs?.some((i) => i.offsetUs) ? memberDelaysUs(geometry.inputs, channels) : null,
+    write: async (cal) => void (fileCalibration = (await updateArrayFile(arrayPath, { calibration: cal })).calibration),
+    apply: (cal) => [eng, chain?.engine].forEach((e) => e?.setCalibration(cal)),
+    journal: (before, after, summary) => journalNote('calibration', before, after, summary),
+  });
   // Access checks shared by the REST routes and the WebSocket upgrades (http/access.ts).
   const originPolicy = new OriginPolicy({ host: config.server.host, allowedHosts: config.server.allowedHosts, allowedOrigins: config.server.allowedOrigins });
   const accessStats = createAccessStats();
@@ -564,6 +579,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     },
     session,
     compare,
+    arrayCheck,
     staticDir: CLIENT_DIST,
   });
   await app.ready();

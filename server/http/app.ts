@@ -20,6 +20,7 @@ import { actorOf, runAs } from './actor.ts';
 import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
+import { arrayCheckRoutes, type ArrayCheckController } from './routes/array-check.ts';
 
 export interface AppDeps {
   status: StatusProvider;
@@ -37,6 +38,8 @@ export interface AppDeps {
   compare?: CompareController;
   /** Steered beams (`/api/beams`); absent without it. */
   beams?: BeamsController;
+  /** The array check and saving its calibration (`/api/array-check`); absent without it. */
+  arrayCheck?: ArrayCheckController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
   staticDir?: string;
   /**
@@ -200,6 +203,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.channels) app.register(channelsRoutes(deps.channels), { prefix: '/api' });
   if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
+  if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }
