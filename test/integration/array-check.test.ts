@@ -1,8 +1,7 @@
 /**
  * The array check over REST on a running service fed (WebSocket ingest) with a faulty 8-microphone
- * ring: cables 2 and 5 swapped, channel 6 inverted, microphone 1 sitting 2 cm out of its hole,
- * gains ±2 dB. The signals come from test/helpers/plane-waves.ts (written from DESIGN.md §3, not
- * with the code under test). The proposed calibration is saved into a temporary copy of the array
+ * ring (test/helpers/faulty-ring.ts): cables 2 and 5 swapped, channel 6 inverted, microphone 1
+ * sitting 2 cm out of its hole, gains ±2 dB. The proposed calibration is saved into a temporary copy of the array
  * file, whose content is checked, journaled, and handed to the running engine.
  */
 import { mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
@@ -11,8 +10,7 @@ import { join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
 import type { Service } from '../../server/service.ts';
-import { encodeFrame } from '../../shared/frame.ts';
-import { renderPlaneWaves } from '../helpers/plane-waves.ts';
+import { faultyRing, RING, RING_M, ringFrames } from '../helpers/faulty-ring.ts';
 import { startTestService, waitFor } from '../helpers/service.ts';
 
 let svc: Service | null = null;
@@ -24,21 +22,7 @@ afterEach(async () => {
   svc = null;
 });
 
-const FS = 48000;
-const M = 8;
-const N = 480;
-const RING = Array.from({ length: M }, (_, m) => [0.1 * Math.cos((2 * Math.PI * m) / M), 0.1 * Math.sin((2 * Math.PI * m) / M), 0] as [number, number, number]);
-
-/** Interleaved frames × M of the faulty ring hearing one source at 30°. */
-function faultyRing(frames: number): Float32Array {
-  const moved: [number, number, number] = [0.12 * Math.cos(Math.PI / 4), 0.12 * Math.sin(Math.PI / 4), 0];
-  const x = renderPlaneWaves({ positions: RING.map((p, m) => (m === 1 ? moved : p)), sampleRateHz: FS, frames, speedOfSoundMps: 343.2, sources: [{ azimuthDeg: 30, rms: 0.1, loHz: 200, hiHz: 8000, seed: 21 }], noiseRms: 0.001, noiseSeed: 22 });
-  const gains = [2, 0, -2, 0, 2, 0, 0, -2];
-  const src = [0, 1, 5, 3, 4, 2, 6, 7]; // cables 2 and 5 exchanged
-  const out = new Float32Array(x.length);
-  for (let i = 0; i < frames; i++) for (let c = 0; c < M; c++) out[i * M + c] = x[i * M + src[c]] * Math.pow(10, gains[c] / 20) * (c === 6 ? -1 : 1);
-  return out;
-}
+const M = RING_M;
 
 const json = (method: string, body?: unknown) => ({ method, headers: { 'content-type': 'application/json' }, body: body === undefined ? undefined : JSON.stringify(body) });
 
@@ -69,7 +53,7 @@ describe('POST /api/array-check on a running service', () => {
     const x = faultyRing(1 << 17);
     ws = new WebSocket(`${url.replace('http', 'ws')}/ingest`);
     await new Promise<void>((res) => ws!.once('open', () => res()));
-    for (let k = 0; k < frames; k++) ws.send(encodeFrame({ streamId: 1, sequence: k, firstSample: k * N, sampleRateHz: FS, channels: M, samplesPerChannel: N, encoding: 'float32' }, x.subarray(k * N * M, (k + 1) * N * M)));
+    for (const f of ringFrames(x, frames)) ws.send(f);
     const a = await answer;
     expect(a.status, JSON.stringify(a.body)).toBe(200);
     const texts: string[] = a.body.faults.map((f: { text: string }) => f.text);
