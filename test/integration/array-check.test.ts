@@ -10,6 +10,7 @@ import { join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
 import type { Service } from '../../server/service.ts';
+import { decodeRow } from '../../shared/messages.ts';
 import { faultyRing, RING, RING_M, ringFrames } from '../helpers/faulty-ring.ts';
 import { startTestService, waitFor } from '../helpers/service.ts';
 
@@ -49,11 +50,31 @@ describe('POST /api/array-check on a running service', () => {
     expect(r.status).toBe(409);
     expect((await r.json()).error.code).toBe('ERR_HTTP_CHECK_RUNNING');
 
+    // The live rows: MVDR level at the source's 30° (1° grid from 0°) per row's sample index.
+    const rows: { sampleIndex: number; at30: number }[] = [];
+    const liveWs = new WebSocket(`${url.replace('http', 'ws')}/api/live`);
+    liveWs.on('message', (data, isBinary) => {
+      if (!isBinary) return;
+      const buf = data as Buffer;
+      const row = decodeRow(new Uint8Array(buf.buffer, buf.byteOffset, buf.byteLength));
+      rows.push({ sampleIndex: row.sampleIndex, at30: row.mvdrDb![30] });
+    });
+    await new Promise<void>((res) => liveWs.once('open', () => res()));
     const frames = 150; // 1.5 s of 480-sample frames
-    const x = faultyRing(1 << 17);
+    const x = faultyRing(1 << 18);
+    const wire = ringFrames(x, 540);
     ws = new WebSocket(`${url.replace('http', 'ws')}/ingest`);
     await new Promise<void>((res) => ws!.once('open', () => res()));
-    for (const f of ringFrames(x, frames)) ws.send(f);
+    // Sent 10 frames (0.1 s) at a time, each batch once the engine's rows have reached it: a burst
+    // would leave the scans behind (rows are scanned when a result slot is free), not the check.
+    const send = async (from: number, to: number) => {
+      for (let k = from; k < to; k += 10) {
+        for (const f of wire.slice(k, Math.min(k + 10, to))) ws!.send(f);
+        const end = Math.min(k + 10, to) * 480;
+        await waitFor(() => rows.length > 0 && rows[rows.length - 1].sampleIndex >= end - 3 * 2400, 20_000, `rows up to sample ${end}`);
+      }
+    };
+    await send(0, frames);
     const a = await answer;
     expect(a.status, JSON.stringify(a.body)).toBe(200);
     const texts: string[] = a.body.faults.map((f: { text: string }) => f.text);
@@ -82,6 +103,15 @@ describe('POST /api/array-check on a running service', () => {
     expect(file).toEqual({ name: 'check ring', positions: RING, site: 'test bench', calibration: cal });
     // Applied to the running engine, journaled, shown in the check's state.
     expect(svc.engine.opts.geometry.calibration).toEqual(cal);
+    // Live: the rows of the uncalibrated input (the last before the save) against those 2 s (4 τ)
+    // after it; the engine's own row sample indices, not wall-clock time.
+    const before = rows.filter((row) => row.sampleIndex < frames * 480).at(-1)!.at30;
+    await send(frames, wire.length);
+    const settled = (frames + 200) * 480;
+    const after = rows.filter((row) => row.sampleIndex >= settled).at(-1)!.at30;
+    console.log(`array check, live MVDR at the 30° source: ${before.toFixed(2)} dB uncalibrated, ${after.toFixed(2)} dB with the saved calibration`);
+    expect(after - before).toBeGreaterThan(10);
+    liveWs.terminate();
     const journal = await (await fetch(`${url}/api/journal`)).json();
     const entry = journal.entries.find((e: { kind: string }) => e.kind === 'calibration');
     expect(entry.after).toEqual(cal);
