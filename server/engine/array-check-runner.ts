@@ -157,7 +157,10 @@ export class ArrayCheckRunner {
           if (filled > 0 || b.discontinuity) restarts++;
           filled = 0;
           expected = b.gap ? null : b.sampleIndex + b.frames;
-          if (restarts > MAX_RESTARTS) finish(() => reject(new ArrayCheckError({ kind: 'no-input', got: 0, want: frames, waitedS: waitS, detail: `the input had ${restarts} gaps or clock jumps during the capture` })));
+          if (restarts > MAX_RESTARTS) {
+            finish(() => reject(new ArrayCheckError({ kind: 'no-input', got: 0, want: frames, waitedS: waitS, detail: `the input had ${restarts} gaps or clock jumps during the capture` })));
+            return;
+          }
           if (b.gap) return;
         }
         if (filled === 0) first = b.sampleIndex;
