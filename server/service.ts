@@ -454,7 +454,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     fileCalibration: () => fileCalibration,
     memberDelaysUs: geometry.inputs?.some((i) => i.offsetUs) ? memberDelaysUs(geometry.inputs, channels) : null,
     write: async (cal) => void (fileCalibration = (await updateArrayFile(arrayPath, { calibration: cal })).calibration),
-    apply: (cal) => [eng, chain?.engine].forEach((e) => e?.setCalibration(cal)),
+    // From the next hop, on an empty covariance (the one held was formed without it); dashboards get a fresh hello.
+    apply: (cal) => {
+      for (const e of [eng, chain?.engine]) e?.setCalibration(cal);
+      for (const e of [eng, chain?.engine]) e?.resetCovariance();
+      live.broadcastJson(hello());
+    },
     journal: (before, after, summary) => journalNote('calibration', before, after, summary),
   });
   // Access checks shared by the REST routes and the WebSocket upgrades (http/access.ts).
