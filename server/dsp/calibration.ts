@@ -10,6 +10,11 @@
  * frequency and approximate in between; the error grows with d/(N/fs), which is why array files
  * limit d to 1 ms (common practice: frequency-domain delay compensation is used for small
  * inter-channel delays, long ones belong before the analysis).
+ *
+ * Two faults no gain or delay can express are undone too (the array check finds them,
+ * dsp/array-check.ts): an inverted channel (polarity −1: the factor is negated) and swapped cables
+ * (channelOrder: position p takes input channel channelOrder[p], before the factors, which are
+ * indexed by position). Channel meters and raw recordings stay in input-channel order.
  */
 import { splOffsetDb } from '../../shared/levels.ts';
 import type { ChannelCalibration } from '../../shared/types.ts';

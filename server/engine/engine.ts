@@ -341,7 +341,7 @@ export class Engine {
   #correction: ChannelCorrection | null = null;
   #correctionOffset = 0;
   #bandFreqs: number[] = [];
-  /** A new calibration (array check), effective from the next hop; the covariance adapts with λ. */
+  /** A new calibration (array check), effective from the next hop; the caller may also reset the covariance. */
   setCalibration(cal: ArrayGeometry['calibration']): void {
     this.#correction = ChannelCorrection.create(cal, this.channels, this.#bandFreqs);
     this.opts.geometry.calibration = cal;
