@@ -174,6 +174,17 @@ describe('array check on a simulated 8-microphone ring', () => {
     expect(r.calibration.gainDb[3]).toBe(0);
   });
 
+  it('three cables exchanged in a ring (0 carries 3, 3 carries 7, 7 carries 0): the permutation is found', () => {
+    const data = render({});
+    const copy = data.slice();
+    const carries: Record<number, number> = { 0: 3, 3: 7, 7: 0 };
+    for (const [ch, pos] of Object.entries(carries)) data.set(copy.subarray(pos * FRAMES, (pos + 1) * FRAMES), Number(ch) * FRAMES);
+    const r = check(data);
+    expect(kinds(r)).toEqual(['swapped:0,3,7']);
+    expect(r.faults[0].text).toBe('channels 0, 3, 7 look exchanged in a ring (0 carries position 3, 3 carries position 7, 7 carries position 0)');
+    expect(r.calibration.channelOrder).toEqual([7, 1, 2, 0, 4, 5, 6, 3]);
+  });
+
   it('flags a clipping channel', () => {
     const data = render({});
     for (let i = 0; i < FRAMES; i += 500) data[5 * FRAMES + i] = 1;
