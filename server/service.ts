@@ -46,6 +46,9 @@ import { InputMask } from './engine/input-mask.ts';
 import { HttpError } from './http/errors.ts';
 import { arrayFileLandmarks } from './http/routes/landmarks.ts';
 import { landmarkChangeSummary } from '../shared/landmarks.ts';
+import { ArrayCheckRunner, createArrayCheckController } from './engine/array-check-runner.ts';
+import { updateArrayFile } from './config/array-file-update.ts';
+import { memberDelaysUs } from './ingest/group.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -450,6 +453,25 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journalNote('preset-delete', { name }, null, `preset ${name} deleted`);
     },
   };
+  // The array check (POST /api/array-check): its calibration is saved into the array file and applied live.
+  let fileCalibration = loaded.geometry.calibration;
+  const arrayCheck = createArrayCheckController({
+    runner: new ArrayCheckRunner({ subscribe: (s) => bus.subscribe(s, 'array-check'), channels, sampleRateHz: fs, positions: () => geometry.positions, speedOfSoundMps: config.engine.speedOfSoundMps, bandHz: () => eng.params.bandHz }),
+    arrayPath,
+    fileLabel: basename(arrayPath),
+    fileCalibration: () => fileCalibration,
+    memberDelaysUs: geometry.inputs?.some((i) => i.offsetUs) ? memberDelaysUs(geometry.inputs, channels) : null,
+    write: async (cal) => void (fileCalibration = (await updateArrayFile(arrayPath, { calibration: cal })).calibration),
+    // From the next hop, on an empty covariance (the one held was formed without it); dashboards get a fresh hello.
+    apply: (cal) => {
+      // Status, the hello and the sidecars of recordings started from now on describe the calibration in force.
+      geometry.calibration = cal;
+      for (const e of [eng, chain?.engine]) e?.setCalibration(cal);
+      for (const e of [eng, chain?.engine]) e?.resetCovariance();
+      live.broadcastJson(hello());
+    },
+    journal: (before, after, summary) => journalNote('calibration', before, after, summary),
+  });
   // Access checks shared by the REST routes and the WebSocket upgrades (http/access.ts).
   const originPolicy = new OriginPolicy({ host: config.server.host, allowedHosts: config.server.allowedHosts, allowedOrigins: config.server.allowedOrigins });
   const accessStats = createAccessStats();
@@ -573,6 +595,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     },
     session,
     compare,
+    arrayCheck,
     staticDir: CLIENT_DIST,
   });
   await app.ready();

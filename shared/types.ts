@@ -53,6 +53,13 @@ export interface ChannelCalibration {
    */
   sensitivityMvPerPa?: number;
   fullScaleVolts?: number;
+  /** Per position, 1 or −1: −1 undoes an inverted polarity (a π phase no gain or delay can express). */
+  polarity?: number[];
+  /**
+   * Position p reads input channel channelOrder[p] (a permutation; undoes swapped cables). Applied
+   * before gainDb, delayUs and polarity, which are indexed by position. Absent: position p reads channel p.
+   */
+  channelOrder?: number[];
 }
 
 /**

@@ -1,6 +1,6 @@
 /**
  * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres, optionally
- * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": … }`
+ * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": …, "polarity": […], "channelOrder": […] }`
  * (the lists one entry per position, each part optional),
  * `"landmarks": [{ "name": "gate", "azimuthDeg": 35 }]` (shared/landmarks.ts); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
@@ -140,13 +140,13 @@ export const MAX_CALIBRATION_GAIN_DB = 40;
  */
 export const MAX_CALIBRATION_DELAY_US = 1000;
 
-function validateCalibration(value: unknown, m: number, add: (path: string, v: unknown, msg: string) => void): ChannelCalibration | undefined {
+export function validateCalibration(value: unknown, m: number, add: (path: string, v: unknown, msg: string) => void): ChannelCalibration | undefined {
   if (typeof value !== 'object' || value === null || Array.isArray(value)) {
     add('calibration', value, 'must be an object { "gainDb": [...], "delayUs": [...] }');
     return undefined;
   }
   const c = value as Record<string, unknown>;
-  const FIELDS = ['gainDb', 'delayUs', 'sensitivityMvPerPa', 'fullScaleVolts'];
+  const FIELDS = ['gainDb', 'delayUs', 'sensitivityMvPerPa', 'fullScaleVolts', 'polarity', 'channelOrder'];
   for (const k of Object.keys(c)) if (!FIELDS.includes(k)) add(`calibration.${k}`, c[k], `is not a calibration field (${FIELDS.join(', ')})`);
   const list = (key: 'gainDb' | 'delayUs', limit: number, unit: string): number[] => {
     const v = c[key];
@@ -170,6 +170,16 @@ function validateCalibration(value: unknown, m: number, add: (path: string, v: u
     else out.sensitivityMvPerPa = sens;
     if (typeof vfs !== 'number' || !Number.isFinite(vfs) || vfs < 0.001 || vfs > 1000) add('calibration.fullScaleVolts', vfs, 'must be a number of volts (peak at digital full scale) in 0.001–1000');
     else out.fullScaleVolts = vfs;
+  }
+  // The array check's additions: inverted channels and swapped cables (undone before gain and delay).
+  if (c.polarity !== undefined) {
+    if (!Array.isArray(c.polarity) || c.polarity.length !== m || !c.polarity.every((s) => s === 1 || s === -1)) add('calibration.polarity', Array.isArray(c.polarity) ? `${c.polarity.length} entries` : c.polarity, `must list 1 or -1 per position (-1: inverted), ${m} in all`);
+    else out.polarity = c.polarity as number[];
+  }
+  if (c.channelOrder !== undefined) {
+    const o = c.channelOrder;
+    if (!Array.isArray(o) || o.length !== m || !o.every((q) => Number.isInteger(q) && q >= 0 && q < m) || new Set(o).size !== m) add('calibration.channelOrder', Array.isArray(o) ? `[${o.slice(0, 8).join(', ')}${o.length > 8 ? ', …' : ''}]` : o, `must list, per position, the input channel it reads: each of 0–${m - 1} exactly once`);
+    else out.channelOrder = o as number[];
   }
   return out;
 }

@@ -12,7 +12,7 @@ import { CovarianceBank } from './covariance.ts';
 import type { LoadingSpec } from './loading.ts';
 import { PeakFinder, type Peak } from './peaks.ts';
 import { combineBroadband, powerToDb, SpectrumScanner, type SpectrumMethod } from './spectrum.ts';
-import { applyCorrection, correctionFactors } from './calibration.ts';
+import { ChannelCorrection } from './calibration.ts';
 import { MultiChannelStft, type BinRange } from './stft.ts';
 import { aliasingCheck, directionGrid, SteeringTable, type AliasingCheck, type AngleRangeDeg, type DirectionGrid } from './steering.ts';
 import { lambdaFromTau, tauFromLambda } from './units.ts';
@@ -126,10 +126,10 @@ export class ScanPipeline {
     // bins add up to the signal's mean power (Parseval; a full-scale sine gives 1/2 = −3 dBFS,
     // white noise of variance σ² gives σ² summed over 0…fs/2).
     const scale = 2 / opts.fftSize;
-    const correction = correctionFactors(opts.geometry.calibration, M, freqs);
+    const correction = ChannelCorrection.create(opts.geometry.calibration, M, freqs);
     this.#onHop = (snapshot) => {
       const band = snapshot.subarray(a, b);
-      if (correction) applyCorrection(band, 0, correction);
+      correction?.apply(band, 0);
       for (let i = 0; i < band.length; i++) band[i] *= scale;
       if (opts.lambda === null) this.bank.accumulate(band);
       else this.bank.update(band, opts.lambda);

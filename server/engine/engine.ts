@@ -10,7 +10,7 @@
  */
 import type { RowPeak, SpectrumRow } from '../../shared/messages.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
-import { applyCorrection, correctionFactors } from '../dsp/calibration.ts';
+import { ChannelCorrection } from '../dsp/calibration.ts';
 import { PeakFinder } from '../dsp/peaks.ts';
 import { bandBinsOf, MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
@@ -285,7 +285,7 @@ export class Engine {
     this.opts.budget?.hold(this, cost.totalBytes);
     // Per-channel calibration, undone on the band's bins of each slot before anyone reads them.
     const bandFreqs = Array.from({ length: band.count }, (_, k) => ((band.startBin + k) * fs) / this.#stft.fftSize);
-    this.#correction = correctionFactors(this.opts.geometry.calibration, M, bandFreqs);
+    this.#correction = ChannelCorrection.create(this.opts.geometry.calibration, M, (this.#bandFreqs = bandFreqs));
     this.#correctionOffset = 2 * M * band.startBin;
     // Workers and beams read only the band's bins of a slot: only those are formed.
     this.#stft.setOutput(plan.ring, (hopStart) => (this.#slotOffset = this.#slotFor(hopStart)), band);
@@ -337,9 +337,15 @@ export class Engine {
   }
 
   #skip: 'full' | 'decimated' | null = null;
-  /** Calibration factors of the band's bins (dsp/calibration.ts), null when all channels are nominal. */
-  #correction: Float64Array | null = null;
+  /** Calibration of the band's bins (dsp/calibration.ts), null when all channels are nominal. */
+  #correction: ChannelCorrection | null = null;
   #correctionOffset = 0;
+  #bandFreqs: number[] = [];
+  /** A new calibration (array check), effective from the next hop; the caller may also reset the covariance. */
+  setCalibration(cal: ArrayGeometry['calibration']): void {
+    this.#correction = ChannelCorrection.create(cal, this.channels, this.#bandFreqs);
+    this.opts.geometry.calibration = cal;
+  }
   #forcedSkips = 0;
 
   /** Test hook: the next n hops find the ring full, as under overload (they are skipped). */
@@ -395,7 +401,7 @@ export class Engine {
 
   #onHop = (out: Float64Array, hopStart: number): void => {
     this.hops++;
-    if (this.#correction) applyCorrection(out, this.#slotOffset + this.#correctionOffset, this.#correction);
+    this.#correction?.apply(out, this.#slotOffset + this.#correctionOffset);
     // Beam audio first, from the snapshot as written (before any worker scales its bins in place).
     const audio = this.#audio.process(out, this.#slotOffset, hopStart);
     if (audio) this.opts.onBeamAudio?.(audio);

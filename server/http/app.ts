@@ -21,6 +21,7 @@ import { actorOf, runAs } from './actor.ts';
 import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
+import { arrayCheckRoutes, type ArrayCheckController } from './routes/array-check.ts';
 
 export interface AppDeps {
   status: StatusProvider;
@@ -40,6 +41,8 @@ export interface AppDeps {
   beams?: BeamsController;
   /** Named azimuths saved in the array file (`/api/landmarks`); absent without it. */
   landmarks?: LandmarksController;
+  /** The array check and saving its calibration (`/api/array-check`); absent without it. */
+  arrayCheck?: ArrayCheckController;
   /** Serves the built dashboard (client/dist) at `/` when given. */
   staticDir?: string;
   /**
@@ -204,6 +207,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
+  if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }

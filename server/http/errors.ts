@@ -29,6 +29,11 @@ export const HTTP_ERRORS = {
   ERR_HTTP_UNKNOWN_STREAM: { statusCode: 404, template: 'no stream {streamId} has been received; streams seen: {seen}' },
   ERR_HTTP_INPUT_FIXED: { statusCode: 409, template: '{detail}' },
   ERR_HTTP_ARRAY_FILE_FAILED: { statusCode: 500, template: 'the array file could not be updated (it is unchanged): {detail}' },
+  ERR_HTTP_CHECK_RUNNING: { statusCode: 409, template: 'an array check is already running (started {startedAt}); wait for its answer' },
+  ERR_HTTP_CHECK_NO_INPUT: { statusCode: 503, template: 'the array check got {got} of {want} samples per channel in {waitedS} s: {detail}' },
+  ERR_HTTP_CHECK_FAILED: { statusCode: 422, template: 'the array check could not run: {detail}' },
+  ERR_HTTP_CALIBRATION_INVALID: { statusCode: 400, template: '{detail}' },
+  ERR_HTTP_CALIBRATION_WRITE_FAILED: { statusCode: 500, template: 'the calibration could not be saved: {detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 

@@ -19,12 +19,18 @@ import { lambdaFromTau, speedOfSoundFromTemperature } from '../dsp/units.ts';
 import { openRaw, type FileSampleReader } from '../io/raw.ts';
 import { openWav } from '../io/wav.ts';
 import { FlagError, parseFlags } from './flag-suggest.ts';
+import { arrayCheckFile, arrayCheckTable } from './array-check-file.ts';
+import { DEFAULT_MISPLACED_BOUND_US } from '../dsp/array-check.ts';
 
 export const ANALYZE_USAGE = `usage: nullsteer analyze FILE [--array ARRAY.json] [--band LO:HI] [--method mvdr|conventional|both]
          [--grid AZ0:AZ1:STEP[,EL0:EL1:STEP]] [--lambda L | --tau S] [--loading SPEC] [--fft N]
          [--c M_PER_S | --temperature DEG_C] [--focus-range M] [--mask CH[,CH…]] [--dead-db DB|off]
          [--normalise] [--threshold-db DB] [--max-peaks N] [--json | --all]
          [--raw --channels M --rate HZ --encoding int16|int24|int32|float32]
+       nullsteer analyze FILE --array-check [--azimuth DEG] [--bound-us N] [--array ARRAY.json] [--band LO:HI] [--fft N] [--json]
+  --array-check: with one dominant source (at --azimuth, else the strongest peak), each channel's delay,
+  phase and gain against the geometry, the faults (swapped, misplaced, inverted, dead, hot) and a
+  proposed calibration (--json: the same object as POST /api/array-check answers).
   Without --array the geometry comes from the recording's sidecar (FILE.json, written beside it).
   The table gives the summary and the peaks; --all adds the spectrum at every direction of the grid.
   SPEC: ratio:R (δ = R·tr(R)/M, default ratio:0.01), db:D (the same in dB), fixed:δ, wng:FLOOR_DB, none`;
@@ -78,6 +84,8 @@ interface Parsed {
   all: boolean;
   raw: { channels: number; sampleRateHz: number; encoding: SampleEncoding } | null;
   build: (fs: number, geometry: ScanPipelineOptions['geometry']) => ScanPipelineOptions;
+  /** --array-check: the stated azimuth (null: the strongest peak), the bound, the FFT size if given. */
+  arrayCheck: { azimuthDeg: number | null; boundUs: number; fftSize: number | null } | null;
 }
 
 const ANALYZE_OPTIONS = {
@@ -103,6 +111,9 @@ const ANALYZE_OPTIONS = {
   channels: { type: 'string' },
   rate: { type: 'string' },
   encoding: { type: 'string' },
+  'array-check': { type: 'boolean' },
+  azimuth: { type: 'string' },
+  'bound-us': { type: 'string' },
 } as const;
 const ANALYZE_FLAGS = Object.keys(ANALYZE_OPTIONS);
 
@@ -152,7 +163,13 @@ export function parseAnalyzeArgs(argv: string[]): Parsed {
   const focusRangeM = values['focus-range'] === undefined ? null : num('focus-range', values['focus-range'], 0.01, 1e6);
   const peakThresholdDb = values['threshold-db'] === undefined ? 3 : num('threshold-db', values['threshold-db'], 0, 200);
   const maxPeaks = values['max-peaks'] === undefined ? 8 : num('max-peaks', values['max-peaks'], 1, 1000, true);
+  if (!values['array-check'] && (values.azimuth !== undefined || values['bound-us'] !== undefined)) throw new UsageError('--azimuth and --bound-us go with --array-check');
+  if (values['array-check'] && values.all) throw new UsageError('--all is not an --array-check option (the check prints every channel)');
+  const arrayCheck = values['array-check']
+    ? { azimuthDeg: values.azimuth === undefined ? null : num('azimuth', values.azimuth, -360, 360), boundUs: values['bound-us'] === undefined ? DEFAULT_MISPLACED_BOUND_US : num('bound-us', values['bound-us'], 1, 1000), fftSize: values.fft === undefined ? null : fftSize }
+    : null;
   return {
+    arrayCheck,
     file: positionals[0],
     arrayFile: values.array ?? null,
     json: values.json === true,
@@ -330,6 +347,11 @@ export async function analyzeCommand(argv: string[], io: AnalyzeIo = {}): Promis
       throw new UsageError(`${parsed.file} has ${info.channels} channels, the array ${geometry.name} has ${geometry.positions.length}`);
     }
     const options = parsed.build(info.sampleRateHz, geometry);
+    if (parsed.arrayCheck) {
+      const r = await arrayCheckFile(reader, geometry, options, parsed.arrayCheck);
+      out(parsed.json ? JSON.stringify({ file: parsed.file, array: geometry.name, ...r }) : arrayCheckTable(parsed.file, geometry.name, r));
+      return 0;
+    }
     const result = await analyzeFile(reader, options);
     const rep = reportJson(parsed.file, geometry.name, info.sampleRateHz, info.frames, options, result);
     rep.array_from = from.kind;

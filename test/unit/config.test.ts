@@ -118,7 +118,7 @@ describe('configuration', () => {
     expect(bad({ gainDb: [0, 41] })).toEqual(['g.json: calibration.gainDb[1] must be a number within ±40 dB']);
     expect(bad({ delayUs: [0, 'x'] })).toEqual(['g.json: calibration.delayUs[1] must be a number within ±1000 µs']);
     expect(bad({ delayUs: [1001, 0] })).toEqual(['g.json: calibration.delayUs[0] must be a number within ±1000 µs']);
-    expect(bad({ gain: [0, 0] })).toEqual(['g.json: calibration.gain is not a calibration field (gainDb, delayUs, sensitivityMvPerPa, fullScaleVolts)']);
+    expect(bad({ gain: [0, 0] })).toEqual(['g.json: calibration.gain is not a calibration field (gainDb, delayUs, sensitivityMvPerPa, fullScaleVolts, polarity, channelOrder)']);
     expect(bad([0, 0])).toEqual(['g.json: calibration must be an object { "gainDb": [...], "delayUs": [...] }']);
     expect(validateGeometry({ positions: two, calibration: { sensitivityMvPerPa: 50, fullScaleVolts: 1 } }, 'a.json').calibration).toEqual({ gainDb: [0, 0], delayUs: [0, 0], sensitivityMvPerPa: 50, fullScaleVolts: 1 });
     expect(bad({ sensitivityMvPerPa: 50 })).toEqual(['g.json: calibration.fullScaleVolts is needed too: give sensitivityMvPerPa and fullScaleVolts together (or neither)']);
