@@ -332,7 +332,7 @@ export interface HelloMessage {
   grid: LiveGrid;
   params: ProcessingParams;
   /** calibration: the largest per-channel correction applied (null or absent: channels nominal). */
-  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null } | null; landmarks?: Landmark[] };
+  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null; inverted?: number[]; reordered?: number[] } | null; landmarks?: Landmark[] };
   derived?: ProcessingDerived;
 }
 
@@ -454,6 +454,13 @@ export function parseServerMessage(text: string): ServerMessage {
         }
         if (c.splOffsetDb !== undefined && c.splOffsetDb !== null && (typeof c.splOffsetDb !== 'number' || !Number.isFinite(c.splOffsetDb))) {
           throw new MessageParseError('array.calibration.splOffsetDb', 'must be a finite number or null');
+        }
+        for (const k of ['inverted', 'reordered']) {
+          const v = c[k];
+          const m = (a.positions as unknown[]).length;
+          if (v !== undefined && (!Array.isArray(v) || v.length > m || !v.every((p) => Number.isInteger(p) && p >= 0 && p < m))) {
+            throw new MessageParseError(`array.calibration.${k}`, 'must be a list of positions');
+          }
         }
       }
       // Named azimuths (shared/landmarks.ts); a hello is sent again when they change.

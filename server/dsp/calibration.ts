@@ -117,11 +117,17 @@ export class ChannelCorrection {
  * A short description for status and the dashboard: the largest gain and delay corrected, and the dB
  * to add to a level re full scale for dB SPL (null without a sensitivity).
  */
-export function describeCalibration(cal: ChannelCalibration | undefined): { gainDbMax: number; delayUsMax: number; splOffsetDb: number | null } | null {
+export function describeCalibration(cal: ChannelCalibration | undefined): { gainDbMax: number; delayUsMax: number; splOffsetDb: number | null; inverted?: number[]; reordered?: number[] } | null {
   if (!cal) return null;
-  return {
+  const out: { gainDbMax: number; delayUsMax: number; splOffsetDb: number | null; inverted?: number[]; reordered?: number[] } = {
     gainDbMax: Math.max(0, ...cal.gainDb.map(Math.abs)),
     delayUsMax: Math.max(0, ...cal.delayUs.map(Math.abs)),
     splOffsetDb: cal.sensitivityMvPerPa !== undefined && cal.fullScaleVolts !== undefined ? splOffsetDb(cal.sensitivityMvPerPa, cal.fullScaleVolts) : null,
   };
+  // Positions whose polarity is turned and positions that read another input channel (only when there are any).
+  const inverted = (cal.polarity ?? []).flatMap((s, p) => (s < 0 ? [p] : []));
+  const reordered = (cal.channelOrder ?? []).flatMap((c, p) => (c !== p ? [p] : []));
+  if (inverted.length > 0) out.inverted = inverted;
+  if (reordered.length > 0) out.reordered = reordered;
+  return out;
 }

@@ -66,3 +66,10 @@ describe('per-channel correction factors', () => {
     expect(Math.hypot(b[2 * k] - a[2 * k], b[2 * k + 1] - a[2 * k + 1]) / Math.hypot(a[2 * k], a[2 * k + 1])).toBeGreaterThan(0.5);
   });
 });
+
+describe('describeCalibration: polarity and channel order', () => {
+  it('lists inverted positions and positions reading another channel, only when there are any', () => {
+    expect(describeCalibration({ gainDb: [0, 0, 0], delayUs: [0, 0, 0], polarity: [1, -1, 1], channelOrder: [0, 2, 1] })).toEqual({ gainDbMax: 0, delayUsMax: 0, splOffsetDb: null, inverted: [1], reordered: [1, 2] });
+    expect(describeCalibration({ gainDb: [0, 0], delayUs: [0, 0], polarity: [1, 1], channelOrder: [0, 1] })).toEqual({ gainDbMax: 0, delayUsMax: 0, splOffsetDb: null });
+  });
+});
