@@ -1,0 +1,59 @@
+/**
+ * A direct listener of the beam-audio WebSocket for tests: keeps one channel's samples by stream
+ * sample index (decoded with shared/frame.ts, independently of shared/beam-listen.ts), bounded to
+ * `maxSamples` from the first frame.
+ */
+import WebSocket from 'ws';
+import { decodeFrame, decodeSamples } from '../../shared/frame.ts';
+
+export class BeamSubscriber {
+  readonly ws: WebSocket;
+  base = -1;
+  readonly samples: Float32Array;
+  readonly have: Uint8Array;
+  frames = 0;
+  maxChannels = 0;
+
+  constructor(url: string, readonly channel: number, maxSamples = 48000 * 60) {
+    this.samples = new Float32Array(maxSamples);
+    this.have = new Uint8Array(maxSamples);
+    this.ws = new WebSocket(url);
+    this.ws.on('error', () => undefined);
+    this.ws.on('message', (data: Buffer, isBinary: boolean) => {
+      if (!isBinary) return;
+      const r = decodeFrame(new Uint8Array(data.buffer, data.byteOffset, data.byteLength));
+      if (!r.ok || r.frame.channels <= channel) return;
+      const f = r.frame;
+      const planar = new Float32Array(f.channels * f.samplesPerChannel);
+      if (!decodeSamples(f, planar)) return;
+      if (this.base < 0) this.base = f.firstSample;
+      for (let i = 0; i < f.samplesPerChannel; i++) {
+        const k = f.firstSample + i - this.base;
+        if (k < 0 || k >= this.samples.length) continue;
+        this.samples[k] = planar[channel * f.samplesPerChannel + i];
+        this.have[k] = 1;
+      }
+      this.frames++;
+    });
+  }
+
+  opened(): Promise<void> {
+    return new Promise((resolve, reject) => {
+      if (this.ws.readyState === WebSocket.OPEN) return resolve();
+      this.ws.once('open', () => resolve());
+      this.ws.once('error', reject);
+    });
+  }
+
+  /** Samples [first, first + n) as the server sent them, or null when any is missing. */
+  range(first: number, n: number): Float32Array | null {
+    const k = first - this.base;
+    if (this.base < 0 || k < 0 || k + n > this.samples.length) return null;
+    for (let i = 0; i < n; i++) if (!this.have[k + i]) return null;
+    return this.samples.slice(k, k + n);
+  }
+
+  close(): void {
+    this.ws.terminate();
+  }
+}
