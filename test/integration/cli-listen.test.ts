@@ -147,6 +147,33 @@ describe('nullsteer listen against a live service', () => {
   });
 });
 
+describe('nullsteer listen and the token', () => {
+  const TOKEN = 'listen-test-token-0123456789';
+  let svc: Service;
+  let beamId: number;
+  beforeAll(async () => {
+    svc = await startTestService({ source: { kind: 'simulator' }, server: { token: TOKEN }, engine: { workers: 1 }, processing: { azimuthStepDeg: 5 } });
+    const res = await fetch(`${svc.url}/api/beams`, { method: 'POST', headers: { ...json, authorization: `Bearer ${TOKEN}` }, body: JSON.stringify({ azimuthDeg: 90 }) });
+    expect(res.status).toBe(200);
+    beamId = (await res.json()).id;
+  }, 60_000);
+  afterAll(async () => {
+    await svc?.close();
+  });
+
+  it('the beam audio needs the token (server/http/upgrade-auth.ts: "listen" paths); from --token or NULLSTEER_TOKEN', { timeout: 60_000 }, async () => {
+    const lines: string[] = [];
+    expect(await listenCommand(['--beam', String(beamId), '--url', svc.url, '--seconds', '0.1'], { out: new Sink(), err: (l) => lines.push(l), env: {} })).toBe(1);
+    expect(lines.at(-1)).toMatch(/^nullsteer listen: \/api\/beams\/audio: HTTP 401 .*\(this server needs a token: --token or NULLSTEER_TOKEN\)$/);
+    lines.length = 0;
+    expect(await listenCommand(['--beam', String(beamId), '--url', svc.url, '--seconds', '0.1', '--token', 'wrong-token-0123456789'], { out: new Sink(), err: (l) => lines.push(l), env: {} })).toBe(1);
+    expect(lines.at(-1)).toMatch(/HTTP 401 .*\(the token was refused\)$/);
+    const out = new Sink();
+    expect(await listenCommand(['--beam', String(beamId), '--url', svc.url, '--seconds', '0.1'], { out, err: () => undefined, env: { NULLSTEER_TOKEN: TOKEN } })).toBe(0);
+    expect(out.bytes().length).toBe(4800 * 4);
+  });
+});
+
 describe('nullsteer listen against a stand-in server', () => {
   let server: Server;
   let base = '';
