@@ -12,20 +12,34 @@ export class BeamSubscriber {
   readonly samples: Float32Array;
   readonly have: Uint8Array;
   frames = 0;
-  maxChannels = 0;
+  /** Close code once closed (1013: the server found this listener too slow), else null. */
+  closeCode: number | null = null;
+  /** Messages that were not frames of this channel, or held NaN/∞. */
+  refused = 0;
+  messages = 0;
+  /** One past the highest sample index received. */
+  end = -1;
 
   constructor(url: string, readonly channel: number, maxSamples = 48000 * 60) {
     this.samples = new Float32Array(maxSamples);
     this.have = new Uint8Array(maxSamples);
     this.ws = new WebSocket(url);
     this.ws.on('error', () => undefined);
+    this.ws.on('close', (code) => (this.closeCode = code));
     this.ws.on('message', (data: Buffer, isBinary: boolean) => {
+      this.messages++;
       if (!isBinary) return;
       const r = decodeFrame(new Uint8Array(data.buffer, data.byteOffset, data.byteLength));
-      if (!r.ok || r.frame.channels <= channel) return;
+      if (!r.ok || r.frame.channels <= channel) {
+        this.refused++;
+        return;
+      }
       const f = r.frame;
       const planar = new Float32Array(f.channels * f.samplesPerChannel);
-      if (!decodeSamples(f, planar)) return;
+      if (!decodeSamples(f, planar)) {
+        this.refused++;
+        return;
+      }
       if (this.base < 0) this.base = f.firstSample;
       for (let i = 0; i < f.samplesPerChannel; i++) {
         const k = f.firstSample + i - this.base;
@@ -34,6 +48,7 @@ export class BeamSubscriber {
         this.have[k] = 1;
       }
       this.frames++;
+      this.end = Math.max(this.end, f.firstSample + f.samplesPerChannel);
     });
   }
 
@@ -51,6 +66,17 @@ export class BeamSubscriber {
     if (this.base < 0 || k < 0 || k + n > this.samples.length) return null;
     for (let i = 0; i < n; i++) if (!this.have[k + i]) return null;
     return this.samples.slice(k, k + n);
+  }
+
+  /**
+   * What the server sent for [first, first + n), once the stream has passed first + n: the values
+   * and whether each index was sent at all (a jump in the stream leaves indices unsent); null
+   * before that, or when the range starts before this listener's first frame.
+   */
+  window(first: number, n: number): { values: Float32Array; sent: Uint8Array } | null {
+    const k = first - this.base;
+    if (this.base < 0 || k < 0 || k + n > this.samples.length || first + n > this.end) return null;
+    return { values: this.samples.slice(k, k + n), sent: this.have.slice(k, k + n) };
   }
 
   close(): void {

@@ -43,16 +43,23 @@ describe('JitterBuffer', () => {
     expect(out[0]).toBe(1);
   });
 
-  it('never holds more than its capacity: the oldest are dropped and counted, the index follows', () => {
+  it('never holds more than its capacity: the oldest are dropped down to the target and counted, the index follows', () => {
     const b = new JitterBuffer({ capacitySamples: 256, targetSamples: 128 });
-    for (let k = 0; k < 10; k++) b.push(ramp(k * 100, 100), 0, 100, k * 100);
-    expect(b.size).toBe(256);
-    expect(b.droppedSamples).toBe(1000 - 256);
-    expect(b.readIndex).toBe(1000 - 256);
+    // Pushes of 100 (worked by hand): sizes 100, 200, then 300 > 256 drops 172 so that 128 are
+    // left, 228, then 328 drops 200 (→ 128), …: the pushes k = 2, 4, 6, 8 drop 172, 200, 200, 200.
+    let maxSize = 0;
+    for (let k = 0; k < 10; k++) {
+      b.push(ramp(k * 100, 100), 0, 100, k * 100);
+      maxSize = Math.max(maxSize, b.size);
+    }
+    expect(maxSize).toBeLessThanOrEqual(256);
+    expect(b.droppedSamples).toBe(172 + 3 * 200);
+    expect(b.size).toBe(228);
+    expect(b.readIndex).toBe(772);
     const out = new Float32Array(256);
-    expect(b.pull(out)).toBe(256);
-    expect(out[0]).toBe(744);
-    expect(out[255]).toBe(999);
+    expect(b.pull(out)).toBe(228);
+    expect(out[0]).toBe(772);
+    expect(out[227]).toBe(999);
     // One push larger than the whole ring keeps its newest part (the stream continues at 1000).
     b.push(ramp(0, 600), 0, 600, 1000);
     expect(b.size).toBe(256);

@@ -161,7 +161,11 @@ export class BeamPlayer {
     };
     ws.onclose = (ev) => {
       if (gen !== this.#generation) return;
-      this.#fail(ev.code === 1013 ? 'the server closed the audio: this page did not keep up (1013)' : `the beam audio closed (${ev.code}${ev.reason ? ` ${ev.reason}` : ''})`);
+      const why =
+        ev.code === 1013 ? 'the server closed the audio: this page did not keep up (1013)'
+        : ev.code === 1006 ? 'the beam audio was refused or cut off (1006): the server may need a token, or be gone'
+        : `the beam audio closed (${ev.code}${ev.reason ? ` ${ev.reason}` : ''})`;
+      this.#fail(why);
     };
   }
 

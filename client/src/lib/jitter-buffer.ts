@@ -3,8 +3,10 @@
  * (beam-player-worklet.ts). A ring of fixed capacity, allocated once:
  * - it starts (and restarts after an underrun) only once `targetSamples` are buffered, so small
  *   irregularities in the WebSocket's delivery do not reach the ear;
- * - when a push would overfill it, the oldest samples are dropped and counted (`droppedSamples`):
- *   the delay stays bounded by the capacity whatever the clocks do;
+ * - when a push would overfill it, the oldest samples are dropped and counted (`droppedSamples`),
+ *   down to the target: the delay stays bounded by the capacity whatever the clocks do, and a
+ *   sender's clock a little faster than the sound card's costs one skip now and then, not a small
+ *   one at every push;
  * - a pull that finds it empty while playing plays zeros, counted as underrun samples and events.
  * It tracks the stream's sample index of its read position (`readIndex`), so what is played can be
  * matched to what the server sent.
@@ -69,8 +71,8 @@ export class JitterBuffer {
       offset += lost;
       n = cap;
     }
-    const over = this.#size + n - cap;
-    if (over > 0) this.#dropOldest(over);
+    // Full: drop the oldest so that the target is left after this push (all of them when n > target).
+    if (this.#size + n > cap) this.#dropOldest(Math.min(this.#size, this.#size + n - this.target));
     let w = (this.#read + this.#size) % cap;
     const ring = this.#ring;
     for (let i = 0; i < n; i++) {
