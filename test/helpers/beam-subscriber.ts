@@ -60,14 +60,6 @@ export class BeamSubscriber {
     });
   }
 
-  /** Samples [first, first + n) as the server sent them, or null when any is missing. */
-  range(first: number, n: number): Float32Array | null {
-    const k = first - this.base;
-    if (this.base < 0 || k < 0 || k + n > this.samples.length) return null;
-    for (let i = 0; i < n; i++) if (!this.have[k + i]) return null;
-    return this.samples.slice(k, k + n);
-  }
-
   /**
    * What the server sent for [first, first + n), once the stream has passed first + n: the values
    * and whether each index was sent at all (a jump in the stream leaves indices unsent); null
