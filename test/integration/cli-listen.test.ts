@@ -242,6 +242,57 @@ describe('nullsteer listen against a stand-in server', () => {
     expect(lines.at(-1)).toMatch(/wrote 640 samples \(0\.040 s\) of beam 7 from sample index 5000; gaps 1 \(100 zero samples\)/);
   });
 
+  it('a beam added mid-stream: frames until the list is fetched again become zeros of their length, then the beam plays on', async () => {
+    // Its own stand-in: 2 beams for frames 0–2, then a third beam (3 channels) from frame 3; the
+    // list says so from its second request, and frames 4–9 are sent once that request was answered.
+    let listRequests = 0;
+    let socket: import('ws').WebSocket | null = null;
+    const frame = (k: number, channels: number) => {
+      const first = 8000 + 100 * k;
+      const x = new Float32Array(100 * channels);
+      for (let i = 0; i < 100; i++) for (let c = 0; c < channels; c++) x[channels * i + c] = c === 1 ? 1000 + first + i : -1;
+      return encodeFrame({ streamId: 1, sequence: k, firstSample: first, sampleRateHz: 16000, channels, samplesPerChannel: 100, encoding: 'float32' }, x);
+    };
+    const srv = createServer((req, res) => {
+      res.setHeader('content-type', 'application/json');
+      if (req.url === '/api/beams') {
+        listRequests++;
+        const beams = [{ id: 3, azimuthDeg: 10, method: 'mvdr' }, { id: 7, azimuthDeg: 200, method: 'mvdr' }, ...(listRequests > 1 ? [{ id: 9, azimuthDeg: 300, method: 'mvdr' }] : [])];
+        res.end(JSON.stringify({ beams }));
+        if (listRequests === 2) res.on('finish', () => { for (let k = 4; k < 10; k++) socket?.send(frame(k, 3)); });
+      } else res.end(JSON.stringify({ streamOut: { wsPath: '/a' } }));
+    });
+    const w = new WebSocketServer({ server: srv, path: '/a' });
+    w.on('connection', (ws) => {
+      socket = ws;
+      for (let k = 0; k < 3; k++) ws.send(frame(k, 2));
+      ws.send(frame(3, 3));
+    });
+    await new Promise<void>((r) => srv.listen(0, '127.0.0.1', () => r()));
+    try {
+      const out = new Sink();
+      const lines: string[] = [];
+      const code = await listenCommand(['--beam', '7', '--url', `http://127.0.0.1:${(srv.address() as { port: number }).port}`, '--seconds', String(1000 / 16000)], { out, err: (l) => lines.push(l), env: {} });
+      expect(code, lines.join('\n')).toBe(0);
+      const x = floats(out.bytes());
+      expect(x).toHaveLength(1000);
+      // Frames 0–2 as sent; then a run of zeros from frame 3 (skipped: the list was stale), whole
+      // frames long; then the beam again, to the end (frame 9 is the server's).
+      expect(x.slice(0, 300)).toEqual(Array.from({ length: 300 }, (_, i) => 9000 + i));
+      let z = 300;
+      while (x[z] === 0) z++;
+      expect((z - 300) % 100).toBe(0);
+      expect(z).toBeGreaterThanOrEqual(400);
+      expect(z).toBeLessThan(1000);
+      expect(x.slice(z)).toEqual(Array.from({ length: 1000 - z }, (_, i) => 9000 + z + i));
+      expect(lines.at(-1)).toMatch(new RegExp(`gaps 1 \\(${z - 300} zero samples\\).*while the beam list was stale ${(z - 300) / 100}$`));
+      expect(listRequests).toBe(2);
+    } finally {
+      w.close();
+      await new Promise((r) => srv.close(r));
+    }
+  });
+
   it('says when the server cannot be reached', async () => {
     // A port that was free a moment ago (bound and closed again).
     const s = createServer();
