@@ -92,6 +92,10 @@ export class BeamPlayer {
     this.#volumeDb = v;
     this.#post({ type: 'volume', db: v });
   }
+  /** Audio dropped by the full jitter buffer so far, ms. */
+  get droppedMs(): number | null {
+    return this.#stats && this.#sampleRateHz ? (1000 * this.#stats.droppedSamples) / this.#sampleRateHz : null;
+  }
   /** Buffered audio now, ms. */
   get bufferedMs(): number | null {
     return this.#stats && this.#sampleRateHz ? (1000 * this.#stats.bufferedSamples) / this.#sampleRateHz : null;
