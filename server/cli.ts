@@ -8,9 +8,10 @@ commands:
   send    stream a WAV or raw file to a server as ingest frames
   analyze scan a WAV or raw recording offline: spectra and peaks (table or --json)
   simulate write the built-in scene as heard by an array to a WAV file
+  listen  write one beam's live audio to standard output (float32, for aplay or sox)
 run \`nullsteer <command> --help\` for a command's options.`;
 
-const COMMANDS = ['serve', 'send', 'analyze', 'simulate'];
+const COMMANDS = ['serve', 'send', 'analyze', 'simulate', 'listen'];
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
@@ -28,6 +29,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'simulate': {
       const { simulateCommand } = await import('./tools/simulate.ts');
       return simulateCommand(rest);
+    }
+    case 'listen': {
+      const { listenMain } = await import('./tools/listen.ts');
+      return listenMain(rest);
     }
     case undefined:
     case '-h':

@@ -13,6 +13,7 @@ const FLAGS = ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', 
 export const browserAvailable = existsSync(CHROMIUM) && existsSync(`${CLIENT_DIST}index.html`);
 if (!browserAvailable && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} and a built client (${CLIENT_DIST}); .ci/run installs both`);
 
-export function launchBrowser(): Promise<Browser> {
-  return chromium.launch({ executablePath: CHROMIUM, args: FLAGS });
+/** @param extraArgs more chromium flags for one test (e.g. the autoplay policy of the listening test) */
+export function launchBrowser(extraArgs: string[] = []): Promise<Browser> {
+  return chromium.launch({ executablePath: CHROMIUM, args: [...FLAGS, ...extraArgs] });
 }
