@@ -11,7 +11,7 @@ import { type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import WebSocket from 'ws';
 import type { Service } from '../../server/service.ts';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { faultyRing, RING, ringFrames } from '../helpers/faulty-ring.ts';
 import { startTestService, waitFor } from '../helpers/service.ts';
 
@@ -30,12 +30,7 @@ describe.skipIf(!browserAvailable)('array-check panel in a browser', () => {
     writeFileSync(arrayFile, JSON.stringify({ name: 'e2e ring', positions: RING }, null, 2));
     svc = await startTestService({ array: { file: arrayFile }, engine: { workers: 1 }, processing: { bandLowHz: 300, bandHighHz: 6000 } });
     browser = await launchBrowser();
-    page = await browser.newPage({ viewport: { width: 1280, height: 1400 } });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(svc.url);
+    page = await openDashboard(browser, svc.url, problems, { width: 1280, height: 1400 });
     await page.getByTestId('array-check-panel').waitFor({ timeout: 15_000 });
   }, 60_000);
 

@@ -10,7 +10,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { type Browser, type Locator, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
 import { plainNumber, tidy } from '../../shared/numbers.ts';
@@ -59,12 +59,7 @@ describe.skipIf(!browserAvailable)('direction history axes', () => {
     svc = await startService(loaded);
     browser = await launchBrowser();
     // A short window: the two histories get little height each, where labels used to collide.
-    page = await browser.newPage({ viewport: { width: 1280, height: 720 } });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(`${svc.url}/`);
+    page = await openDashboard(browser, svc.url, problems, { width: 1280, height: 720 });
   }, 60_000);
 
   afterAll(async () => {

@@ -15,7 +15,7 @@ import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import WebSocket from 'ws';
 import { encodeFrame } from '../../shared/frame.ts';
 import type { Service } from '../../server/service.ts';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { getStatus, sleep, startTestService, waitFor } from '../helpers/service.ts';
 
 vi.setConfig({ testTimeout: 90_000 });
@@ -80,12 +80,7 @@ describe.skipIf(!browserAvailable)('the Input panel against a network source', (
   beforeAll(async () => {
     svc = await startTestService({ input: { eligibleAfterMs: 100 } });
     browser = await launchBrowser();
-    page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(`${svc.url}/`);
+    page = await openDashboard(browser, svc.url, problems, { width: 1280, height: 800 });
     await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 20_000 });
   }, 60_000);
 

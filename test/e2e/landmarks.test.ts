@@ -9,7 +9,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { type Browser, type Locator, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
 
@@ -56,12 +56,7 @@ describe.skipIf(!browserAvailable)('landmarks in the dashboard', () => {
     const loaded = await loadConfig({ env: {}, layers: [{ server: { httpPort: 0 }, array: { file: ARRAY }, engine: { workers: 1 }, processing: { azimuthStepDeg: 1, bandLowHz: 1000 }, outputs: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-lm-rec-')) }, data: { dir: mkdtempSync(join(tmpdir(), 'nullsteer-e2e-lm-data-')) } }] });
     svc = await startService(loaded);
     browser = await launchBrowser();
-    page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(`${svc.url}/`);
+    page = await openDashboard(browser, svc.url, problems, { width: 1280, height: 800 });
   }, 60_000);
 
   afterAll(async () => {

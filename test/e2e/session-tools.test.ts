@@ -8,7 +8,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { type Browser, type Download, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
 import { COLORMAP_RGB, COLORMAP_SIZE, NO_DATA_RGB } from '../../shared/colormap.ts';
@@ -50,12 +50,7 @@ describe.skipIf(!browserAvailable)('session tools in a browser', () => {
     svc = await start(0);
     port = svc.httpPort;
     browser = await launchBrowser();
-    page = await browser.newPage({ viewport: { width: 1280, height: 900 }, acceptDownloads: true });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(`http://127.0.0.1:${port}/`);
+    page = await openDashboard(browser, `http://127.0.0.1:${port}`, problems); // downloads are accepted by default
     await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 15_000 });
   }, 60_000);
 

@@ -10,7 +10,7 @@
  */
 import { type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
-import { browserAvailable, launchBrowser } from '../helpers/browser.ts';
+import { browserAvailable, launchBrowser, openDashboard } from '../helpers/browser.ts';
 import { loadConfig } from '../../server/config/load.ts';
 import { startService, type Service } from '../../server/service.ts';
 import { schemaLeaves } from '../../server/config/schema.ts';
@@ -41,12 +41,7 @@ describe.skipIf(!browserAvailable)('processing panel: refused values and the τ 
     svc = await startService(loaded);
     base = `http://127.0.0.1:${svc.httpPort}`;
     browser = await launchBrowser();
-    page = await browser.newPage({ viewport: { width: 1280, height: 900 } });
-    page.on('console', (m) => {
-      if (m.type() === 'error') problems.push(`console: ${m.text()}`);
-    });
-    page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
-    await page.goto(`${base}/`);
+    page = await openDashboard(browser, base, problems, { width: 1280, height: 900 });
     await page.getByTestId('connection').filter({ hasText: 'online' }).waitFor({ timeout: 20_000 });
     await field().waitFor({ timeout: 20_000 });
   }, 60_000);

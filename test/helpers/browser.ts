@@ -3,7 +3,7 @@
  * never a downloaded browser. In CI a missing browser or client build is an error, not a skip.
  */
 import { existsSync } from 'node:fs';
-import { chromium, type Browser } from 'playwright-core';
+import { chromium, type Browser, type Page } from 'playwright-core';
 import { CLIENT_DIST } from '../../server/service.ts';
 
 export const CHROMIUM = '/usr/bin/chromium';
@@ -16,4 +16,18 @@ if (!browserAvailable && process.env.CI) throw new Error(`e2e needs ${CHROMIUM} 
 /** @param extraArgs more chromium flags for one test (e.g. the autoplay policy of the listening test) */
 export function launchBrowser(extraArgs: string[] = []): Promise<Browser> {
   return chromium.launch({ executablePath: CHROMIUM, args: [...FLAGS, ...extraArgs] });
+}
+
+/**
+ * A new page on the dashboard at `url` (the server's base URL); the page's console errors and
+ * uncaught errors are collected in `problems`, which the tests expect to stay empty.
+ */
+export async function openDashboard(browser: Browser, url: string, problems: string[], viewport = { width: 1280, height: 900 }): Promise<Page> {
+  const page = await browser.newPage({ viewport });
+  page.on('console', (m) => {
+    if (m.type() === 'error') problems.push(`console: ${m.text()}`);
+  });
+  page.on('pageerror', (e) => problems.push(`page: ${e.message}`));
+  await page.goto(`${url}/`);
+  return page;
 }
