@@ -23,8 +23,11 @@
  *   taken as zero, so a faulty reference does not shift everyone.
  * - Gains from the covariance diagonal (band power per channel) against the median channel.
  */
+import { MAX_CALIBRATION_DELAY_US, MAX_CALIBRATION_GAIN_DB } from '../config/array-file.ts';
 import type { ChannelCalibration } from '../../shared/types.ts';
 import { MultiChannelStft } from './stft.ts';
+export type { ArrayCheckResult, ArrayFault, ChannelCheck, ChannelFault } from '../../shared/array-check.ts';
+import type { ArrayCheckResult, ArrayFault, ChannelCheck, ChannelFault } from '../../shared/array-check.ts';
 
 /**
  * A delay residual beyond this many µs is a misplaced microphone: 20 µs is 6.9 mm of path at
@@ -57,9 +60,6 @@ export const DEFAULT_CHECK_FFT_SIZE = 1024;
 /** Snapshots kept for the direction scan, at most; and at most this many doubles in all (64 MiB). */
 const SCAN_SNAPSHOTS = 64;
 const SCAN_DOUBLES = 8 * 2 ** 20;
-/** Calibration limits of the array file (server/config/array-file.ts), repeated to stay pure. */
-const MAX_GAIN_DB = 40;
-const MAX_DELAY_US = 1000;
 
 export interface ArrayCheckInput {
   /** Planar float32 samples, channel c sample i at data[c·frames + i], full scale ±1. */
@@ -77,49 +77,6 @@ export interface ArrayCheckInput {
   direction?: { azimuthDeg: number; elevationDeg?: number } | null;
   /** Delay residual (µs) above which a microphone is called misplaced (default DEFAULT_MISPLACED_BOUND_US). */
   misplacedBoundUs?: number;
-}
-
-export type ChannelFault = 'dead' | 'hot' | 'clipping' | 'inverted' | 'swapped' | 'misplaced' | 'incoherent';
-
-export interface ChannelCheck {
-  channel: number;
-  /** Band power, dB re full scale. */
-  levelDb: number;
-  /** Band power against the median channel, dB (null for a dead channel). */
-  gainDb: number | null;
-  /** Delay residual against the prediction at this channel's own position, µs (null: not measurable). */
-  delayUs: number | null;
-  /** Phase intercept of the residual cross-spectrum, degrees in (−180, 180] (≈ ±180: inverted). */
-  phaseDeg: number | null;
-  /** Band-mean magnitude-squared coherence with the reference channel. */
-  coherence: number | null;
-  /** Fraction of samples at or beyond CLIP_LEVEL. */
-  clippedFraction: number;
-  /** The array position whose signal this channel carries (its own unless swapped). */
-  carriesPosition: number;
-  /** For a misplaced microphone: how far it sits from its position along the source direction, mm (+: toward the source). */
-  offsetMm: number | null;
-  faults: ChannelFault[];
-}
-
-export interface ArrayFault {
-  kind: 'swapped' | 'misplaced' | 'inverted' | 'dead' | 'hot' | 'clipping' | 'incoherent';
-  channels: number[];
-  /** In plain words, e.g. "channels 3 and 5 look swapped". */
-  text: string;
-}
-
-export interface ArrayCheckResult {
-  direction: { azimuthDeg: number; elevationDeg: number; from: 'stated' | 'scan' };
-  bandHz: [number, number];
-  fftSize: number;
-  snapshots: number;
-  referenceChannel: number;
-  misplacedBoundUs: number;
-  channels: ChannelCheck[];
-  faults: ArrayFault[];
-  /** Undoes the measured faults (position-indexed; see ChannelCalibration). */
-  calibration: ChannelCalibration;
 }
 
 /** Far-field arrival times τ_m = −(p_m·u)/c, seconds, for unit vector u toward the source. */
@@ -522,9 +479,9 @@ export function checkArray(input: ArrayCheckInput): ArrayCheckResult {
   for (let p = 0; p < M; p++) {
     const q = order[p];
     const g = dead[q] ? 0 : levelDb[q] - medLive;
-    gainDb.push(tidyNum(Math.max(-MAX_GAIN_DB, Math.min(MAX_GAIN_DB, round(g, 0.01))), 2));
+    gainDb.push(tidyNum(Math.max(-MAX_CALIBRATION_GAIN_DB, Math.min(MAX_CALIBRATION_GAIN_DB, round(g, 0.01))), 2));
     const d = heard[q] ? residAs(q, p) * 1e6 : 0;
-    delayUs.push(tidyNum(Math.max(-MAX_DELAY_US, Math.min(MAX_DELAY_US, round(d, 0.1))), 1));
+    delayUs.push(tidyNum(Math.max(-MAX_CALIBRATION_DELAY_US, Math.min(MAX_CALIBRATION_DELAY_US, round(d, 0.1))), 1));
     polarity.push(inverted[q] ? -1 : 1);
   }
   const calibration: ChannelCalibration = { gainDb, delayUs };

@@ -11,9 +11,12 @@
  * spoil the cross-spectra), at most MAX_RESTARTS times; the capture gives up when the input does
  * not deliver within its length plus CAPTURE_GRACE_S.
  */
+import { describeCalibration } from '../dsp/calibration.ts';
 import { Worker } from 'node:worker_threads';
 import type { Block, BlockSink, ChannelCalibration } from '../../shared/types.ts';
 import { checkArray, DEFAULT_MISPLACED_BOUND_US, type ArrayCheckInput, type ArrayCheckResult } from '../dsp/array-check.ts';
+export type { ArrayCheckAnswer } from '../../shared/array-check.ts';
+import type { ArrayCheckAnswer } from '../../shared/array-check.ts';
 
 /** Largest capture, bytes (float32 planar): 10 s of 64 channels at 48 kHz would be 123 MB; beyond this the capture is shortened. */
 export const MAX_CHECK_BYTES = 64 * 2 ** 20;
@@ -32,18 +35,6 @@ export interface ArrayCheckRequest {
   elevationDeg?: number;
   seconds?: number;
   misplacedBoundUs?: number;
-}
-
-export interface ArrayCheckAnswer extends ArrayCheckResult {
-  startedAt: string;
-  finishedAt: string;
-  /** Seconds of input analysed (the request's, or fewer when MAX_CHECK_BYTES shortened it). */
-  seconds: number;
-  secondsRequested: number;
-  /** First sample index of the analysed span on the stream's clock. */
-  sampleIndex: number;
-  /** Captures restarted because of a gap or a clock jump. */
-  restarts: number;
 }
 
 export type CheckFailure = { kind: 'running'; startedAt: string } | { kind: 'no-input'; got: number; want: number; waitedS: number; detail: string } | { kind: 'failed'; detail: string };
@@ -196,10 +187,8 @@ function analyseInWorker(input: ArrayCheckInput): Promise<ArrayCheckResult> {
 
 /** A calibration for status: what it corrects, in a few numbers. */
 export function calibrationSummary(cal: ChannelCalibration | undefined): { inverted: number[]; reordered: number[] } {
-  return {
-    inverted: (cal?.polarity ?? []).flatMap((s, p) => (s < 0 ? [p] : [])),
-    reordered: (cal?.channelOrder ?? []).flatMap((q, p) => (q !== p ? [p] : [])),
-  };
+  const d = describeCalibration(cal);
+  return { inverted: d?.inverted ?? [], reordered: d?.reordered ?? [] };
 }
 
 export interface ArrayCheckState {
