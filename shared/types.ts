@@ -3,6 +3,7 @@
  */
 
 import type { Landmark } from './landmarks.ts';
+import type { Pose } from './site.ts';
 
 /** Sensor positions of one array, metres, in the array's own x–y–z frame. */
 export interface ArrayGeometry {
@@ -19,6 +20,8 @@ export interface ArrayGeometry {
   inputs?: InputMapping[];
   /** Named azimuths of the surroundings (shared/landmarks.ts), azimuths in [0, 360). */
   landmarks?: Landmark[];
+  /** Where the array stands on a site plan (shared/site.ts); needed to locate sources with other arrays. */
+  pose?: Pose;
 }
 
 /**

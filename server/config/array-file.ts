@@ -2,13 +2,15 @@
  * Array geometry files: `{ "name": …, "positions": [[x, y, z], …] }` in metres, optionally
  * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": …, "polarity": […], "channelOrder": […] }`
  * (the lists one entry per position, each part optional),
- * `"landmarks": [{ "name": "gate", "azimuthDeg": 35 }]` (shared/landmarks.ts); more fields allowed
+ * `"landmarks": [{ "name": "gate", "azimuthDeg": 35 }]` (shared/landmarks.ts),
+ * `"pose": { "positionM": [x, y, z], "headingDeg": h }` (its place on a site plan, shared/site.ts); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
 import type { ArrayGeometry, ChannelCalibration, InputMapping } from '../../shared/types.ts';
 import { ConfigError, type ConfigIssue } from './validate.ts';
 import { validateLandmarks } from '../../shared/landmarks.ts';
+import { SiteMessageError, validatePose, type Pose } from '../../shared/site.ts';
 
 export const MAX_SENSORS = 1024;
 /** Coordinates beyond this are almost certainly millimetres or a typo, not metres. */
@@ -52,11 +54,21 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
   const calibration = o.calibration === undefined ? undefined : validateCalibration(o.calibration, pos.length, add);
   const inputs = o.inputs === undefined ? undefined : validateInputs(o.inputs, pos.length, add);
   const landmarks = o.landmarks === undefined ? undefined : validateLandmarks(o.landmarks, 'landmarks', add);
+  let pose: Pose | undefined;
+  if (o.pose !== undefined) {
+    try {
+      pose = validatePose('pose', o.pose);
+    } catch (e) {
+      if (!(e instanceof SiteMessageError)) throw e;
+      add(e.path, o.pose, e.message.slice(e.path.length + 2));
+    }
+  }
   if (issues.length > 0) throw new ConfigError(issues);
   const g: ArrayGeometry = { name: typeof name === 'string' && name ? name : where, description: o.description as string | undefined, positions: out };
   if (calibration) g.calibration = calibration;
   if (inputs) g.inputs = inputs;
   if (landmarks) g.landmarks = landmarks;
+  if (pose) g.pose = pose;
   return g;
 }
 

@@ -21,6 +21,7 @@ export const ENV_FIELDS: Record<string, string> = {
   NULLSTEER_SOURCE: 'source.kind',
   NULLSTEER_ARRAY: 'array.file',
   NULLSTEER_UDP_PORT: 'ingest.udp.port',
+  NULLSTEER_NATS_TOKEN: 'cluster.token',
 };
 
 /** Command-line flags of `serve` that set one field each (besides --config and --set). */
@@ -31,6 +32,9 @@ export const FLAG_FIELDS: Record<string, string> = {
   source: 'source.kind',
   array: 'array.file',
   token: 'server.token',
+  nats: 'cluster.natsUrl',
+  site: 'cluster.site',
+  node: 'cluster.node',
 };
 
 export interface LoadOptions {

@@ -190,6 +190,26 @@ export const CONFIG_SCHEMA: FieldSpec = {
         seed: { kind: 'int', min: 0, max: 0xffffffff, doc: 'Seed of the built-in scenario (same seed, same signals).' },
         blockFrames: { kind: 'int', min: 16, max: 16384, doc: 'Samples per channel in each simulated block; with more than 64 channels the blocks are shortened in proportion (at least 32), so that rendering one never holds the server for long.' },
         speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound used to place the simulated sources, m/s.' },
+        scene: { kind: 'string', nullable: true, maxLength: 4096, doc: 'A site scene file (sources in the site frame; README "A site of arrays"): the simulator renders what this array, at its pose on the site plan, hears of it, on a sample clock taken from UTC so that several servers render one scene. null: the built-in scene.' },
+      },
+    },
+    cluster: {
+      kind: 'object',
+      fields: {
+        natsUrl: { kind: 'string', nullable: true, maxLength: 300, pattern: /^nats:\/\/(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9.-]+)(:\d{1,5})?$/, patternDoc: 'nats://host:port', doc: 'The site\'s NATS broker (with JetStream). null: this server publishes nothing and runs alone.' },
+        site: { kind: 'string', maxLength: 32, pattern: /^[A-Za-z0-9_-]{1,32}$/, patternDoc: '1–32 letters, digits, _ or -', doc: 'Site name: the subjects are nullsteer.SITE.NODE.* and the JetStream stream is NULLSTEER_SITE.' },
+        node: { kind: 'string', maxLength: 32, pattern: /^[A-Za-z0-9_-]{1,32}$/, patternDoc: '1–32 letters, digits, _ or -', doc: 'This server\'s node name on the site (unique per site).' },
+        token: { kind: 'string', nullable: true, maxLength: 256, pattern: /^[\x21-\x7e]{1,256}$/, patternDoc: 'printable ASCII, no spaces', doc: 'Token for the broker, when it asks for one (better given as NULLSTEER_NATS_TOKEN than in a file).' },
+        durableMaxAgeS: { kind: 'int', min: 60, max: 31536000, doc: 'How long the site\'s JetStream stream keeps journal and peak entries, seconds.' },
+        durableMaxBytes: { kind: 'int', min: 1048576, max: 1099511627776, doc: 'Most bytes the site\'s JetStream stream keeps (oldest entries go first).' },
+        pendingMaxEntries: { kind: 'int', min: 16, max: 1000000, doc: 'Journal and peak entries held while the broker is unreachable; beyond it the oldest peak entries are dropped and counted (journal entries are kept first).' },
+      },
+    },
+    site: {
+      kind: 'object',
+      fields: {
+        windowS: { kind: 'number', min: 0.1, max: 10, doc: 'The site service locates sources per window of this length, aligned on UTC, seconds.' },
+        offlineAfterS: { kind: 'number', min: 0.5, max: 60, doc: 'A node not heard from (status every second) for this long is shown offline and not used.' },
       },
     },
   },
@@ -221,7 +241,9 @@ export interface Config {
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string; streamMaxClients: number; streamQueueFrames: number; minFreeBytes: number };
   data: { dir: string; journalMaxBytes: number; minFreeBytes: number };
-  simulator: { seed: number; blockFrames: number; speedOfSoundMps: number };
+  simulator: { seed: number; blockFrames: number; speedOfSoundMps: number; scene: string | null };
+  cluster: { natsUrl: string | null; site: string; node: string; token: string | null; durableMaxAgeS: number; durableMaxBytes: number; pendingMaxEntries: number };
+  site: { windowS: number; offlineAfterS: number };
 }
 
 /** Walk the schema and list every leaf with its dotted path (for docs and `--set`). */
