@@ -41,6 +41,11 @@ export interface LocatedSource {
   ambiguous: boolean;
   /** RMS of the bearings' misses at the position, degrees. */
   residualDeg: number;
+  /**
+   * UTC the position refers to, ms: sound heard at an array left the source r/c earlier, so a fix
+   * is where the source was at emission time (locate.ts). Absent: the window's UTC.
+   */
+  atUtcMs?: number;
 }
 
 /** A located source followed over windows. */
@@ -59,8 +64,23 @@ export interface TrackedSource extends LocatedSource {
   };
 }
 
+/**
+ * A track's position and velocity predicted for a window (tracker.ts `predict`), given to locate:
+ * its velocity moves a candidate to each bearing's emission time, and a two-array intersection near
+ * it counts as supported by a consistent track.
+ */
+export interface TrackHint {
+  id: string;
+  xM: number;
+  yM: number;
+  vxMps: number;
+  vyMps: number;
+  /** Covariance of the predicted (x, y), m² ([sxx, sxy, syy]). */
+  covXY: [number, number, number];
+}
+
 /** Locate the sources of one window from the bearings of every node that has a pose. */
-export type LocateWindow = (bearings: Bearing[], opts: { speedOfSoundMps: number; windowUtcMs: number }) => LocatedSource[];
+export type LocateWindow = (bearings: Bearing[], opts: { speedOfSoundMps: number; windowUtcMs: number; hints?: TrackHint[] }) => LocatedSource[];
 
 /** Follow located sources over windows (one instance per site service). */
 export interface SourceTracker {

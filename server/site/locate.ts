@@ -1,0 +1,476 @@
+/**
+ * Sources of one window from the bearings of the site's arrays (docs in README "A site of arrays →
+ * How sources are located").
+ *
+ * Fix. Bearings-only least squares, the maximum-likelihood fix for Gaussian bearing errors: minimise
+ * Σ (e_i/σ_i)², e_i the miss of bearing i at the position (site azimuth from the array to the
+ * position minus the measured azimuth), which for small misses is Σ (d_i/(r_i·σ_i))², d_i the
+ * perpendicular distance from the position to bearing line i and r_i its range. Started from the
+ * pseudo-linear estimate (the lines' normal equations weighted by 1/(r_i·σ_i)², Stansfield's
+ * estimator, R. G. Stansfield, J. IEE 94, 1947, from memory) and refined by Gauss–Newton on the
+ * angles. Its covariance is the inverse Fisher information J⁻¹, J = Σ g_i g_iᵀ/σ_i², g_i = ∂e_i/∂(x, y)
+ * = (−Δy, Δx)/r_i² (the Cramér–Rao bound of the fix, common practice), which gives the 1-σ ellipse and
+ * the radius of the circle of equal area √(a·b). Height, where bearings carry elevation, is the
+ * weighted mean of each array's z_i = z_array + ρ_i·tan(elevation_i) at the plan fix (weights
+ * 1/σ_z², σ_z = ρ_i·σ_i/cos²(elevation_i), the elevation's σ taken as the azimuth's).
+ *
+ * Association. Every pair of bearings of two different arrays whose rays cross in front of both
+ * arrays, at a crossing angle of at least MIN_CROSSING_DEG and within MAX_RANGE_M, is a candidate;
+ * each other array lends it its bearing of smallest normalised miss |e|/σ within GATE_SIGMA; the
+ * candidate is refitted on its supporters and refused if one of them then misses by more than the
+ * gate. Candidates are taken best first (most arrays, then the smallest χ² of misses plus the
+ * spread of the levels at 1 m, σ = LEVEL_SIGMA_DB, plus, when tracks are given, the normalised
+ * distance² to the nearest track's prediction capped at the gate), each bearing at most once. A candidate of two
+ * arrays is refused as a ghost when another array that heard something this window has the
+ * position within range and lends no bearing, unless a track predicts a source there (χ² 2-dof gate,
+ * 99 %); with two arrays only it is kept and flagged `ambiguous` when either array heard more than
+ * one source.
+ *
+ * Travel time. Sound heard at array i at UTC t_i left the source at t_i − r_i/c. A candidate near a
+ * track's prediction takes the track's velocity v and is located at the window's UTC: bearing i is
+ * taken to point at x + v·(t_i − r_i/c − t_window), i.e. from the array moved by −v·(…), and r_i is
+ * updated from the fix (three passes). Elsewhere the velocity is unknown and taken as zero, and the
+ * fix is reported at the mean emission time of its bearings (`atUtcMs`) for the tracker to place.
+ */
+import type { Bearing, LocatedSource, LocateWindow, TrackHint } from './types.ts';
+
+/** Gate on a bearing's miss at a candidate, in its σ. */
+export const GATE_SIGMA = 3;
+/** Farther than this from an array a crossing is refused, metres. */
+export const MAX_RANGE_M = 2000;
+/** Nearer than this to an array a crossing is refused (inside the array), metres. */
+export const MIN_RANGE_M = 0.5;
+/** Rays crossing at less than this angle are nearly parallel: refused, degrees. */
+export const MIN_CROSSING_DEG = 3;
+/** Spread of one array's level at 1 m about the source's, for scoring only, dB (chosen: directivity, ground, MVDR bias). */
+export const LEVEL_SIGMA_DB = 6;
+/** χ², 2 degrees of freedom, 99 % (common practice): a two-array crossing near a track's prediction. */
+export const TRACK_GATE_CHI2 = 9.21;
+/** Bearings read per window (the rest are left out); sources per window. */
+export const MAX_BEARINGS = 1024;
+export const MAX_SOURCES = 64;
+
+const RAD = Math.PI / 180;
+
+/** Angle to (−π, π]. */
+export function wrapPi(a: number): number {
+  const r = a - 2 * Math.PI * Math.floor((a + Math.PI) / (2 * Math.PI));
+  return r <= -Math.PI ? r + 2 * Math.PI : r;
+}
+
+export interface PlanFix {
+  xM: number;
+  yM: number;
+  /** Inverse Fisher information, m² [sxx, sxy, syy]. */
+  covXY: [number, number, number];
+  /** Σ (e_i/σ_i)² at the fix. */
+  chi2: number;
+  iterations: number;
+}
+
+/**
+ * The bearings-only least-squares fix on the plan (see the file's comment).
+ * @param ox, oy array origins, metres; thetaRad site azimuths; sigmaRad their σ (all length n ≥ 2)
+ * @returns null when the lines give no fix (parallel, or every start behind an array)
+ */
+export function bearingsFix(ox: ArrayLike<number>, oy: ArrayLike<number>, thetaRad: ArrayLike<number>, sigmaRad: ArrayLike<number>, start?: [number, number]): PlanFix | null {
+  const n = ox.length;
+  if (n < 2) return null;
+  let x: number;
+  let y: number;
+  if (start) {
+    [x, y] = start;
+  } else {
+    // Pseudo-linear start: n_i·(x − p_i) = 0 with n_i = (sin θ, −cos θ), weights 1/(r σ)², r from the
+    // previous pass (1 at first).
+    x = 0;
+    y = 0;
+    for (let pass = 0; pass < 2; pass++) {
+      let a = 0, b = 0, c = 0, u = 0, v = 0;
+      for (let i = 0; i < n; i++) {
+        const r2 = pass === 0 ? 1 : Math.max((x - ox[i]) ** 2 + (y - oy[i]) ** 2, 1e-6);
+        const w = 1 / (r2 * sigmaRad[i] * sigmaRad[i]);
+        const s = Math.sin(thetaRad[i]), k = -Math.cos(thetaRad[i]);
+        const d = s * ox[i] + k * oy[i];
+        a += w * s * s; b += w * s * k; c += w * k * k; u += w * s * d; v += w * k * d;
+      }
+      const det = a * c - b * b;
+      if (!(Math.abs(det) > 1e-12 * (a * c + 1e-300))) return null;
+      x = (c * u - b * v) / det;
+      y = (a * v - b * u) / det;
+    }
+  }
+  const cost = (px: number, py: number): number => {
+    let s = 0;
+    for (let i = 0; i < n; i++) {
+      const e = wrapPi(Math.atan2(py - oy[i], px - ox[i]) - thetaRad[i]) / sigmaRad[i];
+      s += e * e;
+    }
+    return s;
+  };
+  let f = cost(x, y);
+  let iterations = 0;
+  // Gauss–Newton on the angles, the step halved while it does not lower the cost.
+  for (; iterations < 100; iterations++) {
+    let a = 0, b = 0, c = 0, u = 0, v = 0;
+    for (let i = 0; i < n; i++) {
+      const dx = x - ox[i], dy = y - oy[i];
+      const r2 = Math.max(dx * dx + dy * dy, 1e-12);
+      const gx = -dy / r2, gy = dx / r2;
+      const w = 1 / (sigmaRad[i] * sigmaRad[i]);
+      const e = wrapPi(Math.atan2(dy, dx) - thetaRad[i]);
+      a += w * gx * gx; b += w * gx * gy; c += w * gy * gy; u -= w * gx * e; v -= w * gy * e;
+    }
+    const det = a * c - b * b;
+    if (!(det > 0)) return null;
+    let sx = (c * u - b * v) / det;
+    let sy = (a * v - b * u) / det;
+    let step = 1;
+    let fNew = cost(x + sx, y + sy);
+    while (fNew > f && step > 1e-6) {
+      step /= 2;
+      sx /= 2;
+      sy /= 2;
+      fNew = cost(x + sx, y + sy);
+    }
+    if (fNew > f) break;
+    x += sx;
+    y += sy;
+    f = fNew;
+    if (Math.hypot(sx, sy) < 1e-10 * (1 + Math.hypot(x, y))) break;
+  }
+  const cov = fisherCovariance(ox, oy, sigmaRad, x, y);
+  if (!cov) return null;
+  return { xM: x, yM: y, covXY: cov, chi2: f, iterations };
+}
+
+/** J⁻¹, J = Σ g gᵀ/σ², g = (−Δy, Δx)/r²: the covariance of the fix at (x, y), m². */
+export function fisherCovariance(ox: ArrayLike<number>, oy: ArrayLike<number>, sigmaRad: ArrayLike<number>, x: number, y: number): [number, number, number] | null {
+  let a = 0, b = 0, c = 0;
+  for (let i = 0; i < ox.length; i++) {
+    const dx = x - ox[i], dy = y - oy[i];
+    const r2 = Math.max(dx * dx + dy * dy, 1e-12);
+    const gx = -dy / r2, gy = dx / r2;
+    const w = 1 / (sigmaRad[i] * sigmaRad[i]);
+    a += w * gx * gx; b += w * gx * gy; c += w * gy * gy;
+  }
+  const det = a * c - b * b;
+  if (!(det > 1e-12 * a * c)) return null;
+  return [c / det, -b / det, a / det];
+}
+
+/** Semi-axes (m) and orientation (degrees from +x, in (−90, 90]) of the 1-σ ellipse of a covariance. */
+export function covarianceEllipse(cov: [number, number, number]): { majorM: number; minorM: number; angleDeg: number } {
+  const [a, b, c] = cov;
+  const mid = (a + c) / 2;
+  const half = Math.hypot((a - c) / 2, b);
+  return {
+    majorM: Math.sqrt(Math.max(mid + half, 0)),
+    minorM: Math.sqrt(Math.max(mid - half, 0)),
+    angleDeg: (0.5 * Math.atan2(2 * b, a - c)) / RAD,
+  };
+}
+
+interface Work {
+  b: Bearing;
+  node: number;
+  ox: number;
+  oy: number;
+  th: number;
+  sg: number;
+  used: boolean;
+}
+
+interface Candidate {
+  seed: [number, number];
+  members: number[];
+  fix: PlanFix;
+  /** Position's reference time and the velocity used (zero without a track). */
+  atUtcMs: number;
+  nodes: number;
+  score: number;
+  hinted: boolean;
+  ranges: number[];
+  /** The velocity the bearings were placed with (a track's; zero without). */
+  vx: number;
+  vy: number;
+  moving: boolean;
+}
+
+/** Locate the sources of one window (see the file's comment). */
+export const locateWindow: LocateWindow = (bearingsIn, opts) => {
+  const c = opts.speedOfSoundMps;
+  const tWin = opts.windowUtcMs;
+  const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, ...h.covXY].every(Number.isFinite));
+  const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
+  const merged = condenseRows(good);
+  const nodeNames = [...new Set(merged.map((b) => b.node))];
+  const work: Work[] = merged.map((b) => ({ b, node: nodeNames.indexOf(b.node), ox: b.originM[0], oy: b.originM[1], th: b.azimuthDeg * RAD, sg: Math.max(b.sigmaDeg, 1e-3) * RAD, used: false }));
+  const perNode = nodeNames.map((_, k) => work.filter((w) => w.node === k).length);
+  const multi = perNode.some((n) => n > 1);
+
+  const build = (i: number, j: number): Candidate | null => {
+    const A = work[i], B = work[j];
+    // Ray crossing: A.o + t·uA = B.o + s·uB.
+    const ua = [Math.cos(A.th), Math.sin(A.th)], ub = [Math.cos(B.th), Math.sin(B.th)];
+    const cross = ua[0] * ub[1] - ua[1] * ub[0];
+    if (Math.abs(cross) < Math.sin(MIN_CROSSING_DEG * RAD)) return null;
+    const dx = B.ox - A.ox, dy = B.oy - A.oy;
+    const t = (dx * ub[1] - dy * ub[0]) / cross;
+    const s = (dx * ua[1] - dy * ua[0]) / cross;
+    if (t < MIN_RANGE_M || s < MIN_RANGE_M || t > MAX_RANGE_M || s > MAX_RANGE_M) return null;
+    let x = A.ox + t * ua[0], y = A.oy + t * ua[1];
+    const hint = nearestHint(hints, x, y, [0, 0, 0]);
+    const vx = hint ? hint.vxMps : 0, vy = hint ? hint.vyMps : 0;
+    // Members: the seed pair and each other array's bearing of smallest normalised miss. At the
+    // crossing the miss spreads by the crossing's own uncertainty too: σ² + gᵀ C g, C the pair's J⁻¹.
+    const members = [i, j];
+    const pairCov = fisherCovariance([A.ox, B.ox], [A.oy, B.oy], [A.sg, B.sg], x, y);
+    if (!pairCov) return null;
+    for (let k = 0; k < nodeNames.length; k++) {
+      if (k === A.node || k === B.node) continue;
+      let best = -1, bestMiss = GATE_SIGMA;
+      for (let m = 0; m < work.length; m++) {
+        const W = work[m];
+        if (W.node !== k || W.used) continue;
+        const dx = x - W.ox, dy = y - W.oy;
+        const r2 = Math.max(dx * dx + dy * dy, 1e-12);
+        const gx = -dy / r2, gy = dx / r2;
+        const spread = W.sg * W.sg + gx * gx * pairCov[0] + 2 * gx * gy * pairCov[1] + gy * gy * pairCov[2];
+        const miss = Math.abs(missAt(W, x, y, vx, vy, tWin, c, hint !== null)) / Math.sqrt(spread);
+        if (miss <= bestMiss) { bestMiss = miss; best = m; }
+      }
+      if (best >= 0) members.push(best);
+    }
+    const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null);
+    if (!fitted) return null;
+    ({ x, y } = { x: fitted.fix.xM, y: fitted.fix.yM });
+    // Every member within the gate at the fit, in front of its array and within range.
+    for (let q = 0; q < members.length; q++) {
+      const W = work[members[q]];
+      if (Math.abs(missAt(W, x, y, vx, vy, tWin, c, hint !== null)) / W.sg > GATE_SIGMA) return null;
+      const r = fitted.ranges[q];
+      if (r < MIN_RANGE_M || r > MAX_RANGE_M) return null;
+    }
+    const nodes = members.length;
+    const hintD2 = hintDistance2(hints, x, y, fitted.fix.covXY);
+    const hinted = hintD2 <= TRACK_GATE_CHI2;
+    if (nodes === 2 && !hinted) {
+      // Ghost: another array heard something this window, has the position in range, and lends nothing.
+      for (let k = 0; k < nodeNames.length; k++) {
+        if (k === A.node || k === B.node || perNode[k] === 0) continue;
+        const o = work.find((w) => w.node === k)!;
+        if (Math.hypot(x - o.ox, y - o.oy) <= MAX_RANGE_M) return null;
+      }
+    }
+    // Score: χ² of the misses plus the spread of the levels at 1 m.
+    const levels = members.map((m, q) => work[m].b.levelDb + 20 * Math.log10(Math.max(fitted.ranges[q], MIN_RANGE_M)));
+    const meanL = levels.reduce((p, v) => p + v, 0) / nodes;
+    const spread = levels.reduce((p, v) => p + ((v - meanL) / LEVEL_SIGMA_DB) ** 2, 0);
+    return { seed: [i, j], members, fix: fitted.fix, atUtcMs: fitted.atUtcMs, nodes, score: fitted.fix.chi2 + spread + (hints.length > 0 ? Math.min(hintD2, TRACK_GATE_CHI2) : 0), hinted, ranges: fitted.ranges, vx, vy, moving: hint !== null };
+  };
+
+  let cands: Candidate[] = [];
+  for (let i = 0; i < work.length; i++) {
+    for (let j = i + 1; j < work.length; j++) {
+      if (work[i].node === work[j].node) continue;
+      const cand = build(i, j);
+      if (cand) cands.push(cand);
+    }
+  }
+  const out: LocatedSource[] = [];
+  while (cands.length > 0 && out.length < MAX_SOURCES) {
+    let bi = 0;
+    for (let q = 1; q < cands.length; q++) if (better(cands[q], cands[bi])) bi = q;
+    const cand = cands[bi];
+    if (cand.members.some((m) => work[m].used)) {
+      // A supporter was taken by a better source: rebuild it from what is left, or drop it.
+      const rebuilt = work[cand.seed[0]].used || work[cand.seed[1]].used ? null : build(cand.seed[0], cand.seed[1]);
+      if (rebuilt) cands[bi] = rebuilt;
+      else cands.splice(bi, 1);
+      continue;
+    }
+    for (const m of cand.members) work[m].used = true;
+    cands.splice(bi, 1);
+    out.push(toLocated(work, cand, nodeNames, multi, tWin, c));
+  }
+  cands = [];
+  return out;
+};
+
+function better(a: Candidate, b: Candidate): boolean {
+  if (a.nodes !== b.nodes) return a.nodes > b.nodes;
+  return a.score < b.score;
+}
+
+/** Miss (radians) of bearing W at a position located at t_window moving at v (zero: stationary). */
+function missAt(W: Work, x: number, y: number, vx: number, vy: number, tWin: number, c: number, moving: boolean): number {
+  let px = x, py = y;
+  if (moving) {
+    const r = Math.hypot(x - W.ox, y - W.oy);
+    const dtS = (W.b.utcMs - r / c * 1000 - tWin) / 1000;
+    px += vx * dtS;
+    py += vy * dtS;
+  }
+  return wrapPi(Math.atan2(py - W.oy, px - W.ox) - W.th);
+}
+
+/**
+ * The fix of a set of bearings. Moving (a track's velocity): each array is moved by −v·δ_i,
+ * δ_i = t_i − r_i/c − t_window, so that its line points at the position at t_window; r_i updated from
+ * the fix, three passes. Stationary: one fix, referred to the mean emission time.
+ */
+function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx: number, vy: number, tWin: number, c: number, moving: boolean): { fix: PlanFix; ranges: number[]; atUtcMs: number } | null {
+  const n = members.length;
+  const ox = new Float64Array(n), oy = new Float64Array(n), th = new Float64Array(n), sg = new Float64Array(n);
+  for (let q = 0; q < n; q++) {
+    const W = work[members[q]];
+    ox[q] = W.ox; oy[q] = W.oy; th[q] = W.th; sg[q] = W.sg;
+  }
+  let fix: PlanFix | null = null;
+  let x = x0, y = y0;
+  const passes = moving ? 3 : 1;
+  for (let pass = 0; pass < passes; pass++) {
+    if (moving) {
+      for (let q = 0; q < n; q++) {
+        const W = work[members[q]];
+        const r = Math.hypot(x - W.ox, y - W.oy);
+        const dtS = (W.b.utcMs - r / c * 1000 - tWin) / 1000;
+        ox[q] = W.ox - vx * dtS;
+        oy[q] = W.oy - vy * dtS;
+      }
+    }
+    fix = bearingsFix(ox, oy, th, sg, [x, y]);
+    if (!fix) return null;
+    x = fix.xM;
+    y = fix.yM;
+  }
+  if (!fix) return null;
+  const ranges = members.map((m) => Math.hypot(x - work[m].ox, y - work[m].oy));
+  let atUtcMs = tWin;
+  if (!moving) atUtcMs = members.reduce((p, m, q) => p + work[m].b.utcMs - (ranges[q] / c) * 1000, 0) / n;
+  return { fix, ranges, atUtcMs };
+}
+
+/** The smallest normalised distance² from (x, y) to a track's prediction (Infinity without one). */
+function hintDistance2(hints: TrackHint[], x: number, y: number, cov: [number, number, number]): number {
+  let best = Infinity;
+  for (const h of hints) {
+    const a = h.covXY[0] + cov[0], b = h.covXY[1] + cov[1], cc = h.covXY[2] + cov[2];
+    const det = a * cc - b * b;
+    if (!(det > 0)) continue;
+    const dx = x - h.xM, dy = y - h.yM;
+    best = Math.min(best, (cc * dx * dx - 2 * b * dx * dy + a * dy * dy) / det);
+  }
+  return best;
+}
+
+/** The nearest track prediction within the χ² gate of (x, y) with the candidate's covariance, or null. */
+function nearestHint(hints: TrackHint[], x: number, y: number, cov: [number, number, number]): TrackHint | null {
+  let best: TrackHint | null = null, bestD = TRACK_GATE_CHI2;
+  for (const h of hints) {
+    const a = h.covXY[0] + cov[0], b = h.covXY[1] + cov[1], cc = h.covXY[2] + cov[2];
+    const det = a * cc - b * b;
+    if (!(det > 0)) continue;
+    const dx = x - h.xM, dy = y - h.yM;
+    const d2 = (cc * dx * dx - 2 * b * dx * dy + a * dy * dy) / det;
+    if (d2 <= bestD) { bestD = d2; best = h; }
+  }
+  return best;
+}
+
+function toLocated(work: Work[], cand: Candidate, nodeNames: string[], multi: boolean, tWin: number, c: number): LocatedSource {
+  const { fix, members, ranges } = cand;
+  // Height from the members with elevation.
+  let zw = 0, zs = 0;
+  for (let q = 0; q < members.length; q++) {
+    const b = work[members[q]].b;
+    if (b.elevationDeg === null || Math.abs(b.elevationDeg) > 85) continue;
+    const el = b.elevationDeg * RAD;
+    const sz = Math.max((ranges[q] * work[members[q]].sg) / Math.cos(el) ** 2, 1e-6);
+    zw += 1 / (sz * sz);
+    zs += (b.originM[2] + ranges[q] * Math.tan(el)) / (sz * sz);
+  }
+  const zM = zw > 0 ? zs / zw : null;
+  const levels = members.map((m, q) => {
+    const b = work[m].b;
+    const r = zM === null ? ranges[q] : Math.hypot(ranges[q], zM - b.originM[2]);
+    return b.levelDb + 20 * Math.log10(Math.max(r, MIN_RANGE_M));
+  });
+  const ellipse = covarianceEllipse(fix.covXY);
+  return {
+    xM: fix.xM,
+    yM: fix.yM,
+    zM,
+    covXY: fix.covXY,
+    ellipse,
+    uncertaintyM: Math.sqrt(ellipse.majorM * ellipse.minorM),
+    levelDb: levels.reduce((p, v) => p + v, 0) / levels.length,
+    nodes: [...new Set(members.map((m) => nodeNames[work[m].node]))].sort(),
+    ambiguous: cand.nodes === 2 && !cand.hinted && multi,
+    residualDeg: Math.sqrt(fix.chi2 === 0 ? 0 : members.reduce((p, m) => p + missAt(work[m], fix.xM, fix.yM, cand.vx, cand.vy, tWin, c, cand.moving) ** 2, 0) / members.length) / RAD,
+    atUtcMs: cand.atUtcMs,
+  };
+}
+
+/**
+ * One bearing per node and direction: when a window holds several rows of a node, each row's peaks
+ * join the nearest direction already seen (within the gate, one peak per direction per row) or start
+ * a new one. A direction's azimuth is the circular mean of its bearings, its σ the median of theirs
+ * (rows a few tens of ms apart share most of the covariance's memory, so they are not independent
+ * draws), its level the power mean, its UTC the mean. One row per node passes through unchanged.
+ */
+export function condenseRows(bearings: Bearing[]): Bearing[] {
+  const byNode = new Map<string, Bearing[]>();
+  for (const b of bearings) {
+    const list = byNode.get(b.node);
+    if (list) list.push(b);
+    else byNode.set(b.node, [b]);
+  }
+  const out: Bearing[] = [];
+  for (const list of byNode.values()) {
+    const rows = new Set(list.map((b) => b.utcMs));
+    if (rows.size <= 1) {
+      out.push(...list);
+      continue;
+    }
+    const groups: Bearing[][] = [];
+    const sorted = [...list].sort((a, b) => a.utcMs - b.utcMs || b.levelDb - a.levelDb);
+    let rowUtc = NaN;
+    let taken = new Set<number>();
+    for (const b of sorted) {
+      if (b.utcMs !== rowUtc) { rowUtc = b.utcMs; taken = new Set(); }
+      let best = -1, bestMiss = GATE_SIGMA;
+      for (let g = 0; g < groups.length; g++) {
+        if (taken.has(g)) continue;
+        const last = groups[g][groups[g].length - 1];
+        const miss = Math.abs(wrapPi((b.azimuthDeg - last.azimuthDeg) * RAD)) / (Math.max(b.sigmaDeg, last.sigmaDeg) * RAD);
+        if (miss <= bestMiss) { bestMiss = miss; best = g; }
+      }
+      if (best < 0) { groups.push([b]); best = groups.length - 1; }
+      else groups[best].push(b);
+      taken.add(best);
+    }
+    for (const g of groups) {
+      if (g.length === 1) { out.push(g[0]); continue; }
+      let sx = 0, sy = 0, p = 0, t = 0, el = 0;
+      const elevations = g.every((b) => b.elevationDeg !== null);
+      for (const b of g) {
+        sx += Math.cos(b.azimuthDeg * RAD); sy += Math.sin(b.azimuthDeg * RAD);
+        p += 10 ** (b.levelDb / 10); t += b.utcMs; el += b.elevationDeg ?? 0;
+      }
+      const sigmas = g.map((b) => b.sigmaDeg).sort((a, b) => a - b);
+      const az = Math.atan2(sy, sx) / RAD;
+      out.push({
+        node: g[0].node,
+        originM: g[0].originM,
+        azimuthDeg: az < 0 ? az + 360 : az,
+        elevationDeg: elevations ? el / g.length : null,
+        sigmaDeg: sigmas[Math.floor(sigmas.length / 2)],
+        levelDb: 10 * Math.log10(p / g.length),
+        utcMs: t / g.length,
+      });
+    }
+  }
+  return out;
+}
