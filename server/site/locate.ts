@@ -28,9 +28,11 @@
  *
  * Travel time. Sound heard at array i at UTC t_i left the source at t_i − r_i/c. A candidate near a
  * track's prediction takes the track's velocity v and is located at the window's UTC: bearing i is
- * taken to point at x + v·(t_i − r_i/c − t_window), i.e. from the array moved by −v·(…), and r_i is
- * updated from the fix (three passes). Elsewhere the velocity is unknown and taken as zero, and the
- * fix is reported at the mean emission time of its bearings (`atUtcMs`) for the tracker to place.
+ * taken to point at x + v·δ_i, δ_i = t_i − r_i/c − t_window, r_i the range at emission (a fixed
+ * point), i.e. from the array moved by −v·δ_i; the fix is repeated with the δ_i of the new position
+ * until it moves less than a nanometre (at most eight passes). Elsewhere the velocity is unknown and
+ * taken as zero, and the fix is reported at the mean emission time of its bearings (`atUtcMs`) for
+ * the tracker to place.
  */
 import type { Bearing, LocatedSource, LocateWindow, TrackHint } from './types.ts';
 
@@ -307,8 +309,7 @@ function better(a: Candidate, b: Candidate): boolean {
 function missAt(W: Work, x: number, y: number, vx: number, vy: number, tWin: number, c: number, moving: boolean): number {
   let px = x, py = y;
   if (moving) {
-    const r = Math.hypot(x - W.ox, y - W.oy);
-    const dtS = (W.b.utcMs - r / c * 1000 - tWin) / 1000;
+    const dtS = emissionLagS(W, x, y, vx, vy, tWin, c);
     px += vx * dtS;
     py += vy * dtS;
   }
@@ -316,9 +317,20 @@ function missAt(W: Work, x: number, y: number, vx: number, vy: number, tWin: num
 }
 
 /**
+ * δ = t_e − t_window, s: the emission time of bearing W's sound for a source at (x, y) at t_window
+ * moving at v, t_e = t_i − |x + v·δ − p_i|/c (fixed point; it contracts by |v|/c per step).
+ */
+function emissionLagS(W: Work, x: number, y: number, vx: number, vy: number, tWin: number, c: number): number {
+  const rowS = (W.b.utcMs - tWin) / 1000;
+  let d = rowS - Math.hypot(x - W.ox, y - W.oy) / c;
+  for (let k = 0; k < 3; k++) d = rowS - Math.hypot(x + vx * d - W.ox, y + vy * d - W.oy) / c;
+  return d;
+}
+
+/**
  * The fix of a set of bearings. Moving (a track's velocity): each array is moved by −v·δ_i,
  * δ_i = t_i − r_i/c − t_window, so that its line points at the position at t_window; r_i updated from
- * the fix, three passes. Stationary: one fix, referred to the mean emission time.
+ * the fix, until it settles (at most eight passes). Stationary: one fix, referred to the mean emission time.
  */
 function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx: number, vy: number, tWin: number, c: number, moving: boolean): { fix: PlanFix; ranges: number[]; atUtcMs: number } | null {
   const n = members.length;
@@ -329,13 +341,13 @@ function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx:
   }
   let fix: PlanFix | null = null;
   let x = x0, y = y0;
-  const passes = moving ? 3 : 1;
+  const passes = moving ? 8 : 1;
   for (let pass = 0; pass < passes; pass++) {
+    const px = x, py = y;
     if (moving) {
       for (let q = 0; q < n; q++) {
         const W = work[members[q]];
-        const r = Math.hypot(x - W.ox, y - W.oy);
-        const dtS = (W.b.utcMs - r / c * 1000 - tWin) / 1000;
+        const dtS = emissionLagS(W, x, y, vx, vy, tWin, c);
         ox[q] = W.ox - vx * dtS;
         oy[q] = W.oy - vy * dtS;
       }
@@ -344,6 +356,8 @@ function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx:
     if (!fix) return null;
     x = fix.xM;
     y = fix.yM;
+    // Each pass changes the ranges by the last shift, the delays by that over c: a few passes.
+    if (pass > 0 && Math.hypot(x - px, y - py) < 1e-9) break;
   }
   if (!fix) return null;
   const ranges = members.map((m) => Math.hypot(x - work[m].ox, y - work[m].oy));
