@@ -27,7 +27,9 @@
  * one source.
  *
  * Travel time. Sound heard at array i at UTC t_i left the source at t_i − r_i/c. A candidate near a
- * track's prediction takes the track's velocity v and is located at the window's UTC: bearing i is
+ * track's prediction whose velocity is known to MAX_HINT_SPEED_SIGMA_MPS (a young track's, from two
+ * noisy fixes, is not, and would pull the fix) takes the track's velocity v and is located at the
+ * window's UTC: bearing i is
  * taken to point at x + v·δ_i, δ_i = t_i − r_i/c − t_window, r_i the range at emission (a fixed
  * point), i.e. from the array moved by −v·δ_i; the fix is repeated with the δ_i of the new position
  * until it moves less than a nanometre (at most eight passes). Elsewhere the velocity is unknown and
@@ -46,6 +48,8 @@ export const MIN_RANGE_M = 0.5;
 export const MIN_CROSSING_DEG = 3;
 /** Spread of one array's level at 1 m about the source's, for scoring only, dB (chosen: directivity, ground, MVDR bias). */
 export const LEVEL_SIGMA_DB = 6;
+/** A track's velocity places bearings at their emission times only when known to this σ, m/s. */
+export const MAX_HINT_SPEED_SIGMA_MPS = 0.5;
 /** χ², 2 degrees of freedom, 99 % (common practice): a two-array crossing near a track's prediction. */
 export const TRACK_GATE_CHI2 = 9.21;
 /** Bearings read per window (the rest are left out); sources per window. */
@@ -203,7 +207,7 @@ interface Candidate {
 export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const c = opts.speedOfSoundMps;
   const tWin = opts.windowUtcMs;
-  const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, ...h.covXY].every(Number.isFinite));
+  const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, h.speedSigmaMps, ...h.covXY].every(Number.isFinite));
   const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
   const merged = condenseRows(good);
   const nodeNames = [...new Set(merged.map((b) => b.node))];
@@ -222,7 +226,8 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const s = (dx * ua[1] - dy * ua[0]) / cross;
     if (t < MIN_RANGE_M || s < MIN_RANGE_M || t > MAX_RANGE_M || s > MAX_RANGE_M) return null;
     let x = A.ox + t * ua[0], y = A.oy + t * ua[1];
-    const hint = nearestHint(hints, x, y, [0, 0, 0]);
+    const near = nearestHint(hints, x, y, [0, 0, 0]);
+    const hint = near && near.speedSigmaMps <= MAX_HINT_SPEED_SIGMA_MPS ? near : null;
     const vx = hint ? hint.vxMps : 0, vy = hint ? hint.vyMps : 0;
     // Members: the seed pair and each other array's bearing of smallest normalised miss. At the
     // crossing the miss spreads by the crossing's own uncertainty too: σ² + gᵀ C g, C the pair's J⁻¹.

@@ -86,7 +86,7 @@ export class ConstantVelocityTracker implements SourceTracker {
     return this.#tracks.map((t) => {
       const s = new Float64Array(t.s), P = new Float64Array(t.P);
       predictState(s, P, dt, this.#opts.accelSigmaMps2);
-      return { id: t.id, xM: s[0], yM: s[1], vxMps: s[2], vyMps: s[3], covXY: [P[0], P[1], P[5]] };
+      return { id: t.id, xM: s[0], yM: s[1], vxMps: s[2], vyMps: s[3], covXY: [P[0], P[1], P[5]], speedSigmaMps: Math.sqrt(Math.max(P[10], P[15])) };
     });
   }
 

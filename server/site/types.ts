@@ -77,6 +77,8 @@ export interface TrackHint {
   vyMps: number;
   /** Covariance of the predicted (x, y), m² ([sxx, sxy, syy]). */
   covXY: [number, number, number];
+  /** Standard deviation of the velocity (the larger axis), m/s: a young track's is too loose to place bearings with. */
+  speedSigmaMps: number;
 }
 
 /** Locate the sources of one window from the bearings of every node that has a pose. */

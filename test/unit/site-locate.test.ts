@@ -247,7 +247,7 @@ describe('association across arrays', () => {
     ];
     expect(locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0 })).toEqual([]);
     // A track predicting a source there supports it (and then it is not ambiguous).
-    const hint: TrackHint = { id: 's1', xM: 20.3, yM: 29.6, vxMps: 0, vyMps: 0, covXY: [0.25, 0, 0.25] };
+    const hint: TrackHint = { id: 's1', xM: 20.3, yM: 29.6, vxMps: 0, vyMps: 0, covXY: [0.25, 0, 0.25], speedSigmaMps: 0.1 };
     const kept = locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0, hints: [hint] });
     expect(kept).toHaveLength(1);
     expect(kept[0].nodes).toEqual(['a', 'b']);
@@ -316,7 +316,7 @@ describe('travel time', () => {
       const src = moving('m', 8 - v[0] * 10, 6 - v[1] * 10, v[0], v[1]);
       const bs = sceneBearings(null, THREE, [src], 10, 1, C);
       const t = T0 + 10_000;
-      const hint: TrackHint = { id: 's1', xM: 8.1, yM: 5.9, vxMps: v[0], vyMps: v[1], covXY: [0.25, 0, 0.25] };
+      const hint: TrackHint = { id: 's1', xM: 8.1, yM: 5.9, vxMps: v[0], vyMps: v[1], covXY: [0.25, 0, 0.25], speedSigmaMps: 0.1 };
       const [withT] = locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: t, hints: [hint] });
       // Ignoring travel time: the same bearings compared at their rows' UTC (c taken as infinite).
       const [without] = locateWindow(bs, { speedOfSoundMps: 1e12, windowUtcMs: t, hints: [hint] });
@@ -326,6 +326,9 @@ describe('travel time', () => {
       expect(withT.atUtcMs).toBe(t);
       expect(eWithout).toBeGreaterThan(0.15);
       expect(eWithout).toBeLessThan(0.4);
+      // A young track's loose velocity is not used to place bearings: the fix stays at its emission time.
+      const [loose] = locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: t, hints: [{ ...hint, speedSigmaMps: 2 }] });
+      expect(loose.atUtcMs).toBeLessThan(t - 30);
       results.push(`v (${v}) m/s: ${eWith.toExponential(1)} m with, ${eWithout.toFixed(3)} m without`);
     }
     console.log(`site-locate travel time: ${results.join('; ')}`);

@@ -150,12 +150,15 @@ describe('the site scene: three arrays, three still sources 20–60 m away, one 
       const ids: Set<string>[] = sources.map(() => new Set());
       let movingSeen = 0;
       for (const { w, tS, tracks } of run(seed, C)) {
-        // Confirmed after two windows; after ten windows (5 s) the filters have converged.
+        // Confirmed after two windows. While all four tracks start at once their velocities are
+        // still loose (σ 5 m/s at start) and a young track can lose its source to a neighbour (seed 8:
+        // the moving source's first track gives way at window 3); from window 5 on, one id per source.
+        if (w >= 5) for (const t of tracks) ids[nearest(tS, t.xM, t.yM).k].add(t.id);
+        // After ten windows (5 s) the filters have converged.
         if (w < 10) continue;
         if (tracks.length > 4) extra++;
         for (const t of tracks) {
           const { k, d } = nearest(tS, t.xM, t.yM);
-          ids[k].add(t.id);
           if (k < 3) {
             stillSq += d * d; stillN++; stillWorst = Math.max(stillWorst, d);
             if (d <= 1.5) stillWithin++;
@@ -170,7 +173,7 @@ describe('the site scene: three arrays, three still sources 20–60 m away, one 
           }
         }
       }
-      // One id per source over the 50 windows after convergence, the moving one reported in most windows.
+      // One id per source over windows 5–59, the moving one reported in most windows after convergence.
       for (const s of ids) expect(s.size).toBe(1);
       expect(movingSeen).toBeGreaterThanOrEqual(45);
     }
@@ -204,7 +207,7 @@ describe('the site scene: three arrays, three still sources 20–60 m away, one 
     const withTravel = along(C);
     // c taken as infinite: bearings compared at their rows' UTC, as if the sound arrived at once.
     const without = along(1e12);
-    // Measured: −0.04 m with, −0.23 m without (the sound takes 0.06–0.2 s to reach the arrays, the source moves 2 m/s).
+    // Measured: −0.045 m with, −0.228 m without (the sound takes 0.06–0.2 s to reach the arrays, the source moves 2 m/s).
     expect(Math.abs(withTravel)).toBeLessThan(0.1);
     expect(without).toBeLessThan(-0.15);
     console.log(`site-tracker travel time: mean along-track error ${withTravel.toFixed(3)} m with, ${without.toFixed(3)} m without`);
