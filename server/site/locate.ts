@@ -77,14 +77,16 @@ export interface PlanFix {
 /**
  * The bearings-only least-squares fix on the plan (see the file's comment).
  * @param ox, oy array origins, metres; thetaRad site azimuths; sigmaRad their σ (all length n ≥ 2)
+ * @param start where Gauss–Newton starts (default: the pseudo-linear estimate)
+ * @param refine false: the pseudo-linear estimate only (screening candidates: a few times cheaper)
  * @returns null when the lines give no fix (parallel, or every start behind an array)
  */
-export function bearingsFix(ox: ArrayLike<number>, oy: ArrayLike<number>, thetaRad: ArrayLike<number>, sigmaRad: ArrayLike<number>, start?: [number, number]): PlanFix | null {
+export function bearingsFix(ox: ArrayLike<number>, oy: ArrayLike<number>, thetaRad: ArrayLike<number>, sigmaRad: ArrayLike<number>, start?: [number, number], refine = true): PlanFix | null {
   const n = ox.length;
   if (n < 2) return null;
   let x: number;
   let y: number;
-  if (start) {
+  if (start && refine) {
     [x, y] = start;
   } else {
     // Pseudo-linear start: n_i·(x − p_i) = 0 with n_i = (sin θ, −cos θ), weights 1/(r σ)², r from the
@@ -117,7 +119,7 @@ export function bearingsFix(ox: ArrayLike<number>, oy: ArrayLike<number>, thetaR
   let f = cost(x, y);
   let iterations = 0;
   // Gauss–Newton on the angles, the step halved while it does not lower the cost.
-  for (; iterations < 100; iterations++) {
+  for (; refine && iterations < 100; iterations++) {
     let a = 0, b = 0, c = 0, u = 0, v = 0;
     for (let i = 0; i < n; i++) {
       const dx = x - ox[i], dy = y - oy[i];
@@ -212,8 +214,19 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const merged = condenseRows(good);
   const nodeNames = [...new Set(merged.map((b) => b.node))];
   const work: Work[] = merged.map((b) => ({ b, node: nodeNames.indexOf(b.node), ox: b.originM[0], oy: b.originM[1], th: b.azimuthDeg * RAD, sg: Math.max(b.sigmaDeg, 1e-3) * RAD, used: false }));
-  const perNode = nodeNames.map((_, k) => work.filter((w) => w.node === k).length);
+  const byNode = nodeNames.map((_, k) => work.flatMap((w, m) => (w.node === k ? [m] : [])));
+  const perNode = byNode.map((list) => list.length);
   const multi = perNode.some((n) => n > 1);
+
+  /** Ghost: another array heard something this window, has the position in range, and lends nothing. */
+  const refusedByOthers = (na: number, nb: number, x: number, y: number): boolean => {
+    for (let k = 0; k < nodeNames.length; k++) {
+      if (k === na || k === nb || perNode[k] === 0) continue;
+      const o = work[byNode[k][0]];
+      if (Math.hypot(x - o.ox, y - o.oy) <= MAX_RANGE_M) return true;
+    }
+    return false;
+  };
 
   const build = (i: number, j: number): Candidate | null => {
     const A = work[i], B = work[j];
@@ -237,9 +250,9 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     for (let k = 0; k < nodeNames.length; k++) {
       if (k === A.node || k === B.node) continue;
       let best = -1, bestMiss = GATE_SIGMA;
-      for (let m = 0; m < work.length; m++) {
+      for (const m of byNode[k]) {
         const W = work[m];
-        if (W.node !== k || W.used) continue;
+        if (W.used) continue;
         const dx = x - W.ox, dy = y - W.oy;
         const r2 = Math.max(dx * dx + dy * dy, 1e-12);
         const gx = -dy / r2, gy = dx / r2;
@@ -249,7 +262,10 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
       }
       if (best >= 0) members.push(best);
     }
-    const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null);
+    // A lone pair that another array would refuse (below) is dropped before its fit: most pairs of
+    // a busy window are such ghosts, and the fits are the cost.
+    if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y)) return null;
+    const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
     if (!fitted) return null;
     ({ x, y } = { x: fitted.fix.xM, y: fitted.fix.yM });
     // Every member within the gate at the fit, in front of its array and within range.
@@ -262,14 +278,7 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const nodes = members.length;
     const hintD2 = hintDistance2(hints, x, y, fitted.fix.covXY);
     const hinted = hintD2 <= TRACK_GATE_CHI2;
-    if (nodes === 2 && !hinted) {
-      // Ghost: another array heard something this window, has the position in range, and lends nothing.
-      for (let k = 0; k < nodeNames.length; k++) {
-        if (k === A.node || k === B.node || perNode[k] === 0) continue;
-        const o = work.find((w) => w.node === k)!;
-        if (Math.hypot(x - o.ox, y - o.oy) <= MAX_RANGE_M) return null;
-      }
-    }
+    if (nodes === 2 && !hinted && refusedByOthers(A.node, B.node, x, y)) return null;
     // Score: χ² of the misses plus the spread of the levels at 1 m.
     const levels = members.map((m, q) => work[m].b.levelDb + 20 * Math.log10(Math.max(fitted.ranges[q], MIN_RANGE_M)));
     const meanL = levels.reduce((p, v) => p + v, 0) / nodes;
@@ -290,18 +299,24 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     let bi = 0;
     for (let q = 1; q < cands.length; q++) if (better(cands[q], cands[bi])) bi = q;
     const cand = cands[bi];
-    if (cand.members.some((m) => work[m].used)) {
-      // A supporter was taken by a better source: rebuild it from what is left, or drop it.
-      const rebuilt = work[cand.seed[0]].used || work[cand.seed[1]].used ? null : build(cand.seed[0], cand.seed[1]);
-      if (rebuilt) cands[bi] = rebuilt;
-      else cands.splice(bi, 1);
-      continue;
-    }
     for (const m of cand.members) work[m].used = true;
-    cands.splice(bi, 1);
+    // Candidates are screened on the pseudo-linear fix; the one taken is refined (Gauss–Newton on the angles).
+    const exact = fitMembers(work, cand.members, cand.fix.xM, cand.fix.yM, cand.vx, cand.vy, tWin, c, cand.moving, true);
+    if (exact) Object.assign(cand, { fix: exact.fix, ranges: exact.ranges, atUtcMs: exact.atUtcMs });
     out.push(toLocated(work, cand, nodeNames, multi, tWin, c));
+    // Candidates that lost a bearing to it: dropped when it was one of their pair, else rebuilt from what is left.
+    const next: Candidate[] = [];
+    for (let q = 0; q < cands.length; q++) {
+      const k = cands[q];
+      if (q === bi || work[k.seed[0]].used || work[k.seed[1]].used) continue;
+      if (!k.members.some((m) => work[m].used)) next.push(k);
+      else {
+        const rebuilt = build(k.seed[0], k.seed[1]);
+        if (rebuilt) next.push(rebuilt);
+      }
+    }
+    cands = next;
   }
-  cands = [];
   return out;
 };
 
@@ -337,7 +352,7 @@ function emissionLagS(W: Work, x: number, y: number, vx: number, vy: number, tWi
  * δ_i = t_i − r_i/c − t_window, so that its line points at the position at t_window; r_i updated from
  * the fix, until it settles (at most eight passes). Stationary: one fix, referred to the mean emission time.
  */
-function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx: number, vy: number, tWin: number, c: number, moving: boolean): { fix: PlanFix; ranges: number[]; atUtcMs: number } | null {
+function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx: number, vy: number, tWin: number, c: number, moving: boolean, refine: boolean): { fix: PlanFix; ranges: number[]; atUtcMs: number } | null {
   const n = members.length;
   const ox = new Float64Array(n), oy = new Float64Array(n), th = new Float64Array(n), sg = new Float64Array(n);
   for (let q = 0; q < n; q++) {
@@ -357,7 +372,7 @@ function fitMembers(work: Work[], members: number[], x0: number, y0: number, vx:
         oy[q] = W.oy - vy * dtS;
       }
     }
-    fix = bearingsFix(ox, oy, th, sg, [x, y]);
+    fix = bearingsFix(ox, oy, th, sg, [x, y], refine);
     if (!fix) return null;
     x = fix.xM;
     y = fix.yM;
