@@ -210,7 +210,7 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const c = opts.speedOfSoundMps;
   const tWin = opts.windowUtcMs;
   const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, h.speedSigmaMps, ...h.covXY].every(Number.isFinite));
-  const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
+  const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && (b.elevationDeg === null || Number.isFinite(b.elevationDeg)) && Array.isArray(b.originM) && b.originM.length === 3 && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
   const merged = condenseRows(good);
   const nodeNames = [...new Set(merged.map((b) => b.node))];
   const work: Work[] = merged.map((b) => ({ b, node: nodeNames.indexOf(b.node), ox: b.originM[0], oy: b.originM[1], th: b.azimuthDeg * RAD, sg: Math.max(b.sigmaDeg, 1e-3) * RAD, used: false }));
