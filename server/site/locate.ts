@@ -36,6 +36,7 @@
  * taken as zero, and the fix is reported at the mean emission time of its bearings (`atUtcMs`) for
  * the tracker to place.
  */
+import { MAX_SITE_PEAKS } from '../../shared/site.ts';
 import type { Bearing, LocatedSource, LocateWindow, TrackHint } from './types.ts';
 
 /** Gate on a bearing's miss at a candidate, in its σ. */
@@ -52,7 +53,7 @@ export const LEVEL_SIGMA_DB = 6;
 export const MAX_HINT_SPEED_SIGMA_MPS = 0.5;
 /** χ², 2 degrees of freedom, 99 % (common practice): a two-array crossing near a track's prediction. */
 export const TRACK_GATE_CHI2 = 9.21;
-/** Bearings read per window (the rest are left out); sources per window. */
+/** Bearings read per window (the rest are left out; then at most MAX_SITE_PEAKS directions per node); sources per window. */
 export const MAX_BEARINGS = 1024;
 export const MAX_SOURCES = 64;
 
@@ -211,7 +212,15 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const tWin = opts.windowUtcMs;
   const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, h.speedSigmaMps, ...h.covXY].every(Number.isFinite));
   const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && (b.elevationDeg === null || Number.isFinite(b.elevationDeg)) && Array.isArray(b.originM) && b.originM.length === 3 && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
-  const merged = condenseRows(good);
+  // At most MAX_SITE_PEAKS directions per node, the strongest (the pairs grow with their square).
+  const merged = condenseRows(good).sort((a, b) => b.levelDb - a.levelDb);
+  const kept = new Map<string, number>();
+  for (let i = merged.length - 1; i >= 0; i--) kept.set(merged[i].node, 0);
+  for (let i = 0; i < merged.length; i++) {
+    const n = kept.get(merged[i].node)! + 1;
+    kept.set(merged[i].node, n);
+    if (n > MAX_SITE_PEAKS) merged.splice(i--, 1);
+  }
   const nodeNames = [...new Set(merged.map((b) => b.node))];
   const work: Work[] = merged.map((b) => ({ b, node: nodeNames.indexOf(b.node), ox: b.originM[0], oy: b.originM[1], th: b.azimuthDeg * RAD, sg: Math.max(b.sigmaDeg, 1e-3) * RAD, used: false }));
   const byNode = nodeNames.map((_, k) => work.flatMap((w, m) => (w.node === k ? [m] : [])));
@@ -267,7 +276,8 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y)) return null;
     const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
     if (!fitted) return null;
-    ({ x, y } = { x: fitted.fix.xM, y: fitted.fix.yM });
+    x = fitted.fix.xM;
+    y = fitted.fix.yM;
     // Every member within the gate at the fit, in front of its array and within range.
     for (let q = 0; q < members.length; q++) {
       const W = work[members[q]];
