@@ -37,6 +37,8 @@
  * the tracker to place.
  */
 import { MAX_SITE_PEAKS } from '../../shared/site.ts';
+import { type PlanFix, bearingsFix, covarianceEllipse, fisherCovariance, wrapPi } from './bearing-fix.ts';
+import { condenseRows } from './condense-rows.ts';
 import type { Bearing, LocatedSource, LocateWindow, TrackHint } from './types.ts';
 
 /** Gate on a bearing's miss at a candidate, in its σ. */
@@ -58,127 +60,6 @@ export const MAX_BEARINGS = 1024;
 export const MAX_SOURCES = 64;
 
 const RAD = Math.PI / 180;
-
-/** Angle to (−π, π]. */
-export function wrapPi(a: number): number {
-  const r = a - 2 * Math.PI * Math.floor((a + Math.PI) / (2 * Math.PI));
-  return r <= -Math.PI ? r + 2 * Math.PI : r;
-}
-
-export interface PlanFix {
-  xM: number;
-  yM: number;
-  /** Inverse Fisher information, m² [sxx, sxy, syy]. */
-  covXY: [number, number, number];
-  /** Σ (e_i/σ_i)² at the fix. */
-  chi2: number;
-  iterations: number;
-}
-
-/**
- * The bearings-only least-squares fix on the plan (see the file's comment).
- * @param ox, oy array origins, metres; thetaRad site azimuths; sigmaRad their σ (all length n ≥ 2)
- * @param start where Gauss–Newton starts (default: the pseudo-linear estimate)
- * @param refine false: the pseudo-linear estimate only (screening candidates: a few times cheaper)
- * @returns null when the lines give no fix (parallel, or every start behind an array)
- */
-export function bearingsFix(ox: ArrayLike<number>, oy: ArrayLike<number>, thetaRad: ArrayLike<number>, sigmaRad: ArrayLike<number>, start?: [number, number], refine = true): PlanFix | null {
-  const n = ox.length;
-  if (n < 2) return null;
-  let x: number;
-  let y: number;
-  if (start && refine) {
-    [x, y] = start;
-  } else {
-    // Pseudo-linear start: n_i·(x − p_i) = 0 with n_i = (sin θ, −cos θ), weights 1/(r σ)², r from the
-    // previous pass (1 at first).
-    x = 0;
-    y = 0;
-    for (let pass = 0; pass < 2; pass++) {
-      let a = 0, b = 0, c = 0, u = 0, v = 0;
-      for (let i = 0; i < n; i++) {
-        const r2 = pass === 0 ? 1 : Math.max((x - ox[i]) ** 2 + (y - oy[i]) ** 2, 1e-6);
-        const w = 1 / (r2 * sigmaRad[i] * sigmaRad[i]);
-        const s = Math.sin(thetaRad[i]), k = -Math.cos(thetaRad[i]);
-        const d = s * ox[i] + k * oy[i];
-        a += w * s * s; b += w * s * k; c += w * k * k; u += w * s * d; v += w * k * d;
-      }
-      const det = a * c - b * b;
-      if (!(Math.abs(det) > 1e-12 * (a * c + 1e-300))) return null;
-      x = (c * u - b * v) / det;
-      y = (a * v - b * u) / det;
-    }
-  }
-  const cost = (px: number, py: number): number => {
-    let s = 0;
-    for (let i = 0; i < n; i++) {
-      const e = wrapPi(Math.atan2(py - oy[i], px - ox[i]) - thetaRad[i]) / sigmaRad[i];
-      s += e * e;
-    }
-    return s;
-  };
-  let f = cost(x, y);
-  let iterations = 0;
-  // Gauss–Newton on the angles, the step halved while it does not lower the cost.
-  for (; refine && iterations < 100; iterations++) {
-    let a = 0, b = 0, c = 0, u = 0, v = 0;
-    for (let i = 0; i < n; i++) {
-      const dx = x - ox[i], dy = y - oy[i];
-      const r2 = Math.max(dx * dx + dy * dy, 1e-12);
-      const gx = -dy / r2, gy = dx / r2;
-      const w = 1 / (sigmaRad[i] * sigmaRad[i]);
-      const e = wrapPi(Math.atan2(dy, dx) - thetaRad[i]);
-      a += w * gx * gx; b += w * gx * gy; c += w * gy * gy; u -= w * gx * e; v -= w * gy * e;
-    }
-    const det = a * c - b * b;
-    if (!(det > 0)) return null;
-    let sx = (c * u - b * v) / det;
-    let sy = (a * v - b * u) / det;
-    let step = 1;
-    let fNew = cost(x + sx, y + sy);
-    while (fNew > f && step > 1e-6) {
-      step /= 2;
-      sx /= 2;
-      sy /= 2;
-      fNew = cost(x + sx, y + sy);
-    }
-    if (fNew > f) break;
-    x += sx;
-    y += sy;
-    f = fNew;
-    if (Math.hypot(sx, sy) < 1e-10 * (1 + Math.hypot(x, y))) break;
-  }
-  const cov = fisherCovariance(ox, oy, sigmaRad, x, y);
-  if (!cov) return null;
-  return { xM: x, yM: y, covXY: cov, chi2: f, iterations };
-}
-
-/** J⁻¹, J = Σ g gᵀ/σ², g = (−Δy, Δx)/r²: the covariance of the fix at (x, y), m². */
-export function fisherCovariance(ox: ArrayLike<number>, oy: ArrayLike<number>, sigmaRad: ArrayLike<number>, x: number, y: number): [number, number, number] | null {
-  let a = 0, b = 0, c = 0;
-  for (let i = 0; i < ox.length; i++) {
-    const dx = x - ox[i], dy = y - oy[i];
-    const r2 = Math.max(dx * dx + dy * dy, 1e-12);
-    const gx = -dy / r2, gy = dx / r2;
-    const w = 1 / (sigmaRad[i] * sigmaRad[i]);
-    a += w * gx * gx; b += w * gx * gy; c += w * gy * gy;
-  }
-  const det = a * c - b * b;
-  if (!(det > 1e-12 * a * c)) return null;
-  return [c / det, -b / det, a / det];
-}
-
-/** Semi-axes (m) and orientation (degrees from +x, in (−90, 90]) of the 1-σ ellipse of a covariance. */
-export function covarianceEllipse(cov: [number, number, number]): { majorM: number; minorM: number; angleDeg: number } {
-  const [a, b, c] = cov;
-  const mid = (a + c) / 2;
-  const half = Math.hypot((a - c) / 2, b);
-  return {
-    majorM: Math.sqrt(Math.max(mid + half, 0)),
-    minorM: Math.sqrt(Math.max(mid - half, 0)),
-    angleDeg: (0.5 * Math.atan2(2 * b, a - c)) / RAD,
-  };
-}
 
 interface Work {
   b: Bearing;
@@ -455,66 +336,4 @@ function toLocated(work: Work[], cand: Candidate, nodeNames: string[], multi: bo
     residualDeg: Math.sqrt(fix.chi2 === 0 ? 0 : members.reduce((p, m) => p + missAt(work[m], fix.xM, fix.yM, cand.vx, cand.vy, tWin, c, cand.moving) ** 2, 0) / members.length) / RAD,
     atUtcMs: cand.atUtcMs,
   };
-}
-
-/**
- * One bearing per node and direction: when a window holds several rows of a node, each row's peaks
- * join the nearest direction already seen (within the gate, one peak per direction per row) or start
- * a new one. A direction's azimuth is the circular mean of its bearings, its σ the median of theirs
- * (rows a few tens of ms apart share most of the covariance's memory, so they are not independent
- * draws), its level the power mean, its UTC the mean. One row per node passes through unchanged.
- */
-export function condenseRows(bearings: Bearing[]): Bearing[] {
-  const byNode = new Map<string, Bearing[]>();
-  for (const b of bearings) {
-    const list = byNode.get(b.node);
-    if (list) list.push(b);
-    else byNode.set(b.node, [b]);
-  }
-  const out: Bearing[] = [];
-  for (const list of byNode.values()) {
-    const rows = new Set(list.map((b) => b.utcMs));
-    if (rows.size <= 1) {
-      out.push(...list);
-      continue;
-    }
-    const groups: Bearing[][] = [];
-    const sorted = [...list].sort((a, b) => a.utcMs - b.utcMs || b.levelDb - a.levelDb);
-    let rowUtc = NaN;
-    let taken = new Set<number>();
-    for (const b of sorted) {
-      if (b.utcMs !== rowUtc) { rowUtc = b.utcMs; taken = new Set(); }
-      let best = -1, bestMiss = GATE_SIGMA;
-      for (let g = 0; g < groups.length; g++) {
-        if (taken.has(g)) continue;
-        const last = groups[g][groups[g].length - 1];
-        const miss = Math.abs(wrapPi((b.azimuthDeg - last.azimuthDeg) * RAD)) / (Math.max(b.sigmaDeg, last.sigmaDeg) * RAD);
-        if (miss <= bestMiss) { bestMiss = miss; best = g; }
-      }
-      if (best < 0) { groups.push([b]); best = groups.length - 1; }
-      else groups[best].push(b);
-      taken.add(best);
-    }
-    for (const g of groups) {
-      if (g.length === 1) { out.push(g[0]); continue; }
-      let sx = 0, sy = 0, p = 0, t = 0, el = 0;
-      const elevations = g.every((b) => b.elevationDeg !== null);
-      for (const b of g) {
-        sx += Math.cos(b.azimuthDeg * RAD); sy += Math.sin(b.azimuthDeg * RAD);
-        p += 10 ** (b.levelDb / 10); t += b.utcMs; el += b.elevationDeg ?? 0;
-      }
-      const sigmas = g.map((b) => b.sigmaDeg).sort((a, b) => a - b);
-      const az = Math.atan2(sy, sx) / RAD;
-      out.push({
-        node: g[0].node,
-        originM: g[0].originM,
-        azimuthDeg: az < 0 ? az + 360 : az,
-        elevationDeg: elevations ? el / g.length : null,
-        sigmaDeg: sigmas[Math.floor(sigmas.length / 2)],
-        levelDb: 10 * Math.log10(p / g.length),
-        utcMs: t / g.length,
-      });
-    }
-  }
-  return out;
 }

@@ -19,7 +19,7 @@
  * positions per track.
  */
 import type { LocatedSource, SourceTracker, TrackedSource, TrackHint } from './types.ts';
-import { covarianceEllipse } from './locate.ts';
+import { covarianceEllipse } from './bearing-fix.ts';
 
 export const ACCEL_SIGMA_MPS2 = 0.3;
 export const GATE_CHI2 = 9.21;

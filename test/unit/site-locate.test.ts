@@ -1,5 +1,5 @@
 /**
- * server/site/bearing-sigma.ts and locate.ts: the fix against scipy (test/fixtures/site-locate/
+ * server/site/bearing-sigma.ts, bearing-fix.ts, condense-rows.ts and locate.ts: the fix against scipy (test/fixtures/site-locate/
  * generate.py: scipy.optimize.least_squares on the same cost, the covariance from its Jacobian and
  * from the Fisher information), the worked check of shared/CHECKS.md, a Monte Carlo of the fix's
  * spread against the predicted ellipse, association (ghosts, two arrays, geometry refusals) and
@@ -13,7 +13,9 @@ import { fileURLToPath } from 'node:url';
 import { afterAll, describe, expect, it } from 'vitest';
 import type { PeakMessage } from '../../shared/site.ts';
 import { ANGLE_SLOPE_K, MAX_SIGMA_DEG, MIN_SIGMA_DEG, bearingSigmaDeg, bearingsFromPeaks } from '../../server/site/bearing-sigma.ts';
-import { bearingsFix, condenseRows, covarianceEllipse, fisherCovariance, locateWindow } from '../../server/site/locate.ts';
+import { bearingsFix, covarianceEllipse, fisherCovariance } from '../../server/site/bearing-fix.ts';
+import { condenseRows } from '../../server/site/condense-rows.ts';
+import { locateWindow } from '../../server/site/locate.ts';
 import type { Bearing, TrackHint } from '../../server/site/types.ts';
 import { TestRandom } from '../helpers/random.ts';
 import { SCENE_START_UTC_MS, moving, sceneBearings, still, type SceneArray } from '../helpers/site-scene.ts';
