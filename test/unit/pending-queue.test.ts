@@ -64,3 +64,12 @@ describe('pending queue', () => {
     expect([q.take()!.seq, q.take()!.seq, q.take()!.seq]).toEqual([1, 3, 4]);
   });
 });
+
+describe('broker item of the status strip (client/src/lib/broker-status.ts)', () => {
+  it('shows a configured broker’s state and pending entries; nothing when off or absent', async () => {
+    const { summariseBroker } = await import('../../client/src/lib/broker-status.ts');
+    expect(summariseBroker({ cluster: { state: 'reconnecting', pending: 12, dropped: 1, url: 'nats://127.0.0.1:4222', lastError: 'gone' } })).toEqual({ state: 'reconnecting', pending: 12, dropped: 1, url: 'nats://127.0.0.1:4222', lastError: 'gone' });
+    expect(summariseBroker({ cluster: { state: 'off' } })).toBeNull();
+    expect(summariseBroker({})).toBeNull();
+  });
+});
