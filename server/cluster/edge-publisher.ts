@@ -405,6 +405,8 @@ export class EdgePublisher {
           this.#queue.fail(e);
           // Keep the order: nothing new goes out until every entry in flight has settled, then a retry.
           this.#blockedUntilSettled = true;
+          // The stream may be gone (deleted, a broker with a fresh store): checked again before the retry.
+          this.#streamReady = false;
           if (!this.#closed) this.#error(`JetStream ${e.kind} ${e.seq}: ${errText(err)}`);
           if (this.#queue.inFlight === 0) this.#retryLater();
         },
