@@ -650,8 +650,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       closed = true;
       sim?.stop();
       await inputs?.close();
-      await edge?.close();
       if (recorder.recording) await recorder.stop();
+      await edge?.close();
       await streamOut.close();
       await live.close();
       await compareLive.close();

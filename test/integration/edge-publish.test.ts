@@ -181,3 +181,25 @@ describe.skipIf(!natsAvailable)('edge with an unreachable broker', () => {
     }
   }, 40_000);
 });
+
+describe.skipIf(!natsAvailable)('edge on a broker that asks for a token', () => {
+  it('connects with cluster.token; with a wrong one it keeps processing, says reconnecting and names the refusal', async () => {
+    const broker = await startBroker({ token: 's3cret-token' });
+    const base = { source: { kind: 'simulator' }, engine: { workers: 1 }, array: { file: arrayWithPose() } };
+    const good = await startTestService({ ...base, cluster: { natsUrl: broker.url, site: SITE, node: 'good', token: 's3cret-token' } });
+    const bad = await startTestService({ ...base, cluster: { natsUrl: broker.url, site: SITE, node: 'bad', token: 'wrong-token' } });
+    try {
+      await waitFor(async () => (await getStatus(good)).cluster.state === 'connected', 20_000, 'connected with the token');
+      await waitFor(async () => bad.engine.rows > 10 && (await getStatus(bad)).cluster.lastError !== null, 20_000, 'rows and an error with the wrong token');
+      const cl = (await getStatus(bad)).cluster;
+      expect(cl.state).toBe('reconnecting');
+      expect(cl.lastError).toMatch(/auth/i);
+      // Status never shows the token.
+      expect(JSON.stringify(await getStatus(good))).not.toContain('s3cret');
+    } finally {
+      await good.close();
+      await bad.close();
+      await broker.close();
+    }
+  }, 40_000);
+});
