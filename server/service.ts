@@ -49,6 +49,8 @@ import { landmarkChangeSummary } from '../shared/landmarks.ts';
 import { ArrayCheckRunner, createArrayCheckController } from './engine/array-check-runner.ts';
 import { updateArrayFile } from './config/array-file-update.ts';
 import { memberDelaysUs } from './ingest/group.ts';
+import { encodeRow } from '../shared/messages.ts';
+import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -238,6 +240,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   // The plan memory of this process: the main chain's plan and the comparison's share it.
   const budget = new PlanBudget(config.engine.maxPlanMiB * 2 ** 20);
   const workers = config.engine.workers === 0 ? availableParallelism() : config.engine.workers;
+  // The site's broker (cluster.natsUrl; server/cluster/): rows (the dashboards' bytes), peaks, status, journal.
+  let edge: EdgePublisher | null = null;
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
@@ -245,7 +249,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     workers,
     budget,
     speedOfSoundMps: config.engine.speedOfSoundMps,
-    onRow: (row) => live.broadcastRow(row),
+    onRow: (row) => {
+      if (!edge) return live.broadcastRow(row);
+      const bytes = encodeRow(row);
+      live.broadcastRowBytes(bytes);
+      edge.row(bytes, engine!.grid);
+    },
     onBeamAudio: (hop) => {
       streamOut.send(hop);
       if (recordBeams && recorder.recording && hop.sampleIndex >= 0) {
@@ -341,6 +350,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       access: { refused: { ...accessStats.refused }, last: accessStats.last, changesTimedOut: serialStats.timedOut },
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
+      cluster: edge ? edge.status() : clusterOff(config.cluster.site, config.cluster.node),
     };
   };
 
@@ -614,6 +624,12 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     await eng.close();
     throw e;
   }
+  const cl = config.cluster;
+  if (cl.natsUrl) {
+    const url = dashboardUrl(config.server.host, httpPort);
+    edge = new EdgePublisher({ ...cl, natsUrl: cl.natsUrl, sampleRateHz: fs, pose: loaded.geometry.pose ?? null, describe: () => ({ arrayName: geometry.name, channels, load: (eng.status() as { load: number }).load, dashboardUrl: url }) });
+    journal.onRecord = (e) => edge?.journal(e);
+  }
   sim?.start(bus.publish);
 
   let closed = false;
@@ -635,6 +651,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       sim?.stop();
       await inputs?.close();
       if (recorder.recording) await recorder.stop();
+      await edge?.close();
       await streamOut.close();
       await live.close();
       await compareLive.close();

@@ -137,6 +137,8 @@ export class ParameterJournal {
   /** Appends that failed (disk full, folder removed); the entry stays in memory. */
   writeErrors = 0;
   lastWriteError: string | null = null;
+  /** Told of every entry recorded (the site broker's journal subject); its failures never reach record(). */
+  onRecord: ((e: JournalEntry) => void) | null = null;
   readonly #file: string | null;
   #oldFile = '';
   readonly #keep: number;
@@ -233,6 +235,11 @@ export class ParameterJournal {
         this.writeErrors++;
         this.lastWriteError = publicText(err);
       }
+    }
+    try {
+      this.onRecord?.(e);
+    } catch {
+      // An observer's problem is its own.
     }
     return e;
   }

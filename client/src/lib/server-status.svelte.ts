@@ -6,6 +6,7 @@
 import { getStatus } from './api.ts';
 import { inputCounts, summariseInput, watchRefusals, type InputView, type RefusalState } from './input-status.ts';
 import { summariseStatus, type StatusSummary } from './status-summary.ts';
+import { summariseBroker, type BrokerView } from './broker-status.ts';
 
 export { summariseStatus, type ChannelReport, type StatusSummary } from './status-summary.ts';
 
@@ -19,6 +20,7 @@ export class ServerStatus {
   #inputGaps = $state(false);
   #updatedAtMs = $state(0);
   #input = $state.raw<InputView | null>(null);
+  #broker = $state.raw<BrokerView | null>(null);
   #refusing = $state(false);
   #refusals: RefusalState | null = null;
   #polling = false;
@@ -43,6 +45,10 @@ export class ServerStatus {
   }
   get updatedAtMs(): number {
     return this.#updatedAtMs;
+  }
+  /** The site broker (status `cluster`), null when none is configured. */
+  get broker(): BrokerView | null {
+    return this.#broker;
   }
   /** The input as the Input panel shows it (lib/input-status.ts). */
   get input(): InputView | null {
@@ -93,6 +99,7 @@ export class ServerStatus {
       this.#lastLoss = loss;
       this.#inputGaps = now - this.#gapSeenAtMs < GAP_HOLD_MS;
       this.#summary = s;
+      this.#broker = summariseBroker(r.data);
       const input = summariseInput(r.data);
       this.#refusals = watchRefusals(this.#refusals, inputCounts(input), now);
       this.#input = input;
