@@ -54,3 +54,20 @@ describe('serve with a site scene', () => {
       .rejects.toThrow(`${file}: sources[0].positionM must be [x, y, z]`);
   });
 });
+
+describe('one scene across processes', () => {
+  it('two processes starting at different sample indices with different blocks render identical samples', async () => {
+    const { execFile } = await import('node:child_process');
+    const { renderRangeHash } = await import('../helpers/scene-render.ts');
+    const run = (start: number, frames: number, from: number, count: number) =>
+      new Promise<string>((resolve, reject) => {
+        execFile(process.execPath, ['--import', 'tsx', 'test/helpers/scene-render.ts', SCENE, 'config/arrays/yard-north.json', String(start), String(frames), String(from), String(count)], { timeout: 60_000 }, (err, stdout) =>
+          err ? reject(err) : resolve(stdout.trim()));
+      });
+    const from = utcSampleIndex(Date.UTC(2026, 11, 3, 22, 0, 0), 48000);
+    const [a, b] = await Promise.all([run(from - 5000, 512, from, 9600), run(from - 37, 1000, from, 9600)]);
+    expect(a).toMatch(/^[0-9a-f]{64}$/);
+    expect(b).toBe(a);
+    expect(await renderRangeHash(SCENE, 'config/arrays/yard-north.json', from, 4800, from, 9600)).toBe(a);
+  });
+});
