@@ -1,7 +1,7 @@
 /**
  * Render cost of the site scene (server/ingest/site-scene.ts): seconds of CPU per second of audio
  * for each array of the Eastgate yard (24 channels, the scene's sources), and for one array with
- * only its fixed or only its moving sources. `npx tsx bench/site-scene.ts [--seconds S]`.
+ * only its fixed or only its moving sources. `npx tsx bench/site-scene.ts [--seconds S] [--block-frames N]`.
  * Prints medians of five runs; not a test.
  */
 import { loadGeometry } from '../server/config/array-file.ts';
@@ -12,7 +12,9 @@ const args = process.argv.slice(2);
 const secondsAt = args.indexOf('--seconds');
 const seconds = secondsAt >= 0 ? Number(args[secondsAt + 1]) : 5;
 const fs = 48000;
-const blockFrames = 1024;
+const blockAt = args.indexOf('--block-frames');
+/** The serve default (simulator.blockFrames) is 480. */
+const blockFrames = blockAt >= 0 ? Number(args[blockAt + 1]) : 480;
 const scene = await loadScene('config/scenes/eastgate-yard.json');
 
 async function cost(arrayFile: string, keep: (moving: boolean) => boolean): Promise<number> {
@@ -37,4 +39,4 @@ const rows: Record<string, number> = {};
 for (const a of ['yard-west', 'yard-east', 'yard-north']) rows[`${a}: all ${scene.sources.length} sources`] = await cost(`config/arrays/${a}.json`, () => true);
 rows['yard-west: fixed sources only'] = await cost('config/arrays/yard-west.json', (moving) => !moving);
 rows['yard-west: moving source only'] = await cost('config/arrays/yard-west.json', (moving) => moving);
-for (const [k, v] of Object.entries(rows)) console.log(`${k.padEnd(34)} ${(v * 1000).toFixed(1)} ms CPU per second of audio (24 ch, 48 kHz)`);
+for (const [k, v] of Object.entries(rows)) console.log(`${k.padEnd(34)} ${(v * 1000).toFixed(1)} ms CPU per second of audio (24 ch, 48 kHz, blocks of ${blockFrames})`);

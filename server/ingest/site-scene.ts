@@ -12,8 +12,8 @@
  * - the microphone's site position q_m = pose.positionM + R(headingDeg)·p_m (a level array turned
  *   about z; shared/site.ts);
  * - the sound heard at time t left the source at the retarded time t_e, solving
- *   c·(t − t_e) = |q_m − S(t_e)| (fixed-point iteration from t_e = t, contraction |v|/c; four steps
- *   leave < 1 ns at 50 m/s); delay D = t − t_e;
+ *   c·(t − t_e) = |q_m − S(t_e)| (fixed-point iteration, contraction |v|/c: five steps at the array's
+ *   origin from t_e = t, then two per microphone from the origin's solution); delay D = t − t_e;
  * - spherical spreading: amplitude × 1/r with r = |q_m − S(t_e)| in metres (level given at 1 m;
  *   r clamped at {@link MIN_RANGE_M});
  * - the fractional delay by the project's Kaiser-windowed sinc (fractional-delay.ts, < −85 dB error
@@ -39,8 +39,18 @@ export const MIN_RANGE_M = 0.5;
 /** Band-pass FIR of the broadband sources: odd length, Kaiser β. Transition width ≈ 5.5 fs/L. */
 export const BAND_FIR_TAPS = 255;
 const BAND_FIR_BETA = 8;
-/** Fixed-point steps of the retarded-time solution. */
-const RETARDED_STEPS = 4;
+/**
+ * Fixed-point steps of the retarded-time solution; each shrinks the error by |v|/c (0.006 at 2 m/s,
+ * 0.15 at the 50 m/s limit). At the array's origin from t_e = t: until a step moves t_e by less than
+ * {@link ORIGIN_CONVERGED_SAMPLES} (5 steps at 2 m/s; at most {@link RETARDED_STEPS}). Each
+ * microphone then starts from the origin's t_e, off by at most its distance from the origin / c
+ * (+ the origin's residual), and takes the steps that bring that under {@link RETARDED_TOLERANCE_S}
+ * (3 for a 0.1 m ring at 2 m/s). Absolute sample times near 2^46 carry 1/64-sample steps; the
+ * delay itself is computed from a range, so that rounding moves it by |v| × 0.3 µs / c only.
+ */
+const RETARDED_STEPS = 40;
+const ORIGIN_CONVERGED_SAMPLES = 0.05;
+const RETARDED_TOLERANCE_S = 1e-9;
 const TWO_POW_32 = 4294967296;
 const TWO_POW_24 = 16777216;
 const SQRT3 = Math.sqrt(3);
@@ -157,12 +167,15 @@ interface SourceState {
   /** Hash key of the emitted waveform: (seed, source name). */
   key: number;
   broadband: boolean;
-  /** Broadband: rms at 1 m × band-pass taps (unit-variance output); tonal: peak amplitude at 1 m. */
+  /** Tonal: peak amplitude at 1 m (broadband: rms at 1 m, folded into fir). */
   amplitude: number;
+  /** Broadband: the band-pass taps (unit-variance output) × rms at 1 m. */
   fir: Float64Array;
   /** Tonal: cycles per sample, and the fraction of cycles per 2^24 samples. */
   cyclesPerSample: number;
   cyclesPer2p24: number;
+  /** Moving sources: retarded-time steps per microphone from the array origin's solution. */
+  micSteps: number;
   /** Fixed sources: per microphone coefficients (M × taps, 1/r folded in), read offsets, delays. */
   coeffs: Float64Array;
   offsets: Int32Array;
@@ -279,10 +292,16 @@ export class SiteSceneSimulator {
       const st: SourceState = {
         spec, trajectory: new Trajectory(spec, fs), key: mix32(seed ^ mix32(fnv1a(spec.name))), broadband: sig.kind === 'broadband',
         amplitude: sig.kind === 'broadband' ? level : Math.SQRT2 * level,
-        fir: sig.kind === 'broadband' ? bandPass(sig.lowHz / fs, Math.min(sig.highHz, 0.45 * fs) / fs) : new Float64Array(0),
-        cyclesPerSample: 0, cyclesPer2p24: 0,
+        fir: sig.kind === 'broadband' ? bandPass(sig.lowHz / fs, Math.min(sig.highHz, 0.45 * fs) / fs).map((x) => x * level) : new Float64Array(0),
+        cyclesPerSample: 0, cyclesPer2p24: 0, micSteps: 1,
         coeffs: new Float64Array(m * taps), offsets: new Int32Array(m), delays: new Float64Array(m),
       };
+      if (spec.path) {
+        // After N range evaluations the delay is off by (v/c)^N × the starting error.
+        const ratio = spec.path.speedMps / c;
+        const start = maxR / c + ORIGIN_CONVERGED_SAMPLES / fs;
+        st.micSteps = Math.min(20, Math.max(1, Math.ceil(Math.log(RETARDED_TOLERANCE_S / start) / Math.log(ratio))));
+      }
       if (sig.kind === 'tonal') {
         st.cyclesPerSample = sig.frequencyHz / fs;
         const whole = st.cyclesPerSample * TWO_POW_24;
@@ -463,16 +482,30 @@ export class SiteSceneSimulator {
       const c = this.speedOfSoundMps;
       const k = this.sampleRateHz / c;
       const p = this.#pos;
+      const [ox, oy, oz] = this.pose.positionM;
       for (let j = 0; j < chunks; j++) {
         // Middle of the chunk's samples on the absolute grid.
         const t = (firstChunk + j) * U + (U - 1) / 2;
+        // Retarded time at the array's origin from t_e = t; each microphone then starts from it
+        // (within the aperture / c of its own) and needs fewer steps.
+        let teOrigin = t;
+        for (let it = 0; it < RETARDED_STEPS; it++) {
+          st.trajectory.at(teOrigin, p);
+          const dx = ox - p[0];
+          const dy = oy - p[1];
+          const dz = oz - p[2];
+          const next = t - Math.sqrt(dx * dx + dy * dy + dz * dz) * k;
+          const step = next - teOrigin;
+          teOrigin = next;
+          if (step < ORIGIN_CONVERGED_SAMPLES && step > -ORIGIN_CONVERGED_SAMPLES) break;
+        }
         for (let ch = 0; ch < m; ch++) {
           const qx = this.micX[ch];
           const qy = this.micY[ch];
           const qz = this.micZ[ch];
-          let te = t;
+          let te = teOrigin;
           let r = 0;
-          for (let it = 0; it <= RETARDED_STEPS; it++) {
+          for (let it = 0; it < st.micSteps; it++) {
             st.trajectory.at(te, p);
             const dx = qx - p[0];
             const dy = qy - p[1];
@@ -515,8 +548,8 @@ export class SiteSceneSimulator {
   /** Writes the emitted waveform (level at 1 m) for sample indices ws … ws+w−1 into #window. */
   #emit(st: SourceState, ws: number, w: number): void {
     const win = this.#window;
-    const a = st.amplitude;
     if (!st.broadband) {
+      const a = st.amplitude;
       const f = st.cyclesPerSample;
       const fHi = st.cyclesPer2p24;
       for (let i = 0; i < w; i++) {
@@ -549,12 +582,10 @@ export class SiteSceneSimulator {
       // Uniform on (−√3, √3): unit variance; the band-pass makes it Gaussian enough.
       white[i] = ((u + 0.5) / TWO_POW_32 * 2 - 1) * SQRT3;
     }
-    // win[i] = a · Σ_l fir[l] · white[i + L − 1 − l]; the FIR is symmetric, so = a · Σ_l fir[l]·white[i + l].
-    for (let i = 0; i < w; i++) {
-      let acc = 0;
-      for (let l = 0; l < L; l++) acc += fir[l] * white[i + l];
-      win[i] = a * acc;
-    }
+    // win[i] = a · Σ_l fir[l] · white[i + L − 1 − l]; the FIR is symmetric, so = Σ_l (a·fir[l])·white[i + l]
+    // (the amplitude is folded into st.fir at construction).
+    win.fill(0, 0, w);
+    accumulateWindow(win, 0, w, white, 0, fir, 0, L);
   }
 }
 
