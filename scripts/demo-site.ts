@@ -57,38 +57,41 @@ const tempDirs: string[] = [];
 let broker: TestBroker | null = null;
 let stopping = false;
 
-/** Starts `nullsteer ARGS` and resolves with the first http:// address it prints. */
-function startNullsteer(name: string, args: string[]): Promise<string> {
+/**
+ * Starts `nullsteer ARGS` and resolves with its address once `probe` (a path on 127.0.0.1:port)
+ * answers with any HTTP status: the readiness does not depend on what the command prints.
+ */
+function startNullsteer(name: string, args: string[], port: number, probe: string, echoStdout: boolean): Promise<string> {
   const proc = spawn(process.execPath, [join(root, 'bin/nullsteer.mjs'), ...args], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
   const exited = new Promise<number | null>((res) => proc.once('exit', (code) => res(code)));
   children.push({ name, proc, exited });
+  let gone = false;
   void exited.then((code) => {
+    gone = true;
     if (!stopping) process.stderr.write(`[${name}] exited (code ${code})\n`);
   });
-  return new Promise((res, rej) => {
-    const timer = setTimeout(() => rej(new Error(`${name} did not start within ${READY_TIMEOUT_MS / 1000} s`)), READY_TIMEOUT_MS);
-    let pending = '';
-    proc.stdout!.on('data', (b: Buffer) => {
-      pending += b.toString();
-      const lines = pending.split('\n');
-      pending = lines.pop() ?? '';
-      for (const l of lines) {
-        const m = /listening on (http:\/\/\S+)/.exec(l);
-        if (m) {
-          clearTimeout(timer);
-          res(m[1]);
-        }
-      }
-      if (pending.length > 65536) pending = ''; // a line that long is not an address
-    });
-    proc.stderr!.on('data', (b: Buffer) => {
-      for (const l of b.toString().split('\n')) if (l.trim()) process.stderr.write(`[${name}] ${l}\n`);
-    });
-    void exited.then((code) => {
-      clearTimeout(timer);
-      rej(new Error(`${name} exited at start (code ${code})`));
-    });
+  const echo = (b: Buffer, to: NodeJS.WriteStream) => {
+    for (const l of b.toString().split('\n')) if (l.trim()) to.write(`[${name}] ${l}\n`);
+  };
+  proc.stderr!.on('data', (b: Buffer) => echo(b, process.stderr));
+  proc.stdout!.on('data', (b: Buffer) => {
+    if (echoStdout) echo(b, process.stdout);
   });
+  const url = `http://127.0.0.1:${port}`;
+  return (async () => {
+    const deadline = Date.now() + READY_TIMEOUT_MS;
+    for (;;) {
+      if (gone) throw new Error(`${name} exited at start`);
+      try {
+        await fetch(`${url}${probe}`, { signal: AbortSignal.timeout(2000) });
+        return url;
+      } catch {
+        // not listening yet
+      }
+      if (Date.now() > deadline) throw new Error(`${name} did not answer on ${url} within ${READY_TIMEOUT_MS / 1000} s`);
+      await new Promise((r) => setTimeout(r, 200));
+    }
+  })();
 }
 
 async function stopAll(code: number): Promise<never> {
@@ -122,7 +125,7 @@ try {
     const args = ['serve', '--host', '127.0.0.1', '--http-port', String(port), '--source', 'simulator', '--array', e.array,
       '--set', `simulator.scene=${scene}`, '--set', `data.dir=${dataDir}`, '--set', `outputs.dir=${join(dataDir, 'recordings')}`];
     if (broker) args.push('--set', `cluster.natsUrl=${broker.url}`, '--set', `cluster.site=${site}`, '--set', `cluster.node=${e.node}`);
-    edges.push({ node: e.node, url: await startNullsteer(e.node, args) });
+    edges.push({ node: e.node, url: await startNullsteer(e.node, args, port, '/api/status', false) });
   }
   let siteUrl: string | null = null;
   if (!broker) {
@@ -131,7 +134,7 @@ try {
     process.stdout.write('site service: not there yet (server/tools/site.ts is missing in this checkout); the edges run without it\n');
   } else {
     const port = await freePort();
-    siteUrl = await startNullsteer('site', ['site', '--nats', broker.url, '--site', site, '--http-port', String(port), '--plan', plan]);
+    siteUrl = await startNullsteer('site', ['site', '--nats', broker.url, '--site', site, '--http-port', String(port), '--plan', plan], port, '/', true);
   }
   process.stdout.write(`\nsite "${site}", scene ${scene}\n`);
   for (const e of edges) process.stdout.write(`  edge ${e.node.padEnd(6)} ${e.url}/\n`);
