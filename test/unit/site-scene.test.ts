@@ -303,6 +303,32 @@ describe('site scene rendering against closed forms', () => {
   });
 });
 
+describe('site scene paths', () => {
+  const at = (path: SceneSource['path'], tS: number) => {
+    const src: SceneSource = { name: 'm', levelDbAt1m: -6, signal: { kind: 'tonal', frequencyHz: 500 }, positionM: null, path };
+    const sim = new SiteSceneSimulator({ scene: scene([src]), geometry: arrayAt({ positionM: [0, 0, 0], headingDeg: 90 }, SQUARE), sampleRateHz: FS, blockFrames: 256, startIndex: 0 });
+    return sim.truth(Math.round(tS * FS))[0];
+  };
+  const rectangle: [number, number, number][] = [[30, 20, 1], [50, 20, 1], [50, 30, 1], [30, 30, 1]];
+
+  it('a loop goes round the closed polygon at its speed from the first point at UTC 0 (perimeter 60 m at 2 m/s: 30 s)', () => {
+    const path = { pointsM: rectangle, speedMps: 2, loop: true };
+    const cases: [number, number[]][] = [[0, [30, 20, 1]], [5, [40, 20, 1]], [12.5, [50, 25, 1]], [20, [40, 30, 1]], [27.5, [30, 25, 1]], [30, [30, 20, 1]], [1_796_335_205, [40, 20, 1]]];
+    for (const [t, p] of cases) at(path, t).positionM.forEach((x, i) => expect(x).toBeCloseTo(p[i], 4));
+  });
+
+  it('an open path goes there and back (50 m of corners at 1 m/s → 50 s there, 50 s back)', () => {
+    const path = { pointsM: rectangle, speedMps: 1, loop: false };
+    const cases: [number, number[]][] = [[0, [30, 20, 1]], [25, [50, 25, 1]], [40, [40, 30, 1]], [50, [30, 30, 1]], [55, [35, 30, 1]], [80, [50, 20, 1]], [90, [40, 20, 1]], [100, [30, 20, 1]]];
+    for (const [t, p] of cases) at(path, t).positionM.forEach((x, i) => expect(x).toBeCloseTo(p[i], 6));
+  });
+
+  it('bearings in status: site azimuth from the array, and array azimuth = site azimuth − heading', () => {
+    const t = at({ pointsM: [[0, 10, 0], [10, 10, 0]], speedMps: 1, loop: false }, 0);
+    expect([t.rangeM, t.siteAzimuthDeg, t.arrayAzimuthDeg, t.elevationDeg]).toEqual([10, 90, 0, 0]);
+  });
+});
+
 describe('UtcSceneSource', () => {
   it('starts at the UTC sample index of the moment it starts, then carries on contiguously', async () => {
     const src = fixedSource('tone', [10, 0, 0], { kind: 'tonal', frequencyHz: 1000 });
