@@ -27,18 +27,17 @@
  * Sensor self-noise: white, uniform, rms noiseDbfs per channel, counter-based per array and channel.
  */
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
-import type { Pose } from '../../shared/site.ts';
+import { wrap360, type Pose } from '../../shared/site.ts';
 import { ConfigError } from '../config/validate.ts';
-import { besselI0, FractionalDelay } from './fractional-delay.ts';
+import { FractionalDelay } from './fractional-delay.ts';
+import { accumulateWindow, bandPass, BAND_FIR_TAPS, fnv1a, mix32 } from './scene-signals.ts';
+import { Trajectory } from './scene-trajectory.ts';
 import { MAX_SOURCE_SPEED_MPS, type SceneSource, type SiteScene } from './site-scene-file.ts';
 
 /** Samples between the delay updates of a moving source (0.33 ms at 48 kHz). */
 export const MOVING_UPDATE_FRAMES = 16;
 /** Ranges below this are taken as this, metres (a microphone inside a source is not a level). */
 export const MIN_RANGE_M = 0.5;
-/** Band-pass FIR of the broadband sources: odd length, Kaiser β. Transition width ≈ 5.5 fs/L. */
-export const BAND_FIR_TAPS = 255;
-const BAND_FIR_BETA = 8;
 /**
  * Fixed-point steps of the retarded-time solution; each shrinks the error by |v|/c (0.006 at 2 m/s,
  * 0.15 at the 50 m/s limit). At the array's origin from t_e = t: until a step moves t_e by less than
@@ -63,102 +62,6 @@ export function utcSampleIndex(utcMs: number, sampleRateHz: number): number {
 /** UTC (ms since the epoch) of a sample index on the site's common clock. */
 export function sampleIndexUtcMs(sampleIndex: number, sampleRateHz: number): number {
   return (sampleIndex * 1000) / sampleRateHz;
-}
-
-/** C. Wellons' "lowbias32" integer hash (hash-prospector, constants from memory): uint32 → uint32. */
-export function mix32(x: number): number {
-  let z = x | 0;
-  z ^= z >>> 16;
-  z = Math.imul(z, 0x21f0aaad);
-  z ^= z >>> 15;
-  z = Math.imul(z, 0x735a2d97);
-  z ^= z >>> 15;
-  return z >>> 0;
-}
-
-/** FNV-1a of a string, uint32 (a stable key for a source's or an array's name). */
-export function fnv1a(text: string): number {
-  let h = 0x811c9dc5;
-  for (let i = 0; i < text.length; i++) h = Math.imul(h ^ text.charCodeAt(i), 0x01000193);
-  return h >>> 0;
-}
-
-/**
- * A source's position over time: fixed, or along a polyline at constant speed, round the closed
- * polygon (loop) or there and back, starting at the first point at UTC 0.
- */
-class Trajectory {
-  readonly fixed: boolean;
-  readonly #x: Float64Array;
-  readonly #y: Float64Array;
-  readonly #z: Float64Array;
-  /** Per segment: unit direction and length; cumulative start. */
-  readonly #ux: Float64Array;
-  readonly #uy: Float64Array;
-  readonly #uz: Float64Array;
-  readonly #len: Float64Array;
-  readonly #start: Float64Array;
-  readonly #lengthM: number;
-  readonly #periodM: number;
-  readonly #metresPerSample: number;
-  readonly #loop: boolean;
-  readonly speedMps: number;
-
-  constructor(src: SceneSource, sampleRateHz: number) {
-    const pts = src.path ? src.path.pointsM : [src.positionM!];
-    const loop = src.path?.loop ?? false;
-    this.fixed = src.path === null;
-    this.#loop = loop;
-    this.speedMps = src.path?.speedMps ?? 0;
-    const corners = loop ? [...pts, pts[0]] : pts;
-    const segs = Math.max(1, corners.length - 1);
-    this.#x = new Float64Array(corners.map((p) => p[0]));
-    this.#y = new Float64Array(corners.map((p) => p[1]));
-    this.#z = new Float64Array(corners.map((p) => p[2]));
-    this.#ux = new Float64Array(segs);
-    this.#uy = new Float64Array(segs);
-    this.#uz = new Float64Array(segs);
-    this.#len = new Float64Array(segs);
-    this.#start = new Float64Array(segs);
-    let total = 0;
-    for (let s = 0; s + 1 < corners.length; s++) {
-      const dx = corners[s + 1][0] - corners[s][0];
-      const dy = corners[s + 1][1] - corners[s][1];
-      const dz = corners[s + 1][2] - corners[s][2];
-      const l = Math.hypot(dx, dy, dz);
-      this.#ux[s] = dx / l;
-      this.#uy[s] = dy / l;
-      this.#uz[s] = dz / l;
-      this.#len[s] = l;
-      this.#start[s] = total;
-      total += l;
-    }
-    this.#lengthM = total;
-    this.#periodM = loop ? total : 2 * total;
-    this.#metresPerSample = this.speedMps / sampleRateHz;
-  }
-
-  /** Writes the position at sample time t (samples on the UTC clock, fractional) into out[0..3). */
-  at(tSamples: number, out: Float64Array): void {
-    if (this.fixed) {
-      out[0] = this.#x[0];
-      out[1] = this.#y[0];
-      out[2] = this.#z[0];
-      return;
-    }
-    const s = tSamples * this.#metresPerSample;
-    const period = this.#periodM;
-    let u = s - period * Math.floor(s / period);
-    if (!this.#loop && u > this.#lengthM) u = period - u;
-    const len = this.#len;
-    const n = len.length;
-    let k = 0;
-    while (k < n - 1 && u > this.#start[k] + len[k]) k++;
-    const d = Math.min(Math.max(u - this.#start[k], 0), len[k]);
-    out[0] = this.#x[k] + d * this.#ux[k];
-    out[1] = this.#y[k] + d * this.#uy[k];
-    out[2] = this.#z[k] + d * this.#uz[k];
-  }
 }
 
 interface SourceState {
@@ -589,75 +492,6 @@ export class SiteSceneSimulator {
   }
 }
 
-function wrap360(deg: number): number {
-  const r = deg % 360;
-  return r < 0 ? r + 360 : r;
-}
-
 function round2(x: number): number {
   return Math.round(x * 100) / 100;
-}
-
-/**
- * out[outStart + i] += Σ_t g[t] · x[xStart + i + t], i = 0 … n−1: the fractional-delay filter over a
- * window of emitted samples (g oldest first, fractional-delay.ts convention). Each output sums its
- * taps in order t = 0 … taps−1, so the result does not depend on where a run starts.
- */
-function accumulateWindow(out: Float64Array, outStart: number, n: number, x: Float64Array, xStart: number, g: Float64Array, gStart: number, taps: number): void {
-  let i = 0;
-  for (; i + 4 <= n; i += 4) {
-    const q = xStart + i;
-    let a0 = 0;
-    let a1 = 0;
-    let a2 = 0;
-    let a3 = 0;
-    let x0 = x[q];
-    let x1 = x[q + 1];
-    let x2 = x[q + 2];
-    for (let t = 0; t < taps; t++) {
-      const h = g[gStart + t];
-      const x3 = x[q + t + 3];
-      a0 += h * x0;
-      a1 += h * x1;
-      a2 += h * x2;
-      a3 += h * x3;
-      x0 = x1;
-      x1 = x2;
-      x2 = x3;
-    }
-    const o = outStart + i;
-    out[o] += a0;
-    out[o + 1] += a1;
-    out[o + 2] += a2;
-    out[o + 3] += a3;
-  }
-  for (; i < n; i++) {
-    const q = xStart + i;
-    let acc = 0;
-    for (let t = 0; t < taps; t++) acc += g[gStart + t] * x[q + t];
-    out[outStart + i] += acc;
-  }
-}
-
-/**
- * Linear-phase band-pass FIR by the window method: ideal band-pass (difference of two sinc
- * low-passes) times a Kaiser window (Kaiser 1974), scaled so that unit-variance white noise comes
- * out with unit variance (Σ h² = 1). Corners in cycles per sample.
- */
-export function bandPass(lowCycles: number, highCycles: number, taps = BAND_FIR_TAPS, beta = BAND_FIR_BETA): Float64Array {
-  const h = new Float64Array(taps);
-  const mid = (taps - 1) / 2;
-  const i0b = besselI0(beta);
-  const lp = (f: number, k: number) => (k === 0 ? 2 * f : Math.sin(2 * Math.PI * f * k) / (Math.PI * k));
-  let energy = 0;
-  for (let l = 0; l < taps; l++) {
-    const k = l - mid;
-    const r = k / mid;
-    const win = besselI0(beta * Math.sqrt(Math.max(0, 1 - r * r))) / i0b;
-    h[l] = win * (lp(highCycles, k) - lp(lowCycles, k));
-    energy += h[l] * h[l];
-  }
-  const s = 1 / Math.sqrt(energy);
-  for (let l = 0; l < taps; l++) h[l] *= s;
-  return h;
 }
