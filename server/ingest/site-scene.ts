@@ -12,8 +12,9 @@
  * - the microphone's site position q_m = pose.positionM + R(headingDeg)·p_m (a level array turned
  *   about z; shared/site.ts);
  * - the sound heard at time t left the source at the retarded time t_e, solving
- *   c·(t − t_e) = |q_m − S(t_e)| (fixed-point iteration, contraction |v|/c: five steps at the array's
- *   origin from t_e = t, then two per microphone from the origin's solution); delay D = t − t_e;
+ *   c·(t − t_e) = |q_m − S(t_e)| (fixed-point iteration, contraction |v|/c: to convergence at the
+ *   array's origin from t_e = t, then a few steps per microphone from the origin's solution, three
+ *   for a 0.1 m ring at 2 m/s); delay D = t − t_e;
  * - spherical spreading: amplitude × 1/r with r = |q_m − S(t_e)| in metres (level given at 1 m;
  *   r clamped at {@link MIN_RANGE_M});
  * - the fractional delay by the project's Kaiser-windowed sinc (fractional-delay.ts, < −85 dB error
