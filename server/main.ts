@@ -89,7 +89,8 @@ export async function serveCommand(argv: string[], io: CliIo = processIo): Promi
     const c = loaded.config;
     io.out(`nullsteer ${VERSION}: ${loaded.geometry.name} (${loaded.geometry.positions.length} channels) at ${c.input.sampleRateHz} Hz`);
     const inputs = service.inputs;
-    if (c.source.kind === 'simulator') io.out('source: built-in simulated scenario (set --source network for live frames)');
+    if (c.source.kind === 'simulator' && c.simulator.scene !== null) io.out(`source: site scene ${c.simulator.scene} at this array's pose, on the UTC sample clock`);
+    else if (c.source.kind === 'simulator') io.out('source: built-in simulated scenario (set --source network for live frames)');
     else if (c.source.kind === 'capture') io.out(`source: capture command ${c.capture.command.join(' ')} (${c.capture.channels} channels, ${c.capture.encoding})`);
     else {
       io.out(inputs?.hub ? `source: network frames` : 'source: RTP');

@@ -40,6 +40,8 @@ import { BlockBus } from './ingest/block-bus.ts';
 import { RateMeter, type IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
 import { InputChoiceError, Inputs, withMemberOffsets } from './ingest/inputs.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
+import type { SiteSceneSimulator } from './ingest/site-scene.ts';
+import { createSiteSceneSimulator, UtcSceneSource } from './ingest/site-scene-source.ts';
 import type { UdpIngest } from './ingest/udp.ts';
 import { attachUpgrades } from './ingest/websocket.ts';
 import { InputMask } from './engine/input-mask.ts';
@@ -118,7 +120,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const channels = geometry.positions.length;
 
   let sim: SimulatorSource | null = null;
-  let scene: SceneSimulator | null = null;
+  let scene: SceneSimulator | SiteSceneSimulator | null = null;
   let inputs: Inputs | null = null;
   // The processed stream changed: journaled as a change of the server's own (journalNote is set below).
   let noteSwitch: (text: string, from: number | null, to: number) => void = () => {};
@@ -131,6 +133,11 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
         if (sw.reason !== 'first') noteSwitch(sw.reason === 'manual' ? `processed stream set to ${sw.to}` : `stream ${sw.from} silent for ${config.input.switchAfterS} s: processing stream ${sw.to}`, sw.from, sw.to);
       },
     });
+  } else if (config.simulator.scene !== null) {
+    // A site scene: what this array hears at its pose, on the UTC sample clock (ingest/site-scene.ts).
+    const site = await createSiteSceneSimulator({ scenePath: config.simulator.scene, arrayPath, geometry, sampleRateHz: config.input.sampleRateHz, blockFrames: simulatorBlockFrames(config.simulator.blockFrames, channels), seed: config.simulator.seed });
+    scene = site;
+    sim = new UtcSceneSource(site);
   } else {
     scene = new SceneSimulator({
       geometry,
