@@ -15,6 +15,7 @@
  * longest, or is refused and counted when every node is online.
  */
 import type { NodeStatusMessage, Pose } from '../../shared/site.ts';
+import type { SiteNodeView } from '../../shared/site-view.ts';
 
 /** Status messages kept per node for the clock offset's lower envelope (about 20 s at 1 Hz). */
 export const OFFSET_SAMPLES = 20;
@@ -22,34 +23,9 @@ export const OFFSET_SAMPLES = 20;
 export const CLOCK_FLAG_MS = 50;
 export const DEFAULT_MAX_NODES = 64;
 
-export type NodeState = 'online' | 'offline';
+export type NodeState = SiteNodeView['state'];
 
-export interface SiteNodeView {
-  node: string;
-  state: NodeState;
-  arrayName: string;
-  channels: number;
-  pose: Pose | null;
-  usedForPositions: boolean;
-  /** Why the node is not used for positions (absent when it is). */
-  why?: string;
-  /** Site clock − edge clock, ms (lower envelope of receive − send). */
-  clockOffsetMs: number;
-  clockFlag?: string;
-  /** When the site service last heard from the node (its own clock), ISO 8601. */
-  lastSeenUtc: string;
-  /** Last peak message (site clock), ISO 8601, or null. */
-  lastPeakUtc: string | null;
-  rowsPerS: number;
-  load: number;
-  input: 'flowing' | 'waiting';
-  dashboardUrl: string | null;
-  /** Peak messages per second lately (counted by the site service). */
-  peaksPerS: number;
-  /** The edge's durable entries waiting for the broker, and dropped (its own counts). */
-  pending: number;
-  dropped: number;
-}
+export type { SiteNodeView };
 
 interface NodeEntry {
   status: NodeStatusMessage;

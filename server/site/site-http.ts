@@ -11,12 +11,13 @@ import Fastify, { type FastifyInstance } from 'fastify';
 import { HttpError } from '../http/errors.ts';
 import { shown, type OriginPolicy } from '../http/origin-policy.ts';
 import { staticRoutes } from '../http/routes/static.ts';
-import { PLAN_IMAGE_TYPES, type SitePlan } from './plan-file.ts';
+import type { SitePlanView } from '../../shared/site-view.ts';
+import { PLAN_IMAGE_TYPES } from './plan-file.ts';
 
 export interface SiteHttpDeps {
   site: () => unknown;
   sources: () => unknown;
-  plan: SitePlan;
+  plan: SitePlanView;
   /** The checked path of the plan's image, or null. */
   planImage: string | null;
   originPolicy?: OriginPolicy;
@@ -53,7 +54,7 @@ export function buildSiteApp(d: SiteHttpDeps): FastifyInstance {
 
   app.get('/api/site', async () => d.site());
   app.get('/api/site/sources', async () => d.sources());
-  app.get('/api/site/plan', async () => ({ ...d.plan, image: d.plan.image && d.planImage ? { ...d.plan.image, url: 'api/site/plan/image' } : null }));
+  app.get('/api/site/plan', async () => d.plan);
   app.get('/api/site/plan/image', async (req, reply) => {
     if (!d.planImage) throw new HttpError('ERR_HTTP_NOT_FOUND', { method: 'GET', url: req.url.split('?')[0] });
     return reply.header('content-type', PLAN_IMAGE_TYPES[extname(d.planImage).toLowerCase()]).header('cache-control', 'max-age=60').send(createReadStream(d.planImage));

@@ -24,8 +24,10 @@ import { SiteCore, type PeaksToBearings, type SiteWindowResult } from './site-co
 import { buildSiteApp } from './site-http.ts';
 import { SITE_LIVE_PATH, SiteLive } from './site-live.ts';
 import type { LocateWindow, SourceTracker, TrackedSource } from './types.ts';
+import type { BrokerState, SiteLiveMessage, SitePlanView, SiteSourceView, SiteView, SourcesView } from '../../shared/site-view.ts';
 
-export type BrokerState = 'connecting' | 'connected' | 'reconnecting' | 'closed';
+export type { BrokerState, SiteView, SourcesView };
+
 
 export interface SiteServiceOptions {
   natsUrl: string;
@@ -74,24 +76,7 @@ export interface SiteService {
   close(): Promise<void>;
 }
 
-export interface SiteView {
-  site: string;
-  broker: { state: BrokerState; url: string; reconnects: number };
-  windowS: number;
-  offlineAfterS: number;
-  nodes: ReturnType<SiteCore['registry']['list']>;
-  counters: { messages: number; malformed: number; foreign: number; windows: number; peaksUnused: number; dropped: number; locateFailed: number; late: number; byReason: Record<string, number> };
-  live: SiteLive['stats'];
-}
-
-export interface SourcesView {
-  windowUtc: string | null;
-  windowIndex: number | null;
-  sources: ReturnType<typeof sourceView>[];
-  bearings: SiteWindowResult['bearings'];
-}
-
-function sourceView(s: TrackedSource) {
+function sourceView(s: TrackedSource): SiteSourceView {
   return {
     id: s.id,
     xM: s.xM,
@@ -131,8 +116,8 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
     tracker,
     toBearings,
     nowMs,
-    onWindow: (r) => live?.broadcast({ type: 'window', ...sourcesFrom(r), nodes: core.registry.list(), counters: counters() }),
-    onNodes: () => live?.broadcast({ type: 'nodes', nodes: core.registry.list() }),
+    onWindow: (r) => live?.broadcast({ type: 'window', ...sourcesFrom(r), nodes: core.registry.list(), counters: counters() } satisfies SiteLiveMessage),
+    onNodes: () => live?.broadcast({ type: 'nodes', nodes: core.registry.list() } satisfies SiteLiveMessage),
   });
 
   const counters = (): SiteView['counters'] => {
@@ -151,14 +136,16 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
     live: { ...liveRef().stats },
   });
   const sourcesView = () => sourcesFrom(core.latest());
-  live = new SiteLive({ hello: () => ({ type: 'hello', site: siteView(), ...sourcesView(), plan }) });
+  const planImage = o.planDir ? planImagePath(o.planDir, plan) : null;
+  // The image's URL is relative to the page (served at `/`); absent when the file is not there.
+  const planView: SitePlanView = { ...plan, image: plan.image && planImage ? { ...plan.image, url: 'api/site/plan/image' } : null };
+  live = new SiteLive({ hello: (): SiteLiveMessage => ({ type: 'hello', site: siteView(), ...sourcesView(), plan: planView }) });
   const liveRef = () => live as SiteLive;
 
   // HTTP
   const host = o.host ?? '127.0.0.1';
   const originPolicy = new OriginPolicy({ host, allowedHosts: o.allowedHosts });
-  const planImage = o.planDir ? planImagePath(o.planDir, plan) : null;
-  const app = buildSiteApp({ site: siteView, sources: sourcesView, plan, planImage, originPolicy, staticDir: o.staticDir, logger: o.logger });
+  const app = buildSiteApp({ site: siteView, sources: sourcesView, plan: planView, planImage, originPolicy, staticDir: o.staticDir, logger: o.logger });
   const upgradeAuth = createUpgradeAuth({ token: null, openStatus: true, paths: { [SITE_LIVE_PATH]: 'read' }, originPolicy });
   await app.listen({ port: o.httpPort, host });
   (app.server as Server).on('upgrade', (req, socket, head) => {
