@@ -44,7 +44,8 @@ export interface SiteCountersView {
 
 export interface SiteView {
   site: string;
-  broker: { state: BrokerState; url: string; reconnects: number };
+  /** `lastError`: the broker connection's last error (refused, authorisation…), or null. */
+  broker: { state: BrokerState; url: string; reconnects: number; lastError: string | null };
   windowS: number;
   offlineAfterS: number;
   nodes: SiteNodeView[];

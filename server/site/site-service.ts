@@ -128,7 +128,7 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
     r ? { windowUtc: r.windowUtc, windowIndex: r.index, sources: r.sources.map(sourceView), bearings: r.bearings } : { windowUtc: null, windowIndex: null, sources: [], bearings: [] };
   const siteView = (): SiteView => ({
     site: o.site,
-    broker: { state, url: o.natsUrl, reconnects },
+    broker: { state, url: o.natsUrl, reconnects, lastError },
     windowS,
     offlineAfterS,
     nodes: core.registry.list(),
@@ -161,22 +161,33 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
   // Broker: connect in the background so the HTTP side answers while it is away.
   let nc: NatsConnection | null = null;
   let closing = false;
+  let lastError: string | null = null;
+  let retry: ReturnType<typeof setTimeout> | null = null;
+  let wake: (() => void) | null = null;
   const connected = (async () => {
-    try {
-      nc = await connect({
-        servers: o.natsUrl.replace(/^nats:\/\//, ''),
-        token: o.token ?? undefined,
-        name: `nullsteer-site-${o.site}`,
-        waitOnFirstConnect: true,
-        reconnect: true,
-        maxReconnectAttempts: -1,
-        reconnectTimeWait: o.reconnectWaitMs ?? 500,
-        pingInterval: 2000,
-        maxPingOut: 2,
-      });
-    } catch {
-      state = 'closed';
-      return;
+    // The first connection is retried here (not with the client's waitOnFirstConnect, which close()
+    // could not stop); once connected, the client itself reconnects forever.
+    for (;;) {
+      if (closing) return;
+      try {
+        nc = await connect({
+          servers: o.natsUrl.replace(/^nats:\/\//, ''),
+          token: o.token ?? undefined,
+          name: `nullsteer-site-${o.site}`,
+          reconnect: true,
+          maxReconnectAttempts: -1,
+          reconnectTimeWait: o.reconnectWaitMs ?? 500,
+          pingInterval: 2000,
+          maxPingOut: 2,
+        });
+        break;
+      } catch (e) {
+        lastError = (e as Error).message.slice(0, 200);
+        await new Promise<void>((resolve) => {
+          wake = resolve;
+          retry = setTimeout(resolve, o.reconnectWaitMs ?? 500);
+        });
+      }
     }
     if (closing) {
       await nc.close();
@@ -195,6 +206,7 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
           state = 'connected';
           reconnects++;
         } else if (s.type === 'close') state = 'closed';
+        else if (s.type === 'error') lastError = s.error.message.slice(0, 200);
       }
     })();
   })();
@@ -213,7 +225,9 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
       liveRef().close();
       const c = nc as NatsConnection | null;
       if (c) await c.close().catch(() => undefined);
-      else void connected; // still trying: it closes itself when connect resolves
+      if (retry) clearTimeout(retry);
+      (wake as (() => void) | null)?.();
+      await connected;
       state = 'closed';
       await app.close();
     },

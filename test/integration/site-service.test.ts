@@ -136,3 +136,27 @@ describe.skipIf(!natsAvailable)('site service with a real broker', () => {
     expect(await n.json()).toEqual({ error: { code: 'ERR_HTTP_NOT_FOUND', message: 'no route for GET /api/site/nothing', statusCode: 404 } });
   });
 });
+
+describe.skipIf(!natsAvailable)('site service and a broker that is not there yet', () => {
+  it('answers while the broker is down, connects when it comes up (with its token), and closes cleanly while still waiting', async () => {
+    const broker = await startBroker({ token: 'site-test-token' });
+    await broker.kill();
+    const svc = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, token: 'site-test-token', reconnectWaitMs: 200 });
+    const wrong = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, token: 'not-the-token', reconnectWaitMs: 200 });
+    try {
+      const site = (await (await fetch(new URL('/api/site', svc.url))).json()) as any;
+      expect(site.broker.state).toBe('connecting');
+      expect(site.nodes).toEqual([]);
+      await broker.start();
+      await waitFor(() => svc.brokerState() === 'connected', 30_000, 'connected once the broker is up');
+      // The wrong token never connects: its state stays "connecting" and the error says why.
+      await waitFor(async () => ((await (await fetch(new URL('/api/site', wrong.url))).json()) as any).broker.lastError !== null, 30_000, 'an error for the wrong token');
+      expect(wrong.brokerState()).toBe('connecting');
+    } finally {
+      await wrong.close();
+      await svc.close();
+      await broker.close();
+    }
+    expect(svc.brokerState()).toBe('closed');
+  });
+});
