@@ -6,7 +6,8 @@
  * counted.
  *
  * Bounds: `maxOpenWindows` (8) windows open at once (a further one drops its bearings, counted);
- * `maxBearingsPerWindow` (4096) bearings per window (beyond it dropped, counted).
+ * `maxBearingsPerWindow` (16384: 64 nodes × 16 peaks × 16 messages; about 100 bytes each) bearings
+ * per window (beyond it a message's bearings are dropped, counted).
  */
 import type { Bearing } from './types.ts';
 
@@ -50,7 +51,7 @@ export class SiteWindows {
     this.#graceMs = (opts.graceS ?? 0.3) * 1000;
     this.#maxAheadMs = (opts.maxAheadS ?? 2) * 1000;
     this.#maxOpen = opts.maxOpenWindows ?? 8;
-    this.#maxBearings = opts.maxBearingsPerWindow ?? 4096;
+    this.#maxBearings = opts.maxBearingsPerWindow ?? 16384;
   }
 
   /** The window index of a UTC time, ms. */
