@@ -50,14 +50,22 @@ describe.skipIf(!natsAvailable)('site service with a real broker', () => {
     const byName = Object.fromEntries(site.nodes.map((n: any) => [n.node, n]));
     expect(byName.west).toMatchObject({ state: 'online', usedForPositions: true, pose: { positionM: [0, 0, 0], headingDeg: 0 }, rowsPerS: 20, load: 0.25, input: 'flowing', dashboardUrl: 'http://127.0.0.1:1/west/' });
     expect(byName.loose).toMatchObject({ state: 'online', pose: null, usedForPositions: false, why: 'no pose: listed, not used for positions' });
-    // Same machine, same clock: the offset is the delivery delay, well under the flag bound.
-    expect(Math.abs(byName.west.clockOffsetMs)).toBeLessThan(50);
-    expect(byName.west.clockFlag).toBeUndefined();
+    // Same machine, same clock: the offset is the least delivery delay seen, which falls under the flag
+    // bound as status messages accumulate (the first few may be slow on a loaded machine).
+    await waitFor(async () => {
+      const west = (await get('/api/site')).nodes.find((n: any) => n.node === 'west');
+      return Math.abs(west.clockOffsetMs) < 50 && west.clockFlag === undefined;
+    }, 20_000, 'west clock offset under 50 ms');
   });
 
   it('gives the injected locator\'s source in /api/site/sources, with the rays per node', async () => {
-    await waitFor(async () => (await get('/api/site/sources')).sources.length > 0, 20_000, 'a located source');
-    const s = await get('/api/site/sources');
+    // One answer with a source and all three rays (a window on a loaded machine may miss a node's messages).
+    let s: any = null;
+    await waitFor(async () => {
+      const r = await get('/api/site/sources');
+      if (r.sources.length > 0 && r.bearings.length === 3) s = r;
+      return s !== null;
+    }, 20_000, 'a located source with three rays');
     expect(typeof s.windowUtc).toBe('string');
     expect(Date.parse(s.windowUtc) % 500).toBe(0); // windows aligned on UTC
     const src = s.sources[0];
