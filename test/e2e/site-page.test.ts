@@ -45,7 +45,7 @@ describe.skipIf(!browserAvailable || !natsAvailable)('site page', () => {
     writeFileSync(join(dir, 'plan.json'), JSON.stringify({ name: 'test yard', widthM: 140, heightM: 140, originM: [-20, -20], image: { file: 'yard.svg', metresPerPixel: 1 } }));
     const { plan, dir: planDir } = loadPlan(join(dir, 'plan.json'));
     broker = await startBroker();
-    svc = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, offlineAfterS: 2, plan, planDir, staticDir: CLIENT_DIST, locate: intersectFirstTwo, tracker: simpleTracker(), toBearings: testBearings });
+    svc = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, offlineAfterS: 3, plan, planDir, staticDir: CLIENT_DIST, locate: intersectFirstTwo, tracker: simpleTracker(), toBearings: testBearings });
     await waitFor(() => svc.brokerState() === 'connected', 20_000, 'site service connected');
     pub = await startSitePublisher(broker.url, SITE, NODES);
     await waitFor(() => svc.core.registry.size === 5, 20_000, 'five nodes');

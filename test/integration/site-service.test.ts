@@ -33,7 +33,7 @@ describe.skipIf(!natsAvailable)('site service with a real broker', () => {
 
   beforeAll(async () => {
     broker = await startBroker();
-    svc = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, windowS: 0.5, offlineAfterS: 2, locate: intersectFirstTwo, tracker: simpleTracker(), toBearings: testBearings, reconnectWaitMs: 200 });
+    svc = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, windowS: 0.5, offlineAfterS: 3, locate: intersectFirstTwo, tracker: simpleTracker(), toBearings: testBearings, reconnectWaitMs: 200 });
     await waitFor(() => svc.brokerState() === 'connected', 20_000, 'site service connected');
     pub = await startSitePublisher(broker.url, SITE, NODES);
   });
