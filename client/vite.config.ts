@@ -22,6 +22,8 @@ export default defineConfig({
     target: 'es2022',
     // One small app: a single chunk is simplest to serve and cache.
     chunkSizeWarningLimit: 400,
+    // Two pages: the dashboard (index.html) and the site page (site.html, served by `nullsteer site`).
+    rollupOptions: { input: { main: fileURLToPath(new URL('./index.html', import.meta.url)), site: fileURLToPath(new URL('./site.html', import.meta.url)) } },
   },
   server: { proxy, port: 5173, strictPort: false },
   preview: { proxy },

@@ -9,9 +9,10 @@ commands:
   analyze scan a WAV or raw recording offline: spectra and peaks (table or --json)
   simulate write the built-in scene as heard by an array to a WAV file
   listen  write one beam's live audio to standard output (float32, for aplay or sox)
+  site    run a site's service: fuse the arrays' bearings into positions, serve the site page
 run \`nullsteer <command> --help\` for a command's options.`;
 
-const COMMANDS = ['serve', 'send', 'analyze', 'simulate', 'listen'];
+const COMMANDS = ['serve', 'send', 'analyze', 'simulate', 'listen', 'site'];
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
@@ -33,6 +34,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'listen': {
       const { listenMain } = await import('./tools/listen.ts');
       return listenMain(rest);
+    }
+    case 'site': {
+      const { siteCommand } = await import('./tools/site.ts');
+      return siteCommand(rest);
     }
     case undefined:
     case '-h':

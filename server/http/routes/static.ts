@@ -18,7 +18,8 @@ const TYPES: Record<string, string> = {
   '.woff2': 'font/woff2',
 };
 
-export function staticRoutes(dir: string): FastifyPluginAsync {
+/** `page`: the HTML file served at `/` (the site service serves site.html from the same build). */
+export function staticRoutes(dir: string, page = 'index.html'): FastifyPluginAsync {
   const root = join(normalize(dir), sep);
   return async (app) => {
     const send = async (rel: string, reply: import('fastify').FastifyReply) => {
@@ -27,15 +28,15 @@ export function staticRoutes(dir: string): FastifyPluginAsync {
       try {
         const body = await readFile(path);
         const type = TYPES[extname(path)] ?? 'application/octet-stream';
-        return reply.header('content-type', type).header('cache-control', rel === 'index.html' ? 'no-cache' : 'max-age=3600').send(body);
+        return reply.header('content-type', type).header('cache-control', rel === page ? 'no-cache' : 'max-age=3600').send(body);
       } catch {
-        if (rel === 'index.html') {
+        if (rel === page) {
           return reply.code(503).header('content-type', 'text/plain; charset=utf-8').send('The dashboard is not built: run `npm run build:client` (npm ci does it), then reload.');
         }
         return reply.code(404).send({ error: { code: 'ERR_HTTP_NOT_FOUND', message: `no file ${rel}`, statusCode: 404 } });
       }
     };
-    app.get('/', async (_req, reply) => send('index.html', reply));
+    app.get('/', async (_req, reply) => send(page, reply));
     app.get<{ Params: { '*': string } }>('/assets/*', async (req, reply) => send(`assets/${req.params['*']}`, reply));
     app.get('/favicon.ico', async (_req, reply) => reply.code(204).send());
   };
