@@ -126,7 +126,8 @@ export class SiteCore {
     for (const w of this.windows.closeDue(now)) {
       let sources: TrackedSource[] = [];
       try {
-        const located = this.#o.locate(w.bearings, { speedOfSoundMps: this.#o.speedOfSoundMps ?? 343, windowUtcMs: w.startUtcMs });
+        const hints = this.#o.tracker.predict?.(w.startUtcMs);
+        const located = this.#o.locate(w.bearings, { speedOfSoundMps: this.#o.speedOfSoundMps ?? 343, windowUtcMs: w.startUtcMs, ...(hints ? { hints } : {}) });
         sources = this.#o.tracker.update(w.startUtcMs, located);
       } catch {
         this.counters.locateFailed++;

@@ -16,7 +16,7 @@
 import type { Server } from 'node:http';
 import type { AddressInfo } from 'node:net';
 import { connect, type NatsConnection } from '@nats-io/transport-node';
-import { siteWildcard, siteAzimuthDeg } from '../../shared/site.ts';
+import { siteWildcard } from '../../shared/site.ts';
 import { OriginPolicy } from '../http/origin-policy.ts';
 import { createUpgradeAuth } from '../http/upgrade-auth.ts';
 import { DEFAULT_PLAN, planImagePath, type SitePlan } from './plan-file.ts';
@@ -24,6 +24,9 @@ import { SiteCore, type PeaksToBearings, type SiteWindowResult } from './site-co
 import { buildSiteApp } from './site-http.ts';
 import { SITE_LIVE_PATH, SiteLive } from './site-live.ts';
 import type { LocateWindow, SourceTracker, TrackedSource } from './types.ts';
+import { bearingsFromPeaks } from './bearing-sigma.ts';
+import { locateWindow } from './locate.ts';
+import { ConstantVelocityTracker } from './tracker.ts';
 import type { BrokerState, SiteLiveMessage, SitePlanView, SiteSourceView, SiteView, SourcesView } from '../../shared/site-view.ts';
 
 export type { BrokerState, SiteView, SourcesView };
@@ -57,12 +60,6 @@ export interface SiteServiceOptions {
 }
 
 /** Placeholder stages until the real ones are wired (see the module comment). */
-const UNWIRED_LOCATE: LocateWindow = () => [];
-const unwiredTracker = (): SourceTracker => ({ update: () => [] });
-/** Site azimuth from the edge's array azimuth and the node's pose; σ = half the 3 dB width (a placeholder). */
-const UNWIRED_BEARINGS: PeaksToBearings = (msg, pose) =>
-  msg.peaks.map((p) => ({ node: msg.node, originM: pose.positionM, azimuthDeg: siteAzimuthDeg(p.azimuthDeg, pose), elevationDeg: null, sigmaDeg: Math.max(0.5, p.widthDeg / 2), levelDb: p.levelDb, utcMs: msg.utcMs }));
-
 export interface SiteService {
   readonly core: SiteCore;
   readonly live: SiteLive;
@@ -98,10 +95,11 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
   const offlineAfterS = o.offlineAfterS ?? 3;
   const nowMs = o.nowMs ?? Date.now;
   const plan = o.plan ?? DEFAULT_PLAN;
-  // WIRING: the real stages replace these three defaults (locateWindow, new ConstantVelocityTracker(), peaks → bearings).
-  const locate = o.locate ?? UNWIRED_LOCATE;
-  const tracker = o.tracker ?? unwiredTracker();
-  const toBearings = o.toBearings ?? UNWIRED_BEARINGS;
+  // The location stages (tests may put their own in): bearings from peaks (times already on the site
+  // clock, so no further offset), the association and fix per window, the tracks.
+  const locate = o.locate ?? locateWindow;
+  const tracker = o.tracker ?? new ConstantVelocityTracker();
+  const toBearings: PeaksToBearings = o.toBearings ?? ((msg, pose) => bearingsFromPeaks(msg, pose, { clockOffsetMs: 0, useElevation: false }));
 
   let state: BrokerState = 'connecting';
   let reconnects = 0;

@@ -86,5 +86,7 @@ export type LocateWindow = (bearings: Bearing[], opts: { speedOfSoundMps: number
 
 /** Follow located sources over windows (one instance per site service). */
 export interface SourceTracker {
+  /** Every track predicted at windowUtcMs, handed to the locator before the window is located (travel time, support). */
+  predict?(windowUtcMs: number): TrackHint[];
   update(windowUtcMs: number, located: LocatedSource[]): TrackedSource[];
 }
