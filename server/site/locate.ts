@@ -22,7 +22,8 @@
  * spread of the levels at 1 m, σ = LEVEL_SIGMA_DB, plus, when tracks are given, the normalised
  * distance² to the nearest track's prediction capped at the gate), each bearing at most once. A candidate of two
  * arrays is refused as a ghost when another array that heard something this window has the
- * position within range and lends no bearing, unless a track predicts a source there (χ² 2-dof gate,
+ * position within range, would have heard a source there at least as loud as the weakest direction
+ * it reported (the louder of the pair's levels at 1 m less 20·log10 of its range), and lends no bearing, unless a track predicts a source there (χ² 2-dof gate,
  * 99 %); with two arrays only it is kept and flagged `ambiguous` when either array heard more than
  * one source.
  *
@@ -108,12 +109,22 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const perNode = byNode.map((list) => list.length);
   const multi = perNode.some((n) => n > 1);
 
-  /** Ghost: another array heard something this window, has the position in range, and lends nothing. */
-  const refusedByOthers = (na: number, nb: number, x: number, y: number): boolean => {
+  // Per node, the weakest level it reported this window: it demonstrably hears sources that weak.
+  const weakestDb = byNode.map((list) => list.reduce((p, m) => Math.min(p, work[m].b.levelDb), Infinity));
+  /**
+   * Ghost: another array heard something this window, has the position in range, would have heard
+   * a source there (level at 1 m `level1mDb`, the louder of the pair's two estimates: a ghost pairs
+   * bearings of different sources, whose levels disagree; spherical spreading) at least as loud as
+   * the weakest direction it reported, and lends nothing. A source too weak there for that array (far from it,
+   * or under a louder neighbour's peak) is not refuted by its silence.
+   */
+  const refusedByOthers = (na: number, nb: number, x: number, y: number, level1mDb: number): boolean => {
     for (let k = 0; k < nodeNames.length; k++) {
       if (k === na || k === nb || perNode[k] === 0) continue;
       const o = work[byNode[k][0]];
-      if (Math.hypot(x - o.ox, y - o.oy) <= MAX_RANGE_M) return true;
+      const r = Math.hypot(x - o.ox, y - o.oy);
+      if (r > MAX_RANGE_M) continue;
+      if (!(level1mDb - 20 * Math.log10(Math.max(r, MIN_RANGE_M)) < weakestDb[k])) return true;
     }
     return false;
   };
@@ -154,7 +165,8 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     }
     // A lone pair that another array would refuse (below) is dropped before its fit: most pairs of
     // a busy window are such ghosts, and the fits are the cost.
-    if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y)) return null;
+    const pairLevel1mDb = Math.max(A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)), B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M)));
+    if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y, pairLevel1mDb)) return null;
     const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
     if (!fitted) return null;
     x = fitted.fix.xM;
@@ -169,10 +181,10 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const nodes = members.length;
     const hintD2 = hintDistance2(hints, x, y, fitted.fix.covXY);
     const hinted = hintD2 <= TRACK_GATE_CHI2;
-    if (nodes === 2 && !hinted && refusedByOthers(A.node, B.node, x, y)) return null;
     // Score: χ² of the misses plus the spread of the levels at 1 m.
     const levels = members.map((m, q) => work[m].b.levelDb + 20 * Math.log10(Math.max(fitted.ranges[q], MIN_RANGE_M)));
     const meanL = levels.reduce((p, v) => p + v, 0) / nodes;
+    if (nodes === 2 && !hinted && refusedByOthers(A.node, B.node, x, y, Math.max(...levels))) return null;
     const spread = levels.reduce((p, v) => p + ((v - meanL) / LEVEL_SIGMA_DB) ** 2, 0);
     return { seed: [i, j], members, fix: fitted.fix, atUtcMs: fitted.atUtcMs, nodes, score: fitted.fix.chi2 + spread + (hints.length > 0 ? Math.min(hintD2, TRACK_GATE_CHI2) : 0), hinted, ranges: fitted.ranges, vx, vy, moving: hint !== null };
   };
