@@ -258,6 +258,31 @@ describe('association across arrays', () => {
     expect(locateWindow(bs.slice(0, 2), { speedOfSoundMps: C, windowUtcMs: T0 })).toHaveLength(1);
   });
 
+  it('a source too weak for the third array to hear is not refuted by its silence (the yard fan: −44.2 dB at west, west hears down to −36.0 dB)', () => {
+    // Issue 15's yard (config/scenes/eastgate-yard.json, config/arrays/yard-*.json): west is 51.5 m
+    // from the fan (−10 dB at 1 m → −44.2 dB there, 29.1° from west), which a 0.2 m ring cannot
+    // resolve beside the cart (here at (40, 20): 31.6 m, 18.4°, −36.0 dB): west reports no fan
+    // direction, while east and north hear it at 123.1° and 306.9°. The weakest direction west
+    // reports is the cart's, −36.0 dB (pump −35.0, generator −33.7): the fan would be 8.2 dB below it.
+    const yard: SceneArray[] = [{ node: 'west', xM: 10, yM: 10 }, { node: 'east', xM: 70, yM: 12 }, { node: 'north', xM: 40, yM: 55 }];
+    const sources = [still('pump', 20, 30, -8), still('generator', 40, 5, -4), still('cart', 40, 20, -6), still('fan', 55, 35, -10)];
+    const all = sceneBearings(null, yard, sources, 0, 1, C);
+    const westFan = all.findIndex((b) => b.node === 'west' && Math.abs(b.azimuthDeg - 29.1) < 0.1);
+    expect(westFan).toBeGreaterThanOrEqual(0);
+    expect(all[westFan].levelDb).toBeCloseTo(-10 - 20 * Math.log10(Math.hypot(45, 25)), 6);
+    const bs = all.filter((_, i) => i !== westFan);
+    const out = locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0 });
+    expect(out).toHaveLength(4);
+    const fan = out.find((l) => Math.hypot(l.xM - 55, l.yM - 35) < 0.5);
+    expect(fan?.nodes).toEqual(['east', 'north']);
+    // West reporting a direction as weak as −50 dB (pointing at nothing here) shows it would have
+    // heard the fan: the crossing is then refused as a ghost.
+    const faint = bearing('west', 10, 10, 300, { levelDb: -50 });
+    const refused = locateWindow([...bs, faint], { speedOfSoundMps: C, windowUtcMs: T0 });
+    expect(refused.find((l) => Math.hypot(l.xM - 55, l.yM - 35) < 0.5)).toBeUndefined();
+    expect(refused).toHaveLength(3);
+  });
+
   it('refuses crossings behind an array, beyond 2 km, and of nearly parallel bearings', () => {
     const w = { speedOfSoundMps: C, windowUtcMs: T0 };
     // Rays pointing away from each other cross behind both arrays.
