@@ -190,11 +190,20 @@ export function accumulateDelayed(
   // data[first + j] is the sample pushed (back − j) pushes ago; output i, tap t needs
   // n − i + o + taps − 1 − t pushes ago, i.e. j = i + t.
   const first = line.windowStart(back);
-  // Four outputs per pass with the input sliding through registers: four independent accumulation
-  // chains hide the add latency and each load serves four products (measured ~1.7× the plain loop).
+  accumulateWindow(out, outStart, n, x, first, coeffs, coeffOffset, taps);
+}
+
+/**
+ * out[outStart + i] += Σ_t g[t] · x[xStart + i + t], i = 0 … n−1: the fractional-delay filter over a
+ * window of emitted samples (g oldest first, as {@link FractionalDelay.design} gives it). Each output sums its
+ * taps in order t = 0 … taps−1, so the result does not depend on where a run starts. Four outputs per
+ * pass with the input sliding through registers: four independent accumulation chains hide the add
+ * latency and each load serves four products (measured ~1.7× the plain loop).
+ */
+export function accumulateWindow(out: Float64Array, outStart: number, n: number, x: Float64Array, xStart: number, g: Float64Array, gStart: number, taps: number): void {
   let i = 0;
   for (; i + 4 <= n; i += 4) {
-    const q = first + i;
+    const q = xStart + i;
     let a0 = 0;
     let a1 = 0;
     let a2 = 0;
@@ -203,7 +212,7 @@ export function accumulateDelayed(
     let x1 = x[q + 1];
     let x2 = x[q + 2];
     for (let t = 0; t < taps; t++) {
-      const h = coeffs[coeffOffset + t];
+      const h = g[gStart + t];
       const x3 = x[q + t + 3];
       a0 += h * x0;
       a1 += h * x1;
@@ -220,9 +229,9 @@ export function accumulateDelayed(
     out[o + 3] += a3;
   }
   for (; i < n; i++) {
-    const q = first + i;
+    const q = xStart + i;
     let acc = 0;
-    for (let t = 0; t < taps; t++) acc += coeffs[coeffOffset + t] * x[q + t];
+    for (let t = 0; t < taps; t++) acc += g[gStart + t] * x[q + t];
     out[outStart + i] += acc;
   }
 }

@@ -1,7 +1,8 @@
 /**
  * The pieces of a site scene's emitted signals (site-scene.ts): counter-based hashing (a sample of
  * noise is a pure function of its index, never of a generator's state), the band-pass that shapes
- * broadband sources, and the fractional-delay filter run over a window of emitted samples.
+ * broadband sources (the fractional-delay filter over a window of emitted samples is
+ * fractional-delay.ts accumulateWindow, shared with the built-in scene).
  */
 import { besselI0 } from './fractional-delay.ts';
 
@@ -25,47 +26,6 @@ export function fnv1a(text: string): number {
   let h = 0x811c9dc5;
   for (let i = 0; i < text.length; i++) h = Math.imul(h ^ text.charCodeAt(i), 0x01000193);
   return h >>> 0;
-}
-
-/**
- * out[outStart + i] += Σ_t g[t] · x[xStart + i + t], i = 0 … n−1: the fractional-delay filter over a
- * window of emitted samples (g oldest first, fractional-delay.ts convention). Each output sums its
- * taps in order t = 0 … taps−1, so the result does not depend on where a run starts.
- */
-export function accumulateWindow(out: Float64Array, outStart: number, n: number, x: Float64Array, xStart: number, g: Float64Array, gStart: number, taps: number): void {
-  let i = 0;
-  for (; i + 4 <= n; i += 4) {
-    const q = xStart + i;
-    let a0 = 0;
-    let a1 = 0;
-    let a2 = 0;
-    let a3 = 0;
-    let x0 = x[q];
-    let x1 = x[q + 1];
-    let x2 = x[q + 2];
-    for (let t = 0; t < taps; t++) {
-      const h = g[gStart + t];
-      const x3 = x[q + t + 3];
-      a0 += h * x0;
-      a1 += h * x1;
-      a2 += h * x2;
-      a3 += h * x3;
-      x0 = x1;
-      x1 = x2;
-      x2 = x3;
-    }
-    const o = outStart + i;
-    out[o] += a0;
-    out[o + 1] += a1;
-    out[o + 2] += a2;
-    out[o + 3] += a3;
-  }
-  for (; i < n; i++) {
-    const q = xStart + i;
-    let acc = 0;
-    for (let t = 0; t < taps; t++) acc += g[gStart + t] * x[q + t];
-    out[outStart + i] += acc;
-  }
 }
 
 /**

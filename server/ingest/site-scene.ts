@@ -31,7 +31,8 @@ import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { wrap360, type Pose } from '../../shared/site.ts';
 import { ConfigError } from '../config/validate.ts';
 import { FractionalDelay } from './fractional-delay.ts';
-import { accumulateWindow, bandPass, BAND_FIR_TAPS, fnv1a, mix32 } from './scene-signals.ts';
+import { accumulateWindow } from './fractional-delay.ts';
+import { bandPass, BAND_FIR_TAPS, fnv1a, mix32 } from './scene-signals.ts';
 import { Trajectory } from './scene-trajectory.ts';
 import { MAX_SOURCE_SPEED_MPS, type SceneSource, type SiteScene } from './site-scene-file.ts';
 
