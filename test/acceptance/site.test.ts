@@ -26,6 +26,9 @@ import { EDGE_SEQ_HEADER } from '../../server/cluster/edge-publisher.ts';
 import type { Service } from '../../server/service.ts';
 import { loadScene } from '../../server/ingest/site-scene-file.ts';
 import { Trajectory } from '../../server/ingest/scene-trajectory.ts';
+import { writeFileSync } from 'node:fs';
+import { locateWindow } from '../../server/site/locate.ts';
+import type { Bearing } from '../../server/site/types.ts';
 import { createSiteService, type SiteService } from '../../server/site/site-service.ts';
 import type { SiteWindowResult } from '../../server/site/site-core.ts';
 import { natsAvailable, startBroker, type TestBroker } from '../helpers/nats-server.ts';
@@ -40,6 +43,9 @@ const STILL_WITHIN_M = 1.5;
 const MOVING_WITHIN_M = 3;
 /** "Within 5 s" of the restart, in windows of 0.5 s. */
 const RECOVERY_WINDOWS = 10;
+/** SITE_ACCEPTANCE_DUMP=FILE: every window's bearings as given to the locator, written as JSON (for replaying the locator offline). */
+const DUMP = process.env.SITE_ACCEPTANCE_DUMP ?? '';
+const dumped: { bearings: Bearing[]; windowUtcMs: number; speedOfSoundMps: number }[] = [];
 
 describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the site service', () => {
   let broker: TestBroker;
@@ -58,7 +64,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
       return { name: s.name, moving: !tr.fixed, at: (utcMs: number) => (tr.at(Math.round((utcMs * FS) / 1000), p), [p[0], p[1]] as [number, number]) };
     });
     broker = await startBroker();
-    site = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, windowS: 0.5, offlineAfterS: 3, reconnectWaitMs: 200 });
+    site = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, windowS: 0.5, offlineAfterS: 3, reconnectWaitMs: 200, ...(DUMP ? { locate: (b, o) => (dumped.push({ bearings: b, windowUtcMs: o.windowUtcMs, speedOfSoundMps: o.speedOfSoundMps }), locateWindow(b, o)) } : {}) });
     poll = setInterval(() => {
       for (const r of site.core.results) windows.set(r.index, r);
     }, 200);
@@ -74,6 +80,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
   }, 60_000);
 
   afterAll(async () => {
+    if (DUMP) writeFileSync(DUMP, JSON.stringify(dumped));
     if (poll) clearInterval(poll);
     await site?.close();
     for (const e of edges.values()) await e.close().catch(() => undefined);
