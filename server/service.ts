@@ -40,6 +40,7 @@ import { BlockBus } from './ingest/block-bus.ts';
 import { RateMeter, type IngestHub, type StreamStatus } from './ingest/ingest-hub.ts';
 import { InputChoiceError, Inputs, withMemberOffsets } from './ingest/inputs.ts';
 import { SceneSimulator, SimulatorSource } from './ingest/simulator.ts';
+import { meanAgeS } from '../shared/tau-advisor.ts';
 import { sampleIndexUtcMs, type SiteSceneSimulator } from './ingest/site-scene.ts';
 import { createSiteSceneSimulator, UtcSceneSource } from './ingest/site-scene-source.ts';
 import type { UdpIngest } from './ingest/udp.ts';
@@ -634,7 +635,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const cl = config.cluster;
   if (cl.natsUrl) {
     const url = dashboardUrl(config.server.host, httpPort);
-    edge = new EdgePublisher({ ...cl, natsUrl: cl.natsUrl, sampleRateHz: fs, pose: loaded.geometry.pose ?? null, describe: () => ({ arrayName: geometry.name, channels, load: (eng.status() as { load: number }).load, dashboardUrl: url }), ...(config.simulator.scene !== null && config.source.kind === 'simulator' ? { utcOfRow: (i: number) => sampleIndexUtcMs(i, fs) } : {}) });
+    edge = new EdgePublisher({ ...cl, natsUrl: cl.natsUrl, sampleRateHz: fs, pose: loaded.geometry.pose ?? null, describe: () => ({ arrayName: geometry.name, channels, load: (eng.status() as { load: number }).load, dashboardUrl: url }), estimateAgeMs: () => meanAgeS(eng.params.lambda, { fftSize: eng.fftSize, hopSamples: eng.hop, sampleRateHz: fs }) * 1000, ...(config.simulator.scene !== null && config.source.kind === 'simulator' ? { utcOfRow: (i: number) => sampleIndexUtcMs(i, fs) } : {}) });
     journal.onRecord = (e) => edge?.journal(e);
   }
   sim?.start(bus.publish);

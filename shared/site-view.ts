@@ -39,6 +39,8 @@ export interface SiteCountersView {
   dropped: number;
   locateFailed: number;
   late: number;
+  /** How long after its end a window waits for late messages now, seconds (follows the nodes' lag; server/site/site-windows.ts). */
+  graceS: number;
   byReason: Record<string, number>;
 }
 

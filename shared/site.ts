@@ -103,6 +103,14 @@ export interface PeakMessage {
   sampleRateHz: number;
   /** UTC of that sample, ms since the epoch, from the edge's clock. */
   utcMs: number;
+  /**
+   * Mean age of the estimate the peaks come from, ms (optional, 0 when absent): the covariance is an
+   * exponential average over past frames, so its peaks describe the sound of about
+   * (N/2 + λ/(1−λ)·H)/fs before the row's last sample (shared/tau-advisor.ts meanAgeS). The site
+   * service takes the bearings at utcMs − ageMs: with τ = 0.5 s a source crossing at 2 m/s is
+   * otherwise placed about a metre behind.
+   */
+  ageMs?: number;
   peaks: SitePeak[];
 }
 
@@ -202,11 +210,14 @@ function decodeJson(data: Uint8Array | string): unknown {
   }
 }
 
+/** Largest mean age of a peak message's estimate, ms: τ's live ceiling, 3600 s (shared/processing-fields.ts), and a frame. */
+const MAX_AGE_MS = 3_700_000;
+
 const PEAK_FIELDS = ['azimuthDeg', 'elevationDeg', 'siteAzimuthDeg', 'siteElevationDeg', 'levelDb', 'widthDeg', 'aboveFloorDb'] as const;
 
 /** Parse and check a peak message. @throws SiteMessageError */
 export function parsePeakMessage(data: Uint8Array | string): PeakMessage {
-  const o = obj('', decodeJson(data), ['v', 'site', 'node', 'sampleIndex', 'sampleRateHz', 'utcMs', 'peaks']);
+  const o = obj('', decodeJson(data), ['v', 'site', 'node', 'sampleIndex', 'sampleRateHz', 'utcMs', 'ageMs', 'peaks']);
   if (o.v !== SITE_MESSAGE_VERSION) throw new SiteMessageError('v', `must be ${SITE_MESSAGE_VERSION}`);
   const peaks = o.peaks;
   if (!Array.isArray(peaks) || peaks.length > MAX_SITE_PEAKS) throw new SiteMessageError('peaks', `must be a list of at most ${MAX_SITE_PEAKS} peaks`);
@@ -217,6 +228,7 @@ export function parsePeakMessage(data: Uint8Array | string): PeakMessage {
     sampleIndex: Math.round(num('sampleIndex', o.sampleIndex, 0, MAX_INDEX)),
     sampleRateHz: num('sampleRateHz', o.sampleRateHz, 1000, 384000),
     utcMs: num('utcMs', o.utcMs, UTC_MIN, UTC_MAX),
+    ...(o.ageMs === undefined ? {} : { ageMs: num('ageMs', o.ageMs, 0, MAX_AGE_MS) }),
     peaks: peaks.map((p, i) => {
       const at = `peaks[${i}]`;
       const q = obj(at, p, PEAK_FIELDS);

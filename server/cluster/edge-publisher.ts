@@ -62,6 +62,8 @@ export interface EdgePublisherOptions {
   describe: () => EdgeDescription;
   /** UTC (ms) of a row: from its sample index where the source keeps a UTC clock, else the row's emission time. */
   utcOfRow?: (sampleIndex: number, emittedAtMs: number) => number;
+  /** Mean age of the estimate behind a row's peaks, ms (the covariance's memory; it follows τ live). Absent: not sent. */
+  estimateAgeMs?: () => number;
   statusIntervalMs?: number;
   ackTimeoutMs?: number;
   onError?: (message: string) => void;
@@ -475,9 +477,14 @@ export class EdgePublisher {
     if (this.#scratch.length < d) this.#scratch = new Float64Array(d);
     const peaks = sitePeaks(row.mvdrDb, row.peaks.mvdr, grid, this.#o.pose, this.#scratch);
     if (!peaks || peaks.length === 0) return;
-    const msg: PeakMessage = { v: SITE_MESSAGE_VERSION, site: this.#o.site, node: this.#o.node, sampleIndex: Math.max(0, row.sampleIndex), sampleRateHz: this.#o.sampleRateHz, utcMs, peaks };
+    const msg: PeakMessage = { v: SITE_MESSAGE_VERSION, site: this.#o.site, node: this.#o.node, sampleIndex: Math.max(0, row.sampleIndex), sampleRateHz: this.#o.sampleRateHz, utcMs, ...this.#age(), peaks };
     this.#queue.push('peaks', this.#subjects.peaks, enc.encode(JSON.stringify(msg)));
     this.#pump();
+  }
+
+  #age(): { ageMs?: number } {
+    const a = this.#o.estimateAgeMs?.();
+    return a !== undefined && Number.isFinite(a) && a >= 0 ? { ageMs: Math.round(a * 1000) / 1000 } : {};
   }
 
   #sendStatus(): void {

@@ -107,7 +107,8 @@ export class SiteCore {
       if (!this.registry.notePeak(msg.node, now)) return this.#count('unknownNode', 'peaksUnused');
       const pose = this.registry.usablePose(msg.node);
       if (!pose) return this.#count(this.registry.state(msg.node) === 'offline' ? 'offlineNode' : 'noPose', 'peaksUnused');
-      const utcMs = msg.utcMs + (this.registry.clockOffsetMs(msg.node) ?? 0);
+      // The bearings' time: the row's UTC on the site clock, less the mean age of the estimate.
+      const utcMs = msg.utcMs - (msg.ageMs ?? 0) + (this.registry.clockOffsetMs(msg.node) ?? 0);
       const bearings = this.#o.toBearings({ ...msg, utcMs }, pose);
       const r = this.windows.add(msg.node, utcMs, bearings, now);
       if (typeof r !== 'number') this.#count(r, 'dropped');

@@ -41,7 +41,7 @@ export interface SiteServiceOptions {
   host?: string;
   windowS?: number;
   offlineAfterS?: number;
-  /** Grace after a window's end for late messages, seconds (0.3). */
+  /** Floor of the grace after a window's end for late messages, seconds (0.3; it follows the nodes' lag up to 5 s, site-windows.ts). */
   graceS?: number;
   plan?: SitePlan;
   /** The plan file's folder (its image is served from there only). */
@@ -120,7 +120,7 @@ export async function createSiteService(o: SiteServiceOptions): Promise<SiteServ
 
   const counters = (): SiteView['counters'] => {
     const c = core.counters;
-    return { messages: c.messages, malformed: c.malformed, foreign: c.foreign, windows: c.windows, peaksUnused: c.peaksUnused, dropped: c.dropped, locateFailed: c.locateFailed, late: core.windows.counters.late, byReason: { ...c.byReason } };
+    return { messages: c.messages, malformed: c.malformed, foreign: c.foreign, windows: c.windows, peaksUnused: c.peaksUnused, dropped: c.dropped, locateFailed: c.locateFailed, late: core.windows.counters.late, graceS: core.windows.graceMs(nowMs()) / 1000, byReason: { ...c.byReason } };
   };
   const sourcesFrom = (r: SiteWindowResult | null): SourcesView =>
     r ? { windowUtc: r.windowUtc, windowIndex: r.index, sources: r.sources.map(sourceView), bearings: r.bearings } : { windowUtc: null, windowIndex: null, sources: [], bearings: [] };

@@ -81,6 +81,9 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
     for (const p of got.peaks) {
       expect(p.site).toBe(SITE);
       expect(p.node).toBe(NODE);
+      // Mean age of the estimate (N/2 + λ/(1−λ)·H)/fs with λ = 1 − H/(fs·τ): for N = 2H it is τ
+      // itself, 0.5 s by default (config/default.json).
+      expect(p.ageMs).toBeCloseTo(500, 6);
       for (const k of p.peaks) {
         expect(k.siteAzimuthDeg).toBeCloseTo(wrap360(k.azimuthDeg + HEADING_DEG), 9);
         expect(k.siteElevationDeg).toBe(k.elevationDeg);

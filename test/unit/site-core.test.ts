@@ -10,7 +10,7 @@ import { describe, expect, it } from 'vitest';
 import { siteSubject, type NodeStatusMessage, type PeakMessage, type Pose } from '../../shared/site.ts';
 import { CLOCK_FLAG_MS, NodeRegistry, OFFSET_SAMPLES } from '../../server/site/node-registry.ts';
 import { SiteCore, type PeaksToBearings } from '../../server/site/site-core.ts';
-import { SiteWindows } from '../../server/site/site-windows.ts';
+import { LAG_MARGIN_MS, LAG_MEMORY_S, SiteWindows } from '../../server/site/site-windows.ts';
 import type { Bearing, LocateWindow, SourceTracker } from '../../server/site/types.ts';
 import { mulberry32 } from '../helpers/random.ts';
 
@@ -97,17 +97,42 @@ describe('windows on UTC', () => {
     expect(w.add('a', T0 + 100, [b(T0 + 100)], T0 + 120)).toBe(k0);
     // The first call closes the window before k0 (empty); k0 is inside its grace and stays open.
     expect(w.closeDue(T0 + 500 + 299).map((c) => c.index)).toEqual([k0 - 1]);
-    // A late message inside the grace still counts for window k0.
+    // A late message inside the grace still counts for window k0. Its lag (250 ms) raises the grace
+    // to 250 + LAG_MARGIN_MS = 350 ms: k0 is still open at T0 + 800 and closes at T0 + 850.
     expect(w.add('a', T0 + 450, [b(T0 + 450)], T0 + 700)).toBe(k0);
-    const closed = w.closeDue(T0 + 800);
+    expect(w.graceMs(T0 + 700)).toBe(250 + LAG_MARGIN_MS);
+    expect(w.closeDue(T0 + 849)).toEqual([]);
+    const closed = w.closeDue(T0 + 850);
     expect(closed.map((c) => c.index)).toEqual([k0]);
     expect(closed[0].bearings).toHaveLength(2);
     expect(closed[0].latestByNode.get('a')?.[0].utcMs).toBe(T0 + 450);
     // After the close, a message for k0 is late.
     expect(w.add('a', T0 + 480, [b(T0 + 480)], T0 + 900)).toBe('late');
     expect(w.counters.late).toBe(1);
-    // Windows without bearings still close, in order, with no holes.
-    expect(w.closeDue(T0 + 2000 + 300).map((c) => c.index)).toEqual([k0 + 1, k0 + 2, k0 + 3]);
+    // Windows without bearings still close, in order, with no holes (the late one's 420 ms lag is
+    // the grace now: 520 ms).
+    expect(w.closeDue(T0 + 2000 + 520).map((c) => c.index)).toEqual([k0 + 1, k0 + 2, k0 + 3]);
+  });
+
+  it('the grace follows the largest lag of the last LAG_MEMORY_S seconds, between its floor and its ceiling', () => {
+    const w = new SiteWindows({ windowS: 0.5, graceS: 0.3, maxGraceS: 5 });
+    const k0 = T0 / 500;
+    expect(w.graceMs(T0)).toBe(300);
+    // A node 2 s behind real time (an edge on a loaded machine): its messages arrive 2 s after their UTC.
+    for (let i = 0; i < 20; i++) expect(w.add('a', T0 + i * 100, [b(T0 + i * 100)], T0 + 2000 + i * 100)).toBe(k0 + Math.floor(i / 5));
+    expect(w.graceMs(T0 + 3900)).toBe(2000 + LAG_MARGIN_MS);
+    // Window k0 ends at T0 + 500: it waits until T0 + 2600, and nothing of the lagging node is late.
+    expect(w.closeDue(T0 + 2599).map((c) => c.index)).toEqual([k0 - 1]);
+    expect(w.closeDue(T0 + 2600).map((c) => c.index)).toEqual([k0]);
+    expect(w.add('a', T0 + 2000, [b(T0 + 2000)], T0 + 4000)).toBe(k0 + 4);
+    expect(w.counters.late).toBe(0);
+    // A lag beyond the ceiling holds windows for 5 s at most; its messages are late.
+    w.add('a', T0 + 2100, [b(T0 + 2100)], T0 + 12_100);
+    expect(w.graceMs(T0 + 12_100)).toBe(5000);
+    // LAG_MEMORY_S after the last lagging message the grace is back at its floor.
+    const later = T0 + 12_100 + LAG_MEMORY_S * 1000;
+    w.add('a', later, [b(later)], later + 10);
+    expect(w.graceMs(later + 10)).toBe(300);
   });
 
   it('drops a bearing far ahead of the site clock (counted)', () => {
@@ -181,6 +206,18 @@ describe('site core: messages in, windows out', () => {
     const out = core.tick();
     const k0 = T0 / 500;
     expect(out.find((w) => w.index === k0 + 1)?.bearingCount).toBe(1);
+  });
+
+  it('takes the bearings at the row\'s UTC less the mean age of the estimate (ageMs)', () => {
+    const { core, set } = make();
+    core.handle(siteSubject('yard', 'a', 'status'), enc(status('a', T0)));
+    // A row at T0 + 700 whose covariance has a mean age of 500 ms describes T0 + 200: window k0.
+    core.handle(siteSubject('yard', 'a', 'peaks'), enc({ ...peaks('a', T0 + 700), ageMs: 500 }));
+    core.handle(siteSubject('yard', 'a', 'peaks'), enc({ ...peaks('a', T0 + 700), ageMs: -1 }));
+    expect(core.counters.byReason.badPeaks).toBe(1);
+    set(T0 + 800);
+    const k0 = T0 / 500;
+    expect(core.tick().find((w) => w.index === k0)?.bearings[0].bearings[0].utcMs).toBe(T0 + 200);
   });
 
   it('counts a locator failure and publishes the window empty', () => {
