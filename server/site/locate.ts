@@ -59,15 +59,19 @@ export const TRACK_GATE_CHI2 = 9.21;
 /**
  * The nearest track's normalised distance² counts in a candidate's score up to this (chosen; it was
  * the gate, 9.21). A candidate far from every track, a new or lost source, paid the whole gate and
- * lost to a ghost near a track that had gone astray: in the yard (npm run demo:site) east's and
- * north's bearings of the fan are nearly opposite (123.1°, 306.9°), any west bearing crossing that
+ * lost to a ghost near a track that had gone astray: in the first Eastgate yard scene east's and
+ * north's bearings of the fan were nearly opposite (123.1°, 306.9°), any west bearing crossing that
  * line made a three-array ghost, and a track on it took west's cart bearing window after window
- * (cart located within 3 m in 9 of 40 windows, pump 10 of 40; with 4: 28 and 32 of 40,
- * test/integration/site-acceptance.test.ts). Below 4 the unit scene of test/unit/site-tracker.test.ts
- * splits the moving source's track (2 at 2, 1 m past the limit at 1).
+ * (cart located within 3 m in 9 of 40 windows, pump 10 of 40; with 4: 28 and 32 of 40, the site
+ * acceptance test). Below 4 the unit scene of test/unit/site-tracker.test.ts splits the moving
+ * source's track (2 at 2, 1 m past the limit at 1).
  */
 export const HINT_SCORE_CAP = 4;
-/** Bearings read per window (the rest are left out; then at most MAX_SITE_PEAKS directions per node); sources per window. */
+/**
+ * Directions located per window, after each node's rows are condensed and cut to its MAX_SITE_PEAKS
+ * strongest (64 nodes × 16; beyond, the weakest are left out); sources per window. The window itself
+ * bounds what comes in (site-windows.ts, 16384 bearings).
+ */
 export const MAX_BEARINGS = 1024;
 export const MAX_SOURCES = 64;
 
@@ -104,16 +108,15 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const c = opts.speedOfSoundMps;
   const tWin = opts.windowUtcMs;
   const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, h.speedSigmaMps, ...h.covXY].every(Number.isFinite));
-  const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && (b.elevationDeg === null || Number.isFinite(b.elevationDeg)) && Array.isArray(b.originM) && b.originM.length === 3 && b.originM.every(Number.isFinite)).slice(0, MAX_BEARINGS);
+  const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && (b.elevationDeg === null || Number.isFinite(b.elevationDeg)) && Array.isArray(b.originM) && b.originM.length === 3 && b.originM.every(Number.isFinite));
   // At most MAX_SITE_PEAKS directions per node, the strongest (the pairs grow with their square).
-  const merged = condenseRows(good).sort((a, b) => b.levelDb - a.levelDb);
   const kept = new Map<string, number>();
-  for (let i = merged.length - 1; i >= 0; i--) kept.set(merged[i].node, 0);
-  for (let i = 0; i < merged.length; i++) {
-    const n = kept.get(merged[i].node)! + 1;
-    kept.set(merged[i].node, n);
-    if (n > MAX_SITE_PEAKS) merged.splice(i--, 1);
-  }
+  const merged = condenseRows(good).sort((a, b) => b.levelDb - a.levelDb).filter((b) => {
+    const n = (kept.get(b.node) ?? 0) + 1;
+    kept.set(b.node, n);
+    return n <= MAX_SITE_PEAKS;
+  });
+  if (merged.length > MAX_BEARINGS) merged.length = MAX_BEARINGS; // sorted by level: the weakest go
   const nodeNames = [...new Set(merged.map((b) => b.node))];
   const work: Work[] = merged.map((b) => ({ b, node: nodeNames.indexOf(b.node), ox: b.originM[0], oy: b.originM[1], th: b.azimuthDeg * RAD, sg: Math.max(b.sigmaDeg, 1e-3) * RAD, used: false }));
   const byNode = nodeNames.map((_, k) => work.flatMap((w, m) => (w.node === k ? [m] : [])));
@@ -214,10 +217,16 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     for (let q = 1; q < cands.length; q++) if (better(cands[q], cands[bi])) bi = q;
     const cand = cands[bi];
     for (const m of cand.members) work[m].used = true;
-    // Candidates are screened on the pseudo-linear fix; the one taken is refined (Gauss–Newton on the angles).
-    const exact = fitMembers(work, cand.members, cand.fix.xM, cand.fix.yM, cand.vx, cand.vy, tWin, c, cand.moving, true);
-    if (exact) Object.assign(cand, { fix: exact.fix, ranges: exact.ranges, atUtcMs: exact.atUtcMs });
-    out.push(toLocated(work, cand, nodeNames, multi, tWin, c));
+    // The leftover bearings of a source already taken (those its fit refused at the gate) cross near
+    // it again: such a candidate, within the 99 % gate of a source of at least as many arrays, is
+    // that source, not another. Its bearings are spent, nothing is reported.
+    const duplicate = out.some((o) => o.nodes.length >= cand.nodes && hintDistance2([{ id: '', xM: o.xM, yM: o.yM, vxMps: 0, vyMps: 0, covXY: o.covXY, speedSigmaMps: 0 }], cand.fix.xM, cand.fix.yM, cand.fix.covXY) <= TRACK_GATE_CHI2);
+    if (!duplicate) {
+      // Candidates are screened on the pseudo-linear fix; the one taken is refined (Gauss–Newton on the angles).
+      const exact = fitMembers(work, cand.members, cand.fix.xM, cand.fix.yM, cand.vx, cand.vy, tWin, c, cand.moving, true);
+      if (exact) Object.assign(cand, { fix: exact.fix, ranges: exact.ranges, atUtcMs: exact.atUtcMs });
+      out.push(toLocated(work, cand, nodeNames, multi, tWin, c));
+    }
     // Candidates that lost a bearing to it: dropped when it was one of their pair, else rebuilt from what is left.
     const next: Candidate[] = [];
     for (let q = 0; q < cands.length; q++) {
