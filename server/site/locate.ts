@@ -17,15 +17,21 @@
  * Association. Every pair of bearings of two different arrays whose rays cross in front of both
  * arrays, at a crossing angle of at least MIN_CROSSING_DEG and within MAX_RANGE_M, is a candidate;
  * each other array lends it its bearing of smallest normalised miss |e|/σ within GATE_SIGMA; the
- * candidate is refitted on its supporters and refused if one of them then misses by more than the
- * gate. Candidates are taken best first (most arrays, then the smallest χ² of misses plus the
- * spread of the levels at 1 m, σ = LEVEL_SIGMA_DB, plus, when tracks are given, the normalised
- * distance² to the nearest track's prediction capped at HINT_SCORE_CAP), each bearing at most once. A candidate of two
- * arrays is refused as a ghost when another array that heard something this window has the
- * position within range, would have heard a source there at least as loud as the weakest direction
- * it reported (the louder of the pair's levels at 1 m less 20·log10 of its range), and lends no bearing, unless a track predicts a source there (χ² 2-dof gate,
- * 99 %); with two arrays only it is kept and flagged `ambiguous` when either array heard more than
- * one source.
+ * candidate is refitted on its supporters, each array's bearing chosen again at the fit (a
+ * supporter beyond the gate there leaves; at most three passes; the pair itself must stay). A pair
+ * whose two bearings already support a candidate of three or more arrays is not built (it would
+ * give the same candidate) but kept as that candidate's alternate seed. Candidates are taken best
+ * first (most arrays, then the smallest χ² of misses plus the spread of the levels at 1 m,
+ * σ = LEVEL_SIGMA_DB, plus, when tracks are given, the normalised distance² to the nearest track's
+ * prediction capped at HINT_SCORE_CAP), each bearing at most once; one within the 99 % gate of a
+ * source already taken of at least as many arrays is that source's leftover bearings and is not
+ * reported. A candidate of two arrays is refused as a ghost when another array that heard
+ * something this window has the position within range, would have heard a source there at least
+ * as loud as the weakest direction it reported (the louder of the pair's levels at 1 m less
+ * 20·log10 of its range), and lends no bearing, unless a track predicts a source there (χ² 2-dof
+ * gate, 99 %); a candidate of three or more when more such silent arrays contradict it than
+ * support it. With two arrays only a crossing is kept and flagged `ambiguous` when either array
+ * heard more than one source.
  *
  * Travel time. Sound heard at array i at UTC t_i left the source at t_i − r_i/c. A candidate near a
  * track's prediction whose velocity is known to MAX_HINT_SPEED_SIGMA_MPS (a young track's, from two
@@ -101,6 +107,8 @@ interface Candidate {
   vx: number;
   vy: number;
   moving: boolean;
+  /** Seed pairs not built because this candidate already had both bearings (see the seeds' comment). */
+  alternates: [number, number][];
 }
 
 /** Locate the sources of one window (see the file's comment). */
@@ -143,6 +151,23 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     return false;
   };
 
+  /**
+   * Many arrays: the arrays that would have heard a source at (x, y) of level `level1mDb` at 1 m (as
+   * in refusedByOthers) yet lend it nothing, counted. A crossing of three or more arrays that more
+   * such silent arrays contradict than support it is a ghost of leftover bearings (with 32 arrays
+   * round 8 sources, four bearings the condensing had split off crossed 3.7 m from a source).
+   */
+  const silentWitnesses = (memberNodes: Set<number>, x: number, y: number, level1mDb: number): number => {
+    let n = 0;
+    for (let k = 0; k < nodeNames.length; k++) {
+      if (memberNodes.has(k) || perNode[k] === 0) continue;
+      const o = work[byNode[k][0]];
+      const r = Math.hypot(x - o.ox, y - o.oy);
+      if (r <= MAX_RANGE_M && !(level1mDb - 20 * Math.log10(Math.max(r, MIN_RANGE_M)) < weakestDb[k])) n++;
+    }
+    return n;
+  };
+
   const build = (i: number, j: number): Candidate | null => {
     const A = work[i], B = work[j];
     // Ray crossing: A.o + t·uA = B.o + s·uB.
@@ -163,16 +188,22 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const pairCov = fisherCovariance([A.ox, B.ox], [A.oy, B.oy], [A.sg, B.sg], x, y);
     if (!pairCov) return null;
     for (let k = 0; k < nodeNames.length; k++) {
-      if (k === A.node || k === B.node) continue;
+      if (k === A.node || k === B.node || byNode[k].length === 0) continue;
+      // A node's bearings share its origin: the direction to the crossing and the crossing's own
+      // spread seen from there are computed once per node (per bearing only with a track's velocity,
+      // which moves each bearing's emission time).
+      const O = work[byNode[k][0]];
+      const dx = x - O.ox, dy = y - O.oy;
+      const r2 = Math.max(dx * dx + dy * dy, 1e-12);
+      const gx = -dy / r2, gy = dx / r2;
+      const geo = gx * gx * pairCov[0] + 2 * gx * gy * pairCov[1] + gy * gy * pairCov[2];
+      const az = Math.atan2(dy, dx);
       let best = -1, bestMiss = GATE_SIGMA;
       for (const m of byNode[k]) {
         const W = work[m];
         if (W.used) continue;
-        const dx = x - W.ox, dy = y - W.oy;
-        const r2 = Math.max(dx * dx + dy * dy, 1e-12);
-        const gx = -dy / r2, gy = dx / r2;
-        const spread = W.sg * W.sg + gx * gx * pairCov[0] + 2 * gx * gy * pairCov[1] + gy * gy * pairCov[2];
-        const miss = Math.abs(missAt(W, x, y, vx, vy, tWin, c, hint !== null)) / Math.sqrt(spread);
+        const e = hint !== null ? missAt(W, x, y, vx, vy, tWin, c, true) : wrapPi(az - W.th);
+        const miss = Math.abs(e) / Math.sqrt(W.sg * W.sg + geo);
         if (miss <= bestMiss) { bestMiss = miss; best = m; }
       }
       if (best >= 0) members.push(best);
@@ -181,8 +212,41 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     // a busy window are such ghosts, and the fits are the cost.
     const pairLevel1mDb = Math.max(A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)), B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M)));
     if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y, pairLevel1mDb)) return null;
-    const fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
+    if (members.length >= 3 && members.length < nodeNames.length - members.length && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, (A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)) + B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M))) / 2) > members.length) return null;
+    let fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
     if (!fitted) return null;
+    // The supporters were lent at the pair's crossing; at the fit of all of them each node's
+    // bearing is chosen again (another of its bearings may now miss by less: two sources in nearly
+    // the same direction from it), one that misses by more than the gate leaves, and the rest are
+    // refitted (at most three times). The pair itself must stay.
+    for (let pass = 0; pass < 3; pass++) {
+      const f: { fix: PlanFix } = fitted;
+      const norm = (m: number) => Math.abs(missAt(work[m], f.fix.xM, f.fix.yM, vx, vy, tWin, c, hint !== null)) / work[m].sg;
+      let changed = false;
+      const keep: number[] = [];
+      for (const m of members) {
+        let best = m, bestMiss = norm(m);
+        if (m !== i && m !== j) {
+          for (const o of byNode[work[m].node]) {
+            if (o === m || work[o].used) continue;
+            const e = norm(o);
+            if (e < bestMiss) { bestMiss = e; best = o; }
+          }
+        }
+        if (bestMiss > GATE_SIGMA) {
+          if (m === i || m === j) return null;
+          changed = true;
+          continue;
+        }
+        if (best !== m) changed = true;
+        keep.push(best);
+      }
+      if (!changed) break;
+      members.length = 0;
+      members.push(...keep);
+      fitted = fitMembers(work, members, f.fix.xM, f.fix.yM, vx, vy, tWin, c, hint !== null, false);
+      if (!fitted) return null;
+    }
     x = fitted.fix.xM;
     y = fitted.fix.yM;
     // Every member within the gate at the fit, in front of its array and within range.
@@ -199,16 +263,30 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const levels = members.map((m, q) => work[m].b.levelDb + 20 * Math.log10(Math.max(fitted.ranges[q], MIN_RANGE_M)));
     const meanL = levels.reduce((p, v) => p + v, 0) / nodes;
     if (nodes === 2 && !hinted && refusedByOthers(A.node, B.node, x, y, Math.max(...levels))) return null;
+    if (nodes >= 3 && !hinted && nodes < nodeNames.length - nodes && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, meanL) > nodes) return null;
     const spread = levels.reduce((p, v) => p + ((v - meanL) / LEVEL_SIGMA_DB) ** 2, 0);
-    return { seed: [i, j], members, fix: fitted.fix, atUtcMs: fitted.atUtcMs, nodes, score: fitted.fix.chi2 + spread + (hints.length > 0 ? Math.min(hintD2, HINT_SCORE_CAP) : 0), hinted, ranges: fitted.ranges, vx, vy, moving: hint !== null };
+    return { seed: [i, j], members, fix: fitted.fix, atUtcMs: fitted.atUtcMs, nodes, score: fitted.fix.chi2 + spread + (hints.length > 0 ? Math.min(hintD2, HINT_SCORE_CAP) : 0), hinted, ranges: fitted.ranges, vx, vy, moving: hint !== null, alternates: [] };
   };
 
+  // Seeds. A pair whose two bearings both already support a candidate of three or more arrays
+  // crosses where that candidate is and gathers the same supporters: it is not built but kept as
+  // that candidate's alternate (with N arrays hearing a source, C(N, 2) pairs give one candidate). A
+  // candidate that loses one of its own pair's bearings is rebuilt from its first alternate that
+  // still builds, as the pair would have been had it been built.
   let cands: Candidate[] = [];
+  const supports: Candidate[][] = work.map(() => []);
   for (let i = 0; i < work.length; i++) {
     for (let j = i + 1; j < work.length; j++) {
       if (work[i].node === work[j].node) continue;
+      const covering = supports[i].length > 0 && supports[j].length > 0 ? supports[i].find((k) => supports[j].includes(k)) : undefined;
+      if (covering) {
+        covering.alternates.push([i, j]);
+        continue;
+      }
       const cand = build(i, j);
-      if (cand) cands.push(cand);
+      if (!cand) continue;
+      if (cand.members.length >= 3) for (const m of cand.members) supports[m].push(cand);
+      cands.push(cand);
     }
   }
   const out: LocatedSource[] = [];
@@ -231,11 +309,27 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     const next: Candidate[] = [];
     for (let q = 0; q < cands.length; q++) {
       const k = cands[q];
-      if (q === bi || work[k.seed[0]].used || work[k.seed[1]].used) continue;
+      if (q === bi) continue;
+      if (work[k.seed[0]].used || work[k.seed[1]].used) {
+        for (let a = 0; a < k.alternates.length; a++) {
+          const [i, j] = k.alternates[a];
+          if (work[i].used || work[j].used) continue;
+          const rebuilt = build(i, j);
+          if (rebuilt) {
+            rebuilt.alternates = k.alternates.slice(a + 1);
+            next.push(rebuilt);
+            break;
+          }
+        }
+        continue;
+      }
       if (!k.members.some((m) => work[m].used)) next.push(k);
       else {
         const rebuilt = build(k.seed[0], k.seed[1]);
-        if (rebuilt) next.push(rebuilt);
+        if (rebuilt) {
+          rebuilt.alternates = k.alternates;
+          next.push(rebuilt);
+        }
       }
     }
     cands = next;

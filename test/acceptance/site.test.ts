@@ -17,6 +17,11 @@
  * - an edge closed: the site marks it offline (its registry state) and keeps locating with the two
  *   others.
  * The measured figures are printed (console.log) for the README.
+ *
+ * It runs in `npm test` after every other file, alone (vitest.config.ts: project "acceptance",
+ * sequence.groupOrder 1), because its three edges render and process the scene in real time; an edge
+ * that falls behind on a loaded machine is waited for (the site's grace follows the nodes' lag,
+ * server/site/site-windows.ts), and every check is on window indices and counters.
  */
 import { connect } from '@nats-io/transport-node';
 import { jetstream, jetstreamManager } from '@nats-io/jetstream';
@@ -129,17 +134,18 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     const stray = list.reduce((p, w) => p + w.sources.filter((s) => truth.every((t) => Math.hypot(s.xM - t.at(w.windowUtcMs)[0], s.yM - t.at(w.windowUtcMs)[1]) > MOVING_WITHIN_M)).length, 0);
     const all = list.flatMap((w) => w.sources).length;
     console.log(`site acceptance, steady (windows ${from}–${to - 1}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m, worst ${x.worstM.toFixed(2)} m, ids ${x.ids}`).join('; ')}; fixes by 3 arrays ${nodes3}/${all}; farther than 3 m from every source ${stray}/${all}; late peaks ${site.core.windows.counters.late}, site counters ${JSON.stringify(site.core.counters)}`);
-    // Measured on this 2-core machine (two runs of 40 windows): generator 36–40/40, pump 24–32/40,
-    // cart 28–29/40 with one or two ids, fan 14–19/40. The fan lies 3.8° off the line through east and north
-    // (its bearings 123.1° and 306.9° are nearly opposite), so east and north alone place it only
-    // along that line; west pins it only when the cart is not in the same direction from west
-    // (cart 14–45°, fan 29.1°: one peak for a 0.2 m ring). The bounds leave room for a loaded run.
-    const need: Record<string, number> = { generator: 0.8, pump: 0.45, cart: 0.5, fan: 0.2 };
+    // Measured on this 2-core machine (AMD EPYC, AVX-512), idle and with one core kept busy: every
+    // source within its limit in 40 of 40 windows with one id each; RMS pump 0.10 m, fan 0.05 m,
+    // generator 0.95 m (worst 1.22 m: its 1250 Hz tone's peak sits on the slope of the cart's lobe,
+    // 1.3° towards it at west and east), cart 0.31–0.34 m (worst 0.66 m); no stray positions.
     for (const x of f) {
-      expect(x.fraction, `${x.name}: share of windows located within its limit`).toBeGreaterThanOrEqual(need[x.name]);
-      expect(x.rmsM).toBeLessThanOrEqual(1.2);
-      if (x.name === 'cart') expect(x.ids).toBeLessThanOrEqual(2);
+      expect(x.fraction, `${x.name}: share of windows located within its limit`).toBeGreaterThanOrEqual(0.9);
+      expect(x.ids, `${x.name}: track ids`).toBeLessThanOrEqual(2);
     }
+    expect(stray / Math.max(all, 1), 'share of positions farther than 3 m from every source').toBeLessThanOrEqual(0.05);
+    // An edge stalled for longer than the grace's margin can still land a message after its window
+    // closed (the grace follows lags already seen): at most 2 % (measured 0, idle and loaded).
+    expect(site.core.windows.counters.late, 'peak messages too late for their window').toBeLessThanOrEqual(0.02 * site.core.counters.messages);
   }, 90_000);
 
   it('a broker away for 10 s: edges keep processing, the site recovers within 10 windows, JetStream lost nothing', async () => {
@@ -205,8 +211,10 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     const byTwo = list.flatMap((w) => w.sources).every((s) => !s.nodes.includes('north'));
     console.log(`site acceptance, north offline (windows ${offlineAt + 5}–${offlineAt + 16}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m`).join('; ')}`);
     expect(byTwo).toBe(true);
-    // The generator is heard apart from the others by both west (350.5°) and east (193.1°); the pump
-    // shares east's peak with the cart for much of the loop (160.2° vs 138–169°), so it is not required.
-    expect(f.find((x) => x.name === 'generator')!.fraction).toBeGreaterThanOrEqual(0.7);
+    // West and east hear the generator (350.5°, 193.1°) and the cart apart from the others. The pump
+    // needs north: east hears it at 149.5°, under the cart's peak (138–169° from east) for much of
+    // the loop; the fan is 59 m from west and 29–36° there, under the cart's (14–45°) too. Measured:
+    // generator and cart 11 of 11 windows, fan 4 of 11, pump 0.
+    for (const name of ['generator', 'cart']) expect(f.find((x) => x.name === name)!.fraction, name).toBeGreaterThanOrEqual(0.7);
   }, 60_000);
 });

@@ -222,6 +222,41 @@ describe('association across arrays', () => {
     console.log(`site-locate scene: ${fixes} fixes in 60 windows, RMS error ${Math.sqrt(sq / fixes).toFixed(3)} m, worst ${worst.toFixed(2)} m, within 1.5 m ${((100 * within) / fixes).toFixed(1)} %`);
   });
 
+  it('24 arrays on a 60 m circle, 8 still sources, σ = 0.5°: one fix per source from (nearly) all 24, within 0.5 m; a bearing two sources share at one array does not lose either', () => {
+    const ring: SceneArray[] = Array.from({ length: 24 }, (_, i) => ({ node: `a${String(i).padStart(2, '0')}`, xM: 60 * Math.cos((i * Math.PI) / 12), yM: 60 * Math.sin((i * Math.PI) / 12) }));
+    // Sunflower spiral on a disc of 40 m; levels 80…94 dB at 1 m.
+    const eight = Array.from({ length: 8 }, (_, k) => still(`s${k}`, 40 * Math.sqrt((k + 0.5) / 8) * Math.cos(k * 2.39996), 40 * Math.sqrt((k + 0.5) / 8) * Math.sin(k * 2.39996), 80 + 2 * k));
+    const rng = new TestRandom(5);
+    for (let w = 0; w < 5; w++) {
+      const located = locateWindow(sceneBearings(rng, ring, eight, w * 0.5, 0.5, C), { speedOfSoundMps: C, windowUtcMs: T0 + w * 500 });
+      expect(located).toHaveLength(8);
+      for (const src of eight) {
+        const [x, y] = src.at(0);
+        const d = Math.min(...located.map((s) => Math.hypot(s.xM - x, s.yM - y)));
+        expect(d).toBeLessThan(0.5); // 1-σ radius about 0.15 m here (bench/site.ts geometry)
+      }
+      for (const s of located) expect(s.nodes.length).toBeGreaterThanOrEqual(22); // a bearing 3σ off is left out now and then
+    }
+    // A ninth source behind s0 as seen from a00 (on the line a00 → s0, 15 m further): a00 hears the
+    // two as one direction and reports one bearing, which the louder takes; the other is located
+    // by the 23 arrays left (the candidates seeded with a00's bearing are rebuilt from other pairs).
+    const [x0, y0] = eight[0].at(0);
+    const ux = (x0 - ring[0].xM) / Math.hypot(x0 - ring[0].xM, y0 - ring[0].yM), uy = (y0 - ring[0].yM) / Math.hypot(x0 - ring[0].xM, y0 - ring[0].yM);
+    const behind = still('t', x0 + 15 * ux, y0 + 15 * uy, 95);
+    const bs = sceneBearings(null, ring, [...eight, behind], 0, 0.5, C);
+    const a00 = bs.filter((b) => b.node === 'a00').sort((p, q) => q.levelDb - p.levelDb);
+    const shared = a00.find((b) => Math.abs(b.azimuthDeg - a00.find((c) => c !== b)!.azimuthDeg) < 1e-6) ?? null;
+    expect(shared).not.toBeNull(); // the two directions are the same from a00
+    const merged = bs.filter((b) => !(b.node === 'a00' && b !== shared && Math.abs(b.azimuthDeg - shared!.azimuthDeg) < 1e-6));
+    const located = locateWindow(merged, { speedOfSoundMps: C, windowUtcMs: T0 });
+    expect(located).toHaveLength(9);
+    for (const src of [...eight, behind]) {
+      const [x, y] = src.at(0);
+      expect(Math.min(...located.map((s) => Math.hypot(s.xM - x, s.yM - y)))).toBeLessThan(0.05);
+    }
+    expect(located.filter((s) => s.nodes.length === 23)).toHaveLength(1);
+  });
+
   it('two arrays, two sources: both fixes flagged ambiguous; the level at 1 m picks the consistent pairing', () => {
     const two = THREE.slice(0, 2);
     const src = [still('p', 20, 30, 90), still('q', 42, 22, 76)];
