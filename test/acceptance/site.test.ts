@@ -60,6 +60,8 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
   /** Every window the site closed, by index (polled from core.results, which keeps 120). */
   const windows = new Map<number, SiteWindowResult>();
   let poll: ReturnType<typeof setInterval> | null = null;
+  /** Each edge's highest load-shedding step seen (a busy machine thins and coarsens its rows). */
+  const maxShedStep = new Map<string, number>();
 
   beforeAll(async () => {
     const scene = await loadScene(SCENE);
@@ -72,6 +74,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     site = await createSiteService({ natsUrl: broker.url, site: SITE, httpPort: 0, windowS: 0.5, offlineAfterS: 3, reconnectWaitMs: 200, ...(DUMP ? { locate: (b, o) => (dumped.push({ bearings: b, windowUtcMs: o.windowUtcMs, speedOfSoundMps: o.speedOfSoundMps }), locateWindow(b, o)) } : {}) });
     poll = setInterval(() => {
       for (const r of site.core.results) windows.set(r.index, r);
+      for (const [n, e] of edges) maxShedStep.set(n, Math.max(maxShedStep.get(n) ?? 0, e.engine.shedStep));
     }, 200);
     for (const node of EDGES) {
       edges.set(node, await startTestService({
@@ -133,7 +136,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     // Reported sources farther than 3 m from every true source (ghosts or lagging tracks).
     const stray = list.reduce((p, w) => p + w.sources.filter((s) => truth.every((t) => Math.hypot(s.xM - t.at(w.windowUtcMs)[0], s.yM - t.at(w.windowUtcMs)[1]) > MOVING_WITHIN_M)).length, 0);
     const all = list.flatMap((w) => w.sources).length;
-    console.log(`site acceptance, steady (windows ${from}–${to - 1}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m, worst ${x.worstM.toFixed(2)} m, ids ${x.ids}`).join('; ')}; fixes by 3 arrays ${nodes3}/${all}; farther than 3 m from every source ${stray}/${all}; late peaks ${site.core.windows.counters.late}, site counters ${JSON.stringify(site.core.counters)}`);
+    console.log(`site acceptance, steady (windows ${from}–${to - 1}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m, worst ${x.worstM.toFixed(2)} m, ids ${x.ids}`).join('; ')}; fixes by 3 arrays ${nodes3}/${all}; farther than 3 m from every source ${stray}/${all}; late peaks ${site.core.windows.counters.late}, edges' highest shedding step ${JSON.stringify(Object.fromEntries(maxShedStep))}, site counters ${JSON.stringify(site.core.counters)}`);
     // Measured on this 2-core machine (AMD EPYC, AVX-512), idle and with one core kept busy: every
     // source within its limit in 40 of 40 windows with one id each; RMS pump 0.10 m, fan 0.05 m,
     // generator 0.95 m (worst 1.22 m: its 1250 Hz tone's peak sits on the slope of the cart's lobe,
