@@ -90,10 +90,10 @@ describe('ServiceMetrics', () => {
     const fam = 'nullsteer_engine_row_latency_seconds';
     const buckets = f.get(fam)!.samples.filter((s) => s.name === `${fam}_bucket`);
     expect(buckets.map((b) => b.labels.le)).toEqual([...ROW_LATENCY_BUCKETS_S.map(String), '+Inf']);
-    // 0.5 ms ≤ every bound; 3 ms ≤ 0.005 s and up; 70 ms ≤ 0.1 s and up; 10 s only in +Inf. NaN and −1 ignored.
+    // 0.5 ms ≤ every bound from 0.0005 s; 3 ms ≤ 0.005 s and up; 70 ms ≤ 0.1 s and up; 10 s only in +Inf. NaN and −1 ignored.
     const expected = [...ROW_LATENCY_BUCKETS_S, Number.POSITIVE_INFINITY].map((le) => [0.0005, 0.003, 0.07, 10].filter((x) => x <= le).length);
     expect(buckets.map((b) => b.value)).toEqual(expected);
-    expect(expected.slice(0, 4)).toEqual([1, 1, 2, 2]);
+    expect(expected.slice(0, 6)).toEqual([0, 1, 1, 1, 2, 2]);
     expect(sampleOf(f, fam, `${fam}_count`).value).toBe(4);
     expect(sampleOf(f, fam, `${fam}_sum`).value).toBeCloseTo(10.0735, 9);
   });
