@@ -56,7 +56,7 @@ export interface AppDeps {
   token?: string | null;
   /**
    * Only with a token: true (default) leaves GET/HEAD under /api open; false makes them need the
-   * token too. The dashboard page (`/`) and `/assets` stay open either way. (The WebSocket
+   * token too (and GET /metrics, guarded like status). The dashboard page (`/`) and `/assets` stay open either way. (The WebSocket
    * upgrades do not pass through fastify and are not covered by this check.)
    */
   openStatus?: boolean;
