@@ -54,6 +54,7 @@ import { updateArrayFile } from './config/array-file-update.ts';
 import { memberDelaysUs } from './ingest/group.ts';
 import { encodeRow } from '../shared/messages.ts';
 import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
+import { ServiceMetrics } from './monitor/metrics.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -67,6 +68,8 @@ export interface Service {
   readonly inputs: Inputs | null;
   readonly engine: Engine;
   readonly live: LiveHub;
+  /** GET /metrics: the monitor feeds sector levels and events into it. */
+  readonly metrics: ServiceMetrics;
   readonly httpPort: number;
   readonly udpPort: number | null;
   /** Base URL of the HTTP server, e.g. http://127.0.0.1:8750 */
@@ -250,6 +253,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const workers = config.engine.workers === 0 ? availableParallelism() : config.engine.workers;
   // The site's broker (cluster.natsUrl; server/cluster/): rows (the dashboards' bytes), peaks, status, journal.
   let edge: EdgePublisher | null = null;
+  // GET /metrics (issue 16): read from one status snapshot per scrape; row latencies fed per row.
+  const metrics = new ServiceMetrics({ status: () => status() });
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
@@ -258,6 +263,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     budget,
     speedOfSoundMps: config.engine.speedOfSoundMps,
     onRow: (row) => {
+      metrics.observeRowLatency(row.latencyMs);
       if (!edge) return live.broadcastRow(row);
       const bytes = encodeRow(row);
       live.broadcastRowBytes(bytes);
@@ -614,6 +620,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     session,
     compare,
     arrayCheck,
+    metrics: () => metrics.render(),
     staticDir: CLIENT_DIST,
   });
   await app.ready();
@@ -648,6 +655,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     inputs,
     engine: eng,
     live,
+    metrics,
     httpPort,
     udpPort: udp ? udp.port : null,
     url: `http://${urlHost(config.server.host)}:${httpPort}`,

@@ -22,6 +22,8 @@ import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 import { arrayCheckRoutes, type ArrayCheckController } from './routes/array-check.ts';
+// Issue 16 (metrics): GET /metrics, guarded like GET /api/status.
+import { METRICS_PATH, metricsRoutes, type MetricsProvider } from './routes/metrics.ts';
 
 export interface AppDeps {
   status: StatusProvider;
@@ -43,6 +45,8 @@ export interface AppDeps {
   landmarks?: LandmarksController;
   /** The array check and saving its calibration (`/api/array-check`); absent without it. */
   arrayCheck?: ArrayCheckController;
+  /** `GET /metrics` (Prometheus text exposition format), guarded like status; absent without it. */
+  metrics?: MetricsProvider;
   /** Serves the built dashboard (client/dist) at `/` when given. */
   staticDir?: string;
   /**
@@ -52,7 +56,7 @@ export interface AppDeps {
   token?: string | null;
   /**
    * Only with a token: true (default) leaves GET/HEAD under /api open; false makes them need the
-   * token too. The dashboard page (`/`) and `/assets` stay open either way. (The WebSocket
+   * token too (and GET /metrics, guarded like status). The dashboard page (`/`) and `/assets` stay open either way. (The WebSocket
    * upgrades do not pass through fastify and are not covered by this check.)
    */
   openStatus?: boolean;
@@ -139,9 +143,9 @@ export function buildApp(deps: AppDeps): FastifyInstance {
     app.addHook('onRequest', async (req, reply) => {
       if (READ_ONLY_METHODS.has(req.method)) {
         // The matched route's pattern, not the raw URL (which may be percent-encoded); a request
-        // that matches no route counts as under /api.
+        // that matches no route counts as under /api. /metrics is guarded like status (issue 16).
         const route = req.routeOptions.url;
-        const open = route !== undefined && route !== '/api' && !route.startsWith('/api/');
+        const open = route !== undefined && route !== '/api' && !route.startsWith('/api/') && route !== METRICS_PATH;
         if (!closedReads || req.method === 'OPTIONS' || open) return;
       }
       if (tokenMatches(req.headers.authorization, digest)) return;
@@ -208,6 +212,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
   if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
+  if (deps.metrics) app.register(metricsRoutes(deps.metrics));
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;
 }
