@@ -443,10 +443,10 @@ export class WebhookSender {
       req.on('response', (res) => {
         const status = res.statusCode ?? 0;
         // The status line decides; the body is not read (bounded: the connection is closed).
-        res.on('error', () => undefined);
-        res.destroy();
         if (status >= 200 && status < 300) settle({ ok: true });
         else settle({ ok: false, reason: 'status', detail: `HTTP ${status}` });
+        res.on('error', () => undefined);
+        res.destroy();
       });
       req.on('error', (err: NodeJS.ErrnoException) => {
         settle({ ok: false, reason: 'network', detail: typeof err.code === 'string' ? err.code : err.name || 'error' });
