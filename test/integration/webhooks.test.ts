@@ -8,11 +8,13 @@ import { readFileSync } from 'node:fs';
 import http from 'node:http';
 import type { AddressInfo } from 'node:net';
 import { afterEach, describe, expect, it } from 'vitest';
-import { validateConfig, ConfigError } from '../../server/config/validate.ts';
+import { CONFIG_SCHEMA } from '../../server/config/schema.ts';
+import { ConfigError, validateConfig } from '../../server/config/validate.ts';
 import {
   backoffDelayMs,
   signatureHex,
   WEBHOOK_DEFAULTS,
+  WEBHOOK_MAX_HOOKS,
   WebhookConfigError,
   WebhookSender,
   type WebhookClock,
@@ -377,6 +379,14 @@ describe('monitor.webhooks in the configuration', () => {
       return (e as ConfigError).issues.map((i) => i.path);
     }
   };
+
+  it('states the sender\'s queue bound in the field\'s documentation', () => {
+    const spec = CONFIG_SCHEMA.kind === 'object' ? CONFIG_SCHEMA.fields.monitor : null;
+    const hooks = spec?.kind === 'object' ? spec.fields.webhooks : null;
+    expect(hooks?.kind).toBe('recordList');
+    expect(hooks?.kind === 'recordList' && hooks.maxItems).toBe(WEBHOOK_MAX_HOOKS);
+    expect(hooks?.doc).toContain(`at most ${WEBHOOK_DEFAULTS.queueMax} waiting per hook`);
+  });
 
   it('defaults to no hooks; events may be left out', () => {
     expect(validateConfig(defaults).monitor.webhooks).toEqual([]);
