@@ -14,8 +14,8 @@ export type FieldSpec =
   | { kind: 'enumList'; values: readonly string[]; doc: string; minItems: number }
   | { kind: 'stringList'; pattern: RegExp; patternDoc: string; maxItems: number; maxLength: number; doc: string }
   | { kind: 'bool'; doc: string }
-  /** A list of small records, each with the same closed set of leaf fields (all required). */
-  | { kind: 'recordList'; fields: Record<string, LeafSpec>; maxItems: number; doc: string }
+  /** A list of small records, each with the same closed set of leaf fields (all required but those named in `optional`). */
+  | { kind: 'recordList'; fields: Record<string, LeafSpec>; maxItems: number; doc: string; optional?: readonly string[] }
   | { kind: 'object'; fields: Record<string, FieldSpec>; doc?: string };
 
 /** A field that is not an object or a list of records. */
@@ -205,6 +205,23 @@ export const CONFIG_SCHEMA: FieldSpec = {
         pendingMaxEntries: { kind: 'int', min: 16, max: 1000000, doc: 'Journal and peak entries held while the broker is unreachable; beyond it the oldest peak entries are dropped and counted (journal entries are kept first).' },
       },
     },
+    // Unattended monitoring (issue 16). Webhooks: server/monitor/webhooks.ts.
+    monitor: {
+      kind: 'object',
+      fields: {
+        webhooks: {
+          kind: 'recordList',
+          maxItems: 8,
+          optional: ['events'],
+          fields: {
+            url: { kind: 'string', maxLength: 2048, pattern: /^https?:\/\/[^\s/?#@]+(?:[/?#][^\s]*)?$/, patternDoc: 'an http:// or https:// URL without user:password@', doc: 'Where the event is POSTed.' },
+            secret: { kind: 'string', pattern: /^[\x21-\x7e]{16,256}$/, patternDoc: '16–256 printable ASCII characters, no spaces', doc: 'Key of the HMAC-SHA256 signature over the body.' },
+            events: { kind: 'enumList', values: ['started', 'updated', 'ended'], minItems: 1, doc: 'Event messages sent to this hook; missing: all three.' },
+          },
+          doc: 'Alarms out: events POSTed as JSON to each hook, signed `x-nullsteer-signature: sha256=HEX` (HMAC-SHA256 of the exact body with the hook\'s secret), retried with exponential back-off, at most 256 waiting per hook (the oldest dropped and counted): [{ "url": "https://example.org/hook", "secret": "...", "events": ["started", "ended"] }].',
+        },
+      },
+    },
     site: {
       kind: 'object',
       fields: {
@@ -244,6 +261,7 @@ export interface Config {
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number; scene: string | null };
   cluster: { natsUrl: string | null; site: string; node: string; token: string | null; durableMaxAgeS: number; durableMaxBytes: number; pendingMaxEntries: number };
   site: { windowS: number; offlineAfterS: number };
+  monitor: { webhooks: { url: string; secret: string; events?: ('started' | 'updated' | 'ended')[] }[] };
 }
 
 /** Walk the schema and list every leaf with its dotted path (for docs and `--set`). */
@@ -271,6 +289,6 @@ export function allowedText(spec: Exclude<FieldSpec, { kind: 'object' }>): strin
     case 'bool':
       return 'true or false';
     case 'recordList':
-      return `list of at most ${spec.maxItems} { ${Object.entries(spec.fields).map(([k, f]) => `"${k}": ${allowedText(f)}`).join(', ')} }`;
+      return `list of at most ${spec.maxItems} { ${Object.entries(spec.fields).map(([k, f]) => `"${k}"${spec.optional?.includes(k) ? '?' : ''}: ${allowedText(f)}`).join(', ')} }`;
   }
 }

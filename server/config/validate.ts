@@ -85,7 +85,11 @@ function check(value: unknown, spec: FieldSpec, path: string, issues: ConfigIssu
     case 'recordList':
       if (!Array.isArray(value)) return bad('not a list');
       if (value.length > spec.maxItems) return bad('too many items');
-      value.forEach((item, i) => check(item, { kind: 'object', fields: spec.fields }, `${path}[${i}]`, issues));
+      value.forEach((item, i) => {
+        // Optional fields of a record (`optional`) are checked only when present.
+        const fields = spec.optional && isPlainObject(item) ? Object.fromEntries(Object.entries(spec.fields).filter(([k]) => !(spec.optional?.includes(k) && item[k] === undefined))) : spec.fields;
+        check(item, { kind: 'object', fields }, `${path}[${i}]`, issues);
+      });
       return;
   }
 }
