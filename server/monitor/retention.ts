@@ -12,7 +12,8 @@
  *
  * Order of a pass: every set older than `maxAgeDays` goes ('age'); then, while the matched files of
  * all groups together take more than `maxBytes`, the oldest remaining set goes ('size'). Sets that
- * are in use (the open part of a running recording: `inUse`) are never deleted and count as kept.
+ * are in use (the open part of a running recording: `inUse`; a group's newest set with `keepNewest`)
+ * are never deleted and count as kept.
  * A file that cannot be deleted is counted and told (without the folder's absolute path:
  * ../io/disk-space.ts), its set is kept, and the pass goes on with the next oldest.
  *
@@ -36,6 +37,8 @@ export interface RetentionGroup {
   label: string;
   /** File names the server owns in this folder; others are left alone. Flags g and y are ignored. */
   match: RegExp;
+  /** Never delete the group's newest set (a per-day file still being appended); default false. */
+  keepNewest?: boolean;
 }
 
 export type RetentionReason = 'age' | 'size';
@@ -229,6 +232,11 @@ export async function enforceRetention(o: RetentionOptions): Promise<RetentionRe
   const groupIndex = new Map(o.groups.map((g, i) => [g, i]));
   for (const s of sets) s.files.sort((a, b) => b.bytes - a.bytes || (a.name < b.name ? -1 : a.name > b.name ? 1 : 0));
   sets.sort((a, b) => a.mtimeMs - b.mtimeMs || groupIndex.get(a.group)! - groupIndex.get(b.group)! || (a.files[0].name < b.files[0].name ? -1 : 1));
+
+  // The newest set of a keepNewest group is the last of its group in this order.
+  const newest = new Map<RetentionGroup, FileSet>();
+  for (const s of sets) if (s.group.keepNewest) newest.set(s.group, s);
+  for (const s of newest.values()) s.inUse = true;
 
   let totalBytes = 0;
   for (const s of sets) totalBytes += s.bytes;

@@ -11,6 +11,8 @@ import { existsSync, mkdirSync, mkdtempSync, readdirSync, rmSync, symlinkSync, u
 import { tmpdir } from 'node:os';
 import { basename, join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
+import { Recorder } from '../../server/outputs/recorder.ts';
+import { CLIP_PATTERN, DAY_FILE_PATTERN, openRecordingFiles, retentionPolicies } from '../../server/monitor/retention-policies.ts';
 import { enforceRetention, RETENTION_PATTERNS, RetentionScheduler, type RetentionDeletion, type RetentionOptions, type RetentionResult } from '../../server/monitor/retention.ts';
 
 const DAY_MS = 86_400_000;
@@ -216,6 +218,20 @@ describe('enforceRetention', () => {
     expect(r).toMatchObject({ deletedSets: 1, keptFiles: 2, keptBytes: 1100 });
   });
 
+  it('keepNewest keeps a group\'s newest set (the day still being appended), even over the cap', async () => {
+    const dir = tempDir();
+    put(dir, '2026-01-29.csv', 100, 2);
+    put(dir, '2026-01-29.jsonl', 100, 2);
+    put(dir, '2026-01-30.csv', 100, 1);
+    put(dir, '2026-01-31.csv', 100, 0);
+    put(dir, '2026-01-31.jsonl', 100, 0);
+    const told: string[] = [];
+    const r = await enforceRetention({ groups: [{ dir, label: 'levels', match: DAY_FILE_PATTERN, keepNewest: true }], maxAgeDays: null, maxBytes: 0, nowMs: NOW_MS, onDelete: (i) => told.push(i.files.join('+')) });
+    expect(told).toEqual(['2026-01-29.csv+2026-01-29.jsonl', '2026-01-30.csv']);
+    expect(ls(dir)).toEqual(['2026-01-31.csv', '2026-01-31.jsonl']);
+    expect(r).toMatchObject({ deletedFiles: 3, deletedSets: 2, keptFiles: 2, keptBytes: 200 });
+  });
+
   it('beyond maxEntries the pass is truncated: age applies, size does not, an error is counted', async () => {
     const dir = tempDir();
     for (let i = 0; i < 5; i++) put(dir, `f${i}.csv`, 100, i === 0 ? 50 : 1);
@@ -234,6 +250,76 @@ describe('enforceRetention', () => {
     await expect(p).rejects.toThrow(RangeError);
     await expect(enforceRetention({ ...base, maxBytes: -1 })).rejects.toThrow('retention: maxBytes -1, allowed an integer ≥ 0 or null');
     await expect(enforceRetention({ ...base, maxBytes: 1.5 })).rejects.toThrow(RangeError);
+  });
+});
+
+describe('retentionPolicies', () => {
+  it('covers recordings and clips under outputs, levels and events under data, and nothing else of those folders', async () => {
+    const root = tempDir();
+    const rec = join(root, 'rec');
+    const data = join(root, 'data');
+    for (const d of [rec, join(rec, 'clips'), join(data, 'levels'), join(data, 'events'), join(data, 'presets')]) mkdirSync(d, { recursive: true });
+    put(rec, part(1, 'wav'), 100, 9);
+    put(rec, part(1, 'json'), 10, 9);
+    put(rec, `${part(2, 'json')}.tmp`, 10, 9); // a sidecar rewrite left by a kill: the recorder clears it
+    put(rec, 'my-notes.wav', 100, 9); // the user's, not the recorder's name
+    put(join(rec, 'clips'), 'event-42-beam.wav', 100, 9);
+    put(join(rec, 'clips'), 'event-42-beam.json', 10, 9);
+    put(join(data, 'levels'), '2026-01-01.csv', 100, 30);
+    put(join(data, 'levels'), '2026-01-31.csv', 100, 0);
+    put(join(data, 'events'), '2026-01-01.jsonl', 100, 30);
+    put(join(data, 'events'), '2026-01-31.jsonl', 100, 0);
+    put(data, 'journal.jsonl', 100, 30);
+    put(data, 'journal.1.jsonl', 100, 30);
+    put(join(data, 'presets'), 'quiet.json', 100, 30);
+    const limits = { maxAgeDays: null, maxBytes: 0 };
+    const policies = retentionPolicies({ outputs: { dir: 'rec', retention: limits }, data: { dir: 'data', retention: limits } }, root);
+    expect(policies.map((p) => [p.name, p.groups.map((g) => g.label)])).toEqual([
+      ['outputs', ['rec', 'rec/clips']],
+      ['data', ['data/levels', 'data/events']],
+    ]);
+    const told: string[] = [];
+    for (const p of policies) await enforceRetention({ ...p, nowMs: NOW_MS, onDelete: (i) => told.push(`${i.label}/${i.files.join('+')}`) });
+    expect(told).toEqual([
+      `rec/${part(1, 'wav')}+${part(1, 'json')}`,
+      'rec/clips/event-42-beam.wav+event-42-beam.json',
+      'data/levels/2026-01-01.csv',
+      'data/events/2026-01-01.jsonl',
+    ]);
+    expect(ls(rec)).toEqual(['clips', 'my-notes.wav', `${part(2, 'json')}.tmp`]);
+    expect(ls(join(data, 'levels'))).toEqual(['2026-01-31.csv']);
+    expect(ls(data)).toEqual(['events', 'journal.1.jsonl', 'journal.jsonl', 'levels', 'presets']);
+    expect(ls(join(data, 'presets'))).toEqual(['quiet.json']);
+    expect(CLIP_PATTERN.test('x.json.tmp')).toBe(false);
+  });
+
+  it('with a real recording under way: closed parts go, the open part (WAV and sidecar) stays and the recording goes on', async () => {
+    const dir = tempDir();
+    const rec = new Recorder();
+    const meta = { array: null, params: {}, source: { kind: 'test' } };
+    await rec.start({ dir, dirLabel: 'rec', prefix: 'nullsteer', encoding: 'int16', rotateSeconds: 0.1, meta }); // 800 frames a part at 8 kHz
+    const push = (i: number) => rec.push({ streamId: 1, sampleIndex: i * 400, sampleRateHz: 8000, channels: 2, frames: 400, data: new Float32Array(800).fill(0.25), gap: false, discontinuity: false });
+    for (let i = 0; i < 7; i++) push(i); // parts 1–3 full, part 4 open with 400 frames
+    // Closing a part finishes in the background: wait (bounded) until the three full parts are closed.
+    for (let k = 0; k < 3000 && rec.status().files.filter((f) => f.closed).length < 3; k++) await new Promise((r) => setTimeout(r, 5));
+    const st = rec.status();
+    expect(st.files.map((f) => f.closed)).toEqual([true, true, true, false]);
+    const open = st.files[3];
+    const r = await enforceRetention({ groups: [{ dir, label: 'rec', match: RETENTION_PATTERNS.recordings }], maxAgeDays: null, maxBytes: 0, nowMs: Date.now(), inUse: (label, file) => openRecordingFiles('rec', st.files).has(`${label}/${file}`) });
+    expect(r).toMatchObject({ deletedFiles: 6, deletedSets: 3, failedFiles: 0, keptFiles: 2 });
+    expect(ls(dir)).toEqual([open.sidecar, open.wav].sort());
+    push(7);
+    const end = await rec.stop();
+    expect(end.error).toBeNull();
+    expect(end.files.at(-1)).toMatchObject({ wav: open.wav, frames: 800, closed: true });
+  });
+
+  it('openRecordingFiles lists the WAV and sidecar of each part not yet closed', () => {
+    const parts = [
+      { wav: 'a-raw-0001.wav', sidecar: 'a-raw-0001.json', closed: true },
+      { wav: 'a-raw-0002.wav', sidecar: 'a-raw-0002.json', closed: false },
+    ];
+    expect([...openRecordingFiles('rec', parts)]).toEqual(['rec/a-raw-0002.wav', 'rec/a-raw-0002.json']);
   });
 });
 
