@@ -26,7 +26,7 @@
  * and counts an error. At most {@link MAX_FAILURES_KEPT} failure texts are kept per pass.
  */
 import { lstat, opendir, unlink } from 'node:fs/promises';
-import { join } from 'node:path';
+import { dirname, join, resolve } from 'node:path';
 import { freeBytes as diskFreeBytes, fsErrorText } from '../io/disk-space.ts';
 
 /** One folder to keep in bounds. */
@@ -313,7 +313,7 @@ export interface RetentionSchedulerOptions {
   onDelete?: (policy: string, info: RetentionDeletion) => void;
   /** Told per failure. */
   onError?: (policy: string, failure: RetentionFailure) => void;
-  /** Free bytes on the disk of a folder; default statfs (../io/disk-space.ts). */
+  /** Free bytes on the disk of a folder; default statfs (../io/disk-space.ts) of it or its nearest existing parent. */
   freeBytes?: (dir: string) => Promise<number>;
   /** The pass itself; default {@link enforceRetention} (tests inject a slow one). */
   enforce?: (o: RetentionOptions) => Promise<RetentionResult>;
@@ -349,6 +349,17 @@ export interface RetentionStatus {
   /** The latest failure, without paths. */
   lastError: string | null;
   policies: RetentionPolicyStatus[];
+}
+
+/** Free bytes on the disk of `dir`, or of its nearest existing parent while it does not exist yet. */
+async function nearestFreeBytes(dir: string): Promise<number> {
+  for (let d = resolve(dir); ; d = dirname(d)) {
+    try {
+      return await diskFreeBytes(d);
+    } catch (e) {
+      if ((e as NodeJS.ErrnoException).code !== 'ENOENT' || dirname(d) === d) throw e;
+    }
+  }
 }
 
 const REAL_TIMERS: RetentionTimers = {
@@ -480,7 +491,7 @@ export class RetentionScheduler {
       } catch (e) {
         this.#error(`${p.name}: ${e instanceof Error ? e.message : String(e)}`);
       }
-      st.freeBytes = p.groups.length > 0 ? await (this.#o.freeBytes ?? diskFreeBytes)(p.groups[0].dir).catch(() => null) : null;
+      st.freeBytes = p.groups.length > 0 ? await (this.#o.freeBytes ?? nearestFreeBytes)(p.groups[0].dir).catch(() => null) : null;
     }
     this.#runs++;
     this.#lastRunUtc = new Date(now()).toISOString();

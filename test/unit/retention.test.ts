@@ -458,6 +458,15 @@ describe('RetentionScheduler', () => {
     await s.stop();
   });
 
+  it('free space of a policy whose folder does not exist yet is its nearest parent\'s', async () => {
+    const dir = join(tempDir(), 'levels', 'not-yet');
+    const s = new RetentionScheduler({ policies: [{ name: 'data', groups: [{ dir, label: 'levels', match: /x/ }], maxAgeDays: 1, maxBytes: null }], timers: manualTimers().timers });
+    await s.runNow();
+    expect(s.status().policies[0]).toMatchObject({ keptFiles: 0, keptBytes: 0 });
+    expect(s.status().policies[0].freeBytes).toBeGreaterThan(0);
+    expect(s.status().errors).toBe(0);
+  });
+
   it('refuses an interval outside 1–86400 s', () => {
     expect(() => new RetentionScheduler({ policies: [], intervalS: 0 })).toThrow(RangeError);
   });
