@@ -46,7 +46,7 @@ export type RetentionReason = 'age' | 'size';
 /** One set of files deleted (told once per set, after its files are gone). */
 export interface RetentionDeletion {
   label: string;
-  /** The set's main file (its largest, e.g. the WAV), name only. */
+  /** The set's main file (its largest, e.g. the WAV; a .json only when nothing larger), name only. */
   file: string;
   /** Every file of the set that was deleted, names only (main file first). */
   files: string[];
@@ -121,7 +121,7 @@ interface Entry {
 /** Files with one stem in one group. */
 interface FileSet {
   group: RetentionGroup;
-  /** Largest first (the data file before its sidecar), then by name. */
+  /** Largest first (the data file before its sidecar; a .json last among equals), then by name. */
   files: Entry[];
   bytes: number;
   mtimeMs: number;
@@ -230,7 +230,8 @@ export async function enforceRetention(o: RetentionOptions): Promise<RetentionRe
 
   // 2. Oldest first (ties: group order, then name, so passes are repeatable).
   const groupIndex = new Map(o.groups.map((g, i) => [g, i]));
-  for (const s of sets) s.files.sort((a, b) => b.bytes - a.bytes || (a.name < b.name ? -1 : a.name > b.name ? 1 : 0));
+  const sidecarLast = (name: string) => (name.endsWith('.json') ? 1 : 0);
+  for (const s of sets) s.files.sort((a, b) => b.bytes - a.bytes || sidecarLast(a.name) - sidecarLast(b.name) || (a.name < b.name ? -1 : a.name > b.name ? 1 : 0));
   sets.sort((a, b) => a.mtimeMs - b.mtimeMs || groupIndex.get(a.group)! - groupIndex.get(b.group)! || (a.files[0].name < b.files[0].name ? -1 : 1));
 
   // The newest set of a keepNewest group is the last of its group in this order.
