@@ -26,6 +26,12 @@ const ENCODINGS = ['int16', 'int24', 'int32', 'float32'] as const;
 // The processing ranges are the panel's and the live checks' too (shared/processing-fields.ts).
 const PL = PROCESSING_LIMITS;
 
+// Retention limits (server/monitor/retention.ts): oldest files deleted first, each deletion journaled.
+const RETENTION_FIELDS = (what: string): Record<string, FieldSpec> => ({
+  maxAgeDays: { kind: 'number', nullable: true, min: 0.01, max: 36500, doc: `Delete ${what} older than this many days (checked at start and every minute); null = no age limit.` },
+  maxBytes: { kind: 'int', nullable: true, min: 0, max: 1125899906842624, doc: `Most bytes ${what} may take together; beyond it the oldest are deleted first; null = no size limit.` },
+});
+
 export const CONFIG_SCHEMA: FieldSpec = {
   kind: 'object',
   fields: {
@@ -174,6 +180,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
         streamMaxClients: { kind: 'int', min: 1, max: 1024, doc: 'Beam-audio WebSocket listeners at once; more get HTTP 503. Listeners follow the dashboard\'s slow-client policy (hub.maxBufferedBytes, hub.slowClientTimeoutMs).' },
         streamQueueFrames: { kind: 'int', min: 1, max: 65536, doc: 'Beam-audio frames a backlogged listener may have waiting; beyond it its oldest are dropped (counted).' },
         minFreeBytes: { kind: 'int', min: 1048576, max: 1099511627776, doc: 'Free space to keep on the recordings disk: no recording starts below it (507) and a running one stops when the free space falls below it.' },
+        retention: { kind: 'object', fields: RETENTION_FIELDS('recordings and event clips in outputs.dir') },
       },
     },
     data: {
@@ -182,6 +189,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
         dir: { kind: 'string', maxLength: 4096, doc: 'Folder for the parameter journal (journal.jsonl) and presets (presets/NAME.json); relative: to the working directory.' },
         journalMaxBytes: { kind: 'int', min: 65536, max: 1073741824, doc: 'Size at which journal.jsonl is renamed journal.1.jsonl (replacing the older one) and a new file begins: the journal takes at most twice this on disk, and start-up reads at most that much.' },
         minFreeBytes: { kind: 'int', min: 65536, max: 1099511627776, doc: 'Free space to keep on the data folder\'s disk: preset saves are refused below it (507).' },
+        retention: { kind: 'object', fields: RETENTION_FIELDS('level and event logs (data.dir/levels, data.dir/events)') },
       },
     },
     simulator: {
@@ -232,6 +240,12 @@ export const CONFIG_SCHEMA: FieldSpec = {
   },
 };
 
+/** outputs.retention, data.retention: null = no limit. */
+export interface RetentionLimits {
+  maxAgeDays: number | null;
+  maxBytes: number | null;
+}
+
 /** The validated configuration. */
 export interface Config {
   server: { host: string; httpPort: number; token: string | null; allowedHosts: string[]; allowedOrigins: string[] };
@@ -256,8 +270,8 @@ export interface Config {
   engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
-  outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string; streamMaxClients: number; streamQueueFrames: number; minFreeBytes: number };
-  data: { dir: string; journalMaxBytes: number; minFreeBytes: number };
+  outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string; streamMaxClients: number; streamQueueFrames: number; minFreeBytes: number; retention: RetentionLimits };
+  data: { dir: string; journalMaxBytes: number; minFreeBytes: number; retention: RetentionLimits };
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number; scene: string | null };
   cluster: { natsUrl: string | null; site: string; node: string; token: string | null; durableMaxAgeS: number; durableMaxBytes: number; pendingMaxEntries: number };
   site: { windowS: number; offlineAfterS: number };
