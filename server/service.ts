@@ -25,6 +25,8 @@ import { OriginPolicy } from './http/origin-policy.ts';
 import { createUpgradeAuth } from './http/upgrade-auth.ts';
 import { currentActor, SERVER_ACTOR } from './http/actor.ts';
 import { folderLabel, freeBytesSync, fsErrorText } from './io/disk-space.ts';
+import { RetentionScheduler } from './monitor/retention.ts';
+import { openRecordingFiles, retentionPolicies } from './monitor/retention-policies.ts';
 import { diffSummary, ParameterJournal, type JournalKind } from './session/journal.ts';
 import { tidy } from '../shared/numbers.ts';
 import { PresetStore } from './session/presets.ts';
@@ -223,6 +225,13 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       }
     }
   };
+  // Retention (outputs.retention, data.retention; server/monitor/retention.ts): a pass at start and every minute, each deleted set journaled.
+  const retention = new RetentionScheduler({
+    policies: retentionPolicies(config),
+    inUse: () => openRecordingFiles(folderLabel(config.outputs.dir), recorder.status().files),
+    onDelete: (_policy, d) => journal.record('retention', SERVER_ACTOR, bus.status().nextSample, { label: d.label, files: d.files, bytes: d.bytes, mtimeUtc: d.mtimeUtc, reason: d.reason }, null, `retention (${d.reason}): deleted ${d.label}/${d.file}${d.files.length > 1 ? ` with ${d.files.length - 1} more of its set` : ''}, ${d.bytes} bytes`),
+  });
+  retention.start();
   let recordingStartSeq = 0;
   let recordBeams = false;
   let beamChannelsKey = '';
@@ -364,6 +373,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       access: { refused: { ...accessStats.refused }, last: accessStats.last, changesTimedOut: serialStats.timedOut },
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
+      retention: retention.status(),
       cluster: edge ? edge.status() : clusterOff(config.cluster.site, config.cluster.node),
     };
   };
@@ -667,6 +677,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       sim?.stop();
       await inputs?.close();
       if (recorder.recording) await recorder.stop();
+      await retention.stop();
       await edge?.close();
       await streamOut.close();
       await live.close();

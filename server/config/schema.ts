@@ -48,7 +48,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
     access: {
       kind: 'object',
       fields: {
-        openStatus: { kind: 'bool', doc: 'With server.token set: true = read-only GETs under /api stay open; false = they need the token too (the dashboard page and /assets stay open).' },
+        openStatus: { kind: 'bool', doc: 'With server.token set: true = read-only GETs under /api and GET /metrics stay open; false = they need the token too (the dashboard page and /assets stay open).' },
         controlRatePerS: { kind: 'number', min: 0, max: 100000, doc: 'Mutating REST requests per second allowed per client IP (token bucket); more get 429 with Retry-After. 0 = no limit.' },
         controlBurst: { kind: 'int', min: 1, max: 100000, doc: 'Mutating REST requests a client IP may send at once before the rate applies (bucket size).' },
         authFailureRatePerS: { kind: 'number', min: 0.001, max: 1000, doc: 'Failed authentications (missing or wrong token, REST and WebSocket upgrades together) per second allowed per client IP after the burst; beyond it they get 429 with Retry-After. A request with the right token is never held back.' },
