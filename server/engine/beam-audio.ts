@@ -78,6 +78,12 @@ export class BeamAudio {
     s.setLimiter(limiter);
   }
 
+  /** The smoothed weights beam `id` applied on its last hop (band-bin layout), or null (see BeamSynthesizer.appliedWeights). */
+  weightsOf(id: number): Float64Array | null {
+    const s = this.#synths.get(id);
+    return s?.hasWeights ? s.appliedWeights : null;
+  }
+
   /** Delay of beam audio behind the input: the WOLA latency N − hop, seconds. */
   get latencyS(): number {
     return this.opts.fftSize / 2 / this.opts.sampleRateHz;

@@ -88,6 +88,8 @@ export interface EngineOptions {
   onError?: (message: string) => void;
   /** One hop of steered-beam audio (every hop while beams exist; see beam-audio.ts). */
   onBeamAudio?: (hop: BeamAudioHop) => void;
+  /** Every hop's snapshot after the beams (band bins at their places; read it before returning): monitoring's meters. */
+  onHopSnapshot?: (snapshot: Float64Array, offset: number, hopStart: number) => void;
   shedPolicy?: ShedPolicy;
   /** false runs the plain float64 kernels in the workers (the reference); default true. */
   fastKernels?: boolean;
@@ -384,6 +386,16 @@ export class Engine {
     return b;
   }
 
+  /** A beam's smoothed weights on its last hop (band-bin layout), or null: monitoring's meters. */
+  beamWeights(id: number): Float64Array | null {
+    return this.#audio.weightsOf(id);
+  }
+
+  /** The band's bins, the ones snapshots, beams and weights cover. */
+  get band(): { startBin: number; count: number } {
+    return this.#audio.opts.band;
+  }
+
   /** Delay of the beam audio behind the input, seconds (WOLA latency). */
   get beamLatencyS(): number {
     return this.#audio.latencyS;
@@ -405,6 +417,7 @@ export class Engine {
     // Beam audio first, from the snapshot as written (before any worker scales its bins in place).
     const audio = this.#audio.process(out, this.#slotOffset, hopStart);
     if (audio) this.opts.onBeamAudio?.(audio);
+    this.opts.onHopSnapshot?.(out, this.#slotOffset, hopStart);
     if (this.#skip === 'full') {
       this.hopsSkipped++;
       return;

@@ -1,0 +1,246 @@
+/**
+ * Levels per direction: one steered beam per sector, metered every hop, and the array as one
+ * omnidirectional microphone. Indicative levels only (no class-rated meter, no traceable
+ * calibration); dBFS unless the array is calibrated.
+ *
+ * Each sector owns one of the engine's beams (server/engine/beam-set.ts; the same weights, smoothing
+ * and audio as a beam steered by hand, so a sector can be listened to and its clips come from the
+ * same beam). The beam looks at the strongest grid direction inside the sector in the latest row of
+ * the sector's method (MVDR or conventional power); it is re-steered only when another direction of
+ * the sector is stronger by more than RESTEER_DB, so a steady source does not make the weights wander.
+ * A sector whose beam cannot be made (all MAX_BEAMS in use) says so in status and is not measured.
+ *
+ * Per hop the beam's output power over the sector's band, each bin weighted by the sector's
+ * frequency weighting (A, C or Z), is taken from the hop's snapshot with the weights the beam
+ * applied on that hop (band-power.ts: Σ g_k |w_kᴴ x_k|² · 4/N², a mean square re full scale), and
+ * the omnidirectional level likewise from the mean of the channels' powers. Each value is handed to
+ * its sink with the hop's sample span (the caller's 1-s accumulator). Hops before a beam has weights
+ * are not metered (the second is then partly covered, which the accumulator reports).
+ * Nothing is allocated per hop.
+ */
+import type { DirectionGrid } from '../dsp/steering.ts';
+import type { BeamState } from '../engine/beam-set.ts';
+import { bandGains, beamMeanSquare, omniMeanSquare } from './band-power.ts';
+
+/** Re-steer a sector's beam when another of its directions is stronger by more than this, dB (chosen). */
+export const RESTEER_DB = 1;
+
+export type Weighting = 'A' | 'C' | 'Z';
+
+/** What a meter needs of a sector (shared/sectors.ts's Sector is one). */
+export interface MeteredSector {
+  name: string;
+  azimuthDeg: [number, number];
+  elevationDeg?: [number, number];
+  bandHz?: [number, number];
+  method: 'mvdr' | 'conventional';
+  weighting: Weighting;
+}
+
+/** The engine as the meters use it (server/engine/engine.ts). */
+export interface MeterEngine {
+  readonly channels: number;
+  readonly fftSize: number;
+  readonly grid: DirectionGrid;
+  readonly beams: readonly BeamState[];
+  addBeam(azimuthDeg: number, elevationDeg: number, method: 'mvdr' | 'delay-and-sum'): BeamState;
+  updateBeam(id: number, patch: { azimuthDeg?: number; elevationDeg?: number; method?: 'mvdr' | 'delay-and-sum' }): BeamState | null;
+  removeBeam(id: number): boolean;
+  beamWeights(id: number): Float64Array | null;
+  readonly band: { startBin: number; count: number };
+}
+
+/** The row fields the meters read (EngineRow). */
+export interface MeterRow {
+  mvdrPower: Float64Array | null;
+  conventionalPower: Float64Array | null;
+}
+
+/** Where a meter's hop values go: a 1-s accumulator (level-stats.ts SecondLeq). */
+export interface LevelSink {
+  push(sampleIndex: number, frames: number, meanSquare: number): void;
+}
+
+export interface SectorMeterStatus {
+  name: string;
+  beamId: number | null;
+  lookAzimuthDeg: number | null;
+  lookElevationDeg: number | null;
+  /** Why the sector is not measured, or null. */
+  error: string | null;
+  hopsMetered: number;
+}
+
+export interface SectorMetersOptions {
+  sampleRateHz: number;
+  /** Power gain per bin k of startBin … startBin + count − 1 of a weighting (frequency-weighting.ts). */
+  weightingGains: (kind: Weighting, fftSize: number, sampleRateHz: number, startBin: number, count: number) => Float64Array;
+  /** A sink per sector (by name) and one for the omnidirectional level (name null). */
+  sink: (name: string | null) => LevelSink;
+  /** Weighting of the omnidirectional level (default A). */
+  omniWeighting?: Weighting;
+}
+
+interface Meter {
+  sector: MeteredSector;
+  directions: Int32Array;
+  beamId: number | null;
+  look: number;
+  gains: Float64Array | null;
+  gainsFor: string;
+  sink: LevelSink;
+  error: string | null;
+  hops: number;
+}
+
+/** Whether azimuth `az` lies in the sector running counter-clockwise from `from` to `to` (wrapping through 0). */
+export function inAzimuthRange(az: number, from: number, to: number): boolean {
+  const a = ((az % 360) + 360) % 360, f = ((from % 360) + 360) % 360, t = ((to % 360) + 360) % 360;
+  return f <= t ? a >= f && a <= t : a >= f || a <= t;
+}
+
+export class SectorMeters {
+  readonly #engine: MeterEngine;
+  readonly #o: SectorMetersOptions;
+  #meters: Meter[] = [];
+  #omniSink: LevelSink;
+  #omniGains: Float64Array | null = null;
+  #omniFor = '';
+  #grid: DirectionGrid | null = null;
+
+  constructor(engine: MeterEngine, o: SectorMetersOptions) {
+    this.#engine = engine;
+    this.#o = o;
+    this.#omniSink = o.sink(null);
+  }
+
+  /** Follow the sector list: beams made for new sectors, released for removed ones, re-aimed for changed ones. */
+  setSectors(list: readonly MeteredSector[]): void {
+    const keep = new Map(this.#meters.map((m) => [m.sector.name, m]));
+    const next: Meter[] = [];
+    for (const s of list) {
+      const old = keep.get(s.name);
+      keep.delete(s.name);
+      if (old && sameSector(old.sector, s)) {
+        next.push(old);
+        continue;
+      }
+      if (old && old.beamId !== null) this.#engine.removeBeam(old.beamId);
+      next.push({ sector: { ...s }, directions: new Int32Array(0), beamId: null, look: -1, gains: null, gainsFor: '', sink: old?.sink ?? this.#o.sink(s.name), error: null, hops: 0 });
+    }
+    for (const m of keep.values()) if (m.beamId !== null) this.#engine.removeBeam(m.beamId);
+    this.#meters = next;
+    this.#grid = null; // directions recomputed on the next row
+    for (const m of this.#meters) if (m.beamId === null) this.#makeBeam(m);
+  }
+
+  #makeBeam(m: Meter): void {
+    const g = this.#engine.grid;
+    this.#directionsFor(m, g);
+    const look = m.directions.length > 0 ? m.directions[0] : -1;
+    if (look < 0) {
+      m.error = 'no direction of the grid lies in the sector';
+      return;
+    }
+    try {
+      const b = this.#engine.addBeam(g.azimuthDeg[look], g.elevationDeg[look], m.sector.method === 'mvdr' ? 'mvdr' : 'delay-and-sum');
+      m.beamId = b.id;
+      m.look = look;
+      m.error = null;
+    } catch (e) {
+      m.error = `no beam free for it (${(e as Error).message})`;
+    }
+  }
+
+  #directionsFor(m: Meter, g: DirectionGrid): void {
+    const s = m.sector;
+    const idx: number[] = [];
+    for (let d = 0; d < g.count; d++) {
+      if (!inAzimuthRange(g.azimuthDeg[d], s.azimuthDeg[0], s.azimuthDeg[1])) continue;
+      if (s.elevationDeg && (g.elevationDeg[d] < s.elevationDeg[0] || g.elevationDeg[d] > s.elevationDeg[1])) continue;
+      idx.push(d);
+    }
+    m.directions = Int32Array.from(idx);
+  }
+
+  /** A spectrum row: each sector's beam follows the strongest direction inside it. */
+  row(row: MeterRow): void {
+    const g = this.#engine.grid;
+    if (g !== this.#grid) {
+      this.#grid = g;
+      for (const m of this.#meters) {
+        this.#directionsFor(m, g);
+        m.look = -1;
+        if (m.beamId === null) this.#makeBeam(m);
+      }
+    }
+    for (const m of this.#meters) {
+      if (m.beamId === null || m.directions.length === 0) continue;
+      const p = m.sector.method === 'mvdr' ? row.mvdrPower : row.conventionalPower;
+      if (!p || p.length !== g.count) continue;
+      let best = m.directions[0];
+      for (let i = 1; i < m.directions.length; i++) if (p[m.directions[i]] > p[best]) best = m.directions[i];
+      if (best === m.look) continue;
+      if (m.look >= 0 && !(p[best] > p[m.look] * 10 ** (RESTEER_DB / 10))) continue;
+      m.look = best;
+      if (!this.#engine.updateBeam(m.beamId, { azimuthDeg: g.azimuthDeg[best], elevationDeg: g.elevationDeg[best] })) {
+        m.beamId = null; // removed by hand: made again
+        this.#makeBeam(m);
+      }
+    }
+  }
+
+  /** One hop's snapshot (engine onHopSnapshot): every meter's mean square over its weighted band. */
+  hop(snapshot: Float64Array, offset: number, hopStart: number): void {
+    const e = this.#engine;
+    const hop = e.fftSize / 2;
+    const fs = this.#o.sampleRateHz;
+    const { startBin, count } = e.band;
+    const key = `${startBin}:${count}:${e.fftSize}`;
+    for (const m of this.#meters) {
+      if (m.beamId === null) continue;
+      const w = e.beamWeights(m.beamId);
+      if (!w || w.length < count * 2 * e.channels) continue;
+      if (m.gainsFor !== key || !m.gains) {
+        const weighting = this.#o.weightingGains(m.sector.weighting, e.fftSize, fs, startBin, count);
+        const [lo, hi] = m.sector.bandHz ?? [0, fs / 2];
+        m.gains = bandGains(weighting, startBin, count, e.fftSize, fs, lo, hi);
+        m.gainsFor = key;
+      }
+      m.sink.push(hopStart, hop, beamMeanSquare(snapshot, offset, e.channels, w, startBin, count, m.gains, e.fftSize));
+      m.hops++;
+    }
+    if (this.#omniFor !== key || !this.#omniGains) {
+      this.#omniGains = this.#o.weightingGains(this.#o.omniWeighting ?? 'A', e.fftSize, fs, startBin, count);
+      this.#omniFor = key;
+    }
+    this.#omniSink.push(hopStart, hop, omniMeanSquare(snapshot, offset, e.channels, startBin, count, this.#omniGains, e.fftSize));
+  }
+
+  /** The beam ids the meters own (the service marks them in the beam list). */
+  ownedBeams(): Map<number, string> {
+    return new Map(this.#meters.filter((m) => m.beamId !== null).map((m) => [m.beamId!, m.sector.name]));
+  }
+
+  status(): SectorMeterStatus[] {
+    const g = this.#engine.grid;
+    return this.#meters.map((m) => ({
+      name: m.sector.name,
+      beamId: m.beamId,
+      lookAzimuthDeg: m.look >= 0 && m.look < g.count ? g.azimuthDeg[m.look] : null,
+      lookElevationDeg: m.look >= 0 && m.look < g.count ? g.elevationDeg[m.look] : null,
+      error: m.error,
+      hopsMetered: m.hops,
+    }));
+  }
+
+  /** Release every beam. */
+  close(): void {
+    for (const m of this.#meters) if (m.beamId !== null) this.#engine.removeBeam(m.beamId);
+    this.#meters = [];
+  }
+}
+
+function sameSector(a: MeteredSector, b: MeteredSector): boolean {
+  return JSON.stringify(a) === JSON.stringify(b);
+}
