@@ -49,18 +49,23 @@ const F2_2 = F2_HZ * F2_HZ;
 const F3_2 = F3_HZ * F3_HZ;
 const F4_2 = F4_HZ * F4_HZ;
 
+// Written as products of ratios ≤ 1, so nothing overflows at any finite frequency.
+
 /** Unnormalised C weighting as a power ratio |H_C(f)|² at f² = `f2` Hz². */
 function cPowerRaw(f2: number): number {
-  const h = (F4_2 * f2) / ((f2 + F1_2) * (f2 + F4_2));
+  const h = (f2 / (f2 + F1_2)) * (F4_2 / (f2 + F4_2));
   return h * h;
 }
 
-/** Unnormalised A weighting as a power ratio |H_A(f)|² at f² = `f2` Hz². */
+/** Unnormalised A weighting as a power ratio |H_A(f)|² at f² = `f2` Hz² (0 at f = 0). */
 function aPowerRaw(f2: number): number {
-  const num = F4_2 * f2 * f2;
-  const den1 = (f2 + F1_2) * (f2 + F4_2);
-  return (num * num) / (den1 * den1 * (f2 + F2_2) * (f2 + F3_2));
+  const c = cPowerRaw(f2);
+  // f²/√((f² + f2²)(f² + f3²)), squared; F2_2/0 = Infinity gives 0 at DC.
+  return c / ((1 + F2_2 / f2) * (1 + F3_2 / f2));
 }
+
+/** Frequencies above this are taken as this (the weightings are far below −300 dB there). */
+const MAX_FREQUENCY_HZ = 1e100;
 
 /** 1 / |H(1 kHz)|²: the exact normalisations (the standard rounds them to −2.000 and −0.062 dB). */
 const A_NORM = 1 / aPowerRaw(1e6);
@@ -86,7 +91,8 @@ function checkFrequency(frequencyHz: number): void {
 /** Power gain 10^(weighting/10) at one frequency (inputs already checked). */
 function powerGain(kind: WeightingKind, frequencyHz: number): number {
   if (kind === 'Z') return 1;
-  const f2 = frequencyHz * frequencyHz;
+  const f = frequencyHz < MAX_FREQUENCY_HZ ? frequencyHz : MAX_FREQUENCY_HZ;
+  const f2 = f * f;
   return kind === 'A' ? aPowerRaw(f2) * A_NORM : cPowerRaw(f2) * C_NORM;
 }
 

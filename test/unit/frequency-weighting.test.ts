@@ -143,3 +143,17 @@ describe('IEC 61672-1 frequency weightings', () => {
     expect(() => weightingPowerGains('X' as never, 1024, 48000, 0, 1)).toThrow(TypeError);
   });
 });
+
+describe('IEC 61672-1 frequency weightings at extreme frequencies', () => {
+  it('stays finite and falls off without overflow far above the audio band', () => {
+    // Above f4 both weightings fall at 12 dB per octave (two poles at f4; from the Annex E form).
+    const drop = weightingDb('A', 2e6) - weightingDb('A', 1e6);
+    expect(drop).toBeCloseTo(-12.04, 1);
+    for (const f of [1e9, 1e30, 1e200, Number.MAX_VALUE]) {
+      expect(Number.isNaN(weightingDb('A', f))).toBe(false);
+      expect(Number.isNaN(weightingDb('C', f))).toBe(false);
+      expect(weightingDb('A', f)).toBeLessThan(-100);
+    }
+    expect(weightingDb('A', 1e-9)).toBeLessThan(-300); // rises at 24 dB per octave from DC
+  });
+});
