@@ -12,20 +12,22 @@
  *
  * Per hop the beam's output power over the sector's band, each bin weighted by the sector's
  * frequency weighting (A, C or Z), is taken from the hop's snapshot with the weights the beam
- * applied on that hop (band-power.ts: Σ g_k |w_kᴴ x_k|² · 4/N², a mean square re full scale), and
- * the omnidirectional level likewise from the mean of the channels' powers. Each value is handed to
- * its sink with the hop's sample span (the caller's 1-s accumulator). Hops before a beam has weights
- * are not metered (the second is then partly covered, which the accumulator reports).
- * Nothing is allocated per hop.
+ * applied on that hop (band-power.ts |w_kᴴ x_k|² per bin, then weighted-band-power.ts: the weighted
+ * sum scaled to a mean square re full scale), and the omnidirectional level likewise from the mean
+ * of the channels' powers. Each value is handed to its sink with the span the frame stands for
+ * (its middle hop, WeightedBandPower.hopSpanStart). Hops before a beam has weights are not metered
+ * (the second is then partly covered, which the 1-s accumulator reports). Nothing is allocated per hop.
  */
 import type { DirectionGrid } from '../dsp/steering.ts';
 import type { BeamState } from '../engine/beam-set.ts';
-import { bandGains, beamMeanSquare, omniMeanSquare } from './band-power.ts';
+import type { WeightingKind } from '../../shared/frequency-weighting.ts';
+import { beamBinPowers } from './band-power.ts';
+import { WeightedBandPower } from './weighted-band-power.ts';
 
 /** Re-steer a sector's beam when another of its directions is stronger by more than this, dB (chosen). */
 export const RESTEER_DB = 1;
 
-export type Weighting = 'A' | 'C' | 'Z';
+export type Weighting = WeightingKind;
 
 /** What a meter needs of a sector (shared/sectors.ts's Sector is one). */
 export interface MeteredSector {
@@ -73,8 +75,6 @@ export interface SectorMeterStatus {
 
 export interface SectorMetersOptions {
   sampleRateHz: number;
-  /** Power gain per bin k of startBin … startBin + count − 1 of a weighting (frequency-weighting.ts). */
-  weightingGains: (kind: Weighting, fftSize: number, sampleRateHz: number, startBin: number, count: number) => Float64Array;
   /** A sink per sector (by name) and one for the omnidirectional level (name null). */
   sink: (name: string | null) => LevelSink;
   /** Weighting of the omnidirectional level (default A). */
@@ -86,8 +86,8 @@ interface Meter {
   directions: Int32Array;
   beamId: number | null;
   look: number;
-  gains: Float64Array | null;
-  gainsFor: string;
+  power: WeightedBandPower | null;
+  powerFor: string;
   sink: LevelSink;
   error: string | null;
   hops: number;
@@ -104,8 +104,9 @@ export class SectorMeters {
   readonly #o: SectorMetersOptions;
   #meters: Meter[] = [];
   #omniSink: LevelSink;
-  #omniGains: Float64Array | null = null;
+  #omni: WeightedBandPower | null = null;
   #omniFor = '';
+  #binPower = new Float64Array(0);
   #grid: DirectionGrid | null = null;
 
   constructor(engine: MeterEngine, o: SectorMetersOptions) {
@@ -126,7 +127,7 @@ export class SectorMeters {
         continue;
       }
       if (old && old.beamId !== null) this.#engine.removeBeam(old.beamId);
-      next.push({ sector: { ...s }, directions: new Int32Array(0), beamId: null, look: -1, gains: null, gainsFor: '', sink: old?.sink ?? this.#o.sink(s.name), error: null, hops: 0 });
+      next.push({ sector: { ...s }, directions: new Int32Array(0), beamId: null, look: -1, power: null, powerFor: '', sink: old?.sink ?? this.#o.sink(s.name), error: null, hops: 0 });
     }
     for (const m of keep.values()) if (m.beamId !== null) this.#engine.removeBeam(m.beamId);
     this.#meters = next;
@@ -193,28 +194,33 @@ export class SectorMeters {
   /** One hop's snapshot (engine onHopSnapshot): every meter's mean square over its weighted band. */
   hop(snapshot: Float64Array, offset: number, hopStart: number): void {
     const e = this.#engine;
-    const hop = e.fftSize / 2;
     const fs = this.#o.sampleRateHz;
     const { startBin, count } = e.band;
     const key = `${startBin}:${count}:${e.fftSize}`;
+    if (this.#binPower.length < count) this.#binPower = new Float64Array(count);
     for (const m of this.#meters) {
       if (m.beamId === null) continue;
       const w = e.beamWeights(m.beamId);
       if (!w || w.length < count * 2 * e.channels) continue;
-      if (m.gainsFor !== key || !m.gains) {
-        const weighting = this.#o.weightingGains(m.sector.weighting, e.fftSize, fs, startBin, count);
+      if (m.powerFor !== key || !m.power) {
+        m.power = new WeightedBandPower({ weighting: m.sector.weighting, fftSize: e.fftSize, sampleRateHz: fs, startBin, count });
+        // The sector's own band inside the engine's: bins outside it weigh nothing.
         const [lo, hi] = m.sector.bandHz ?? [0, fs / 2];
-        m.gains = bandGains(weighting, startBin, count, e.fftSize, fs, lo, hi);
-        m.gainsFor = key;
+        for (let b = 0; b < count; b++) {
+          const f = ((startBin + b) * fs) / e.fftSize;
+          if (f < lo || f > hi) m.power.factors[b] = 0;
+        }
+        m.powerFor = key;
       }
-      m.sink.push(hopStart, hop, beamMeanSquare(snapshot, offset, e.channels, w, startBin, count, m.gains, e.fftSize));
+      beamBinPowers(snapshot, offset, e.channels, w, startBin, count, this.#binPower);
+      m.sink.push(m.power.hopSpanStart(hopStart), m.power.hopSamples, m.power.meanSquare(this.#binPower.subarray(0, count), startBin));
       m.hops++;
     }
-    if (this.#omniFor !== key || !this.#omniGains) {
-      this.#omniGains = this.#o.weightingGains(this.#o.omniWeighting ?? 'A', e.fftSize, fs, startBin, count);
+    if (this.#omniFor !== key || !this.#omni) {
+      this.#omni = new WeightedBandPower({ weighting: this.#o.omniWeighting ?? 'A', fftSize: e.fftSize, sampleRateHz: fs, startBin, count });
       this.#omniFor = key;
     }
-    this.#omniSink.push(hopStart, hop, omniMeanSquare(snapshot, offset, e.channels, startBin, count, this.#omniGains, e.fftSize));
+    this.#omniSink.push(this.#omni.hopSpanStart(hopStart), this.#omni.hopSamples, this.#omni.meanSquareOfSnapshot(snapshot, e.channels, offset));
   }
 
   /** The beam ids the meters own (the service marks them in the beam list). */

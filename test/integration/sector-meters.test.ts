@@ -3,8 +3,8 @@
  * along x (spacing 3 samples at 48 kHz and 343.2 m/s, so the endfire interferer's delays are whole
  * samples and the scene is exact), a wanted source at broadside (90°: the same samples on every
  * channel) and an interferer at endfire (0°) 9.5 dB louder, both seeded white noise.
- * Reference, computed here from each signal alone with the same STFT and band (band-power.ts, whose
- * scale is checked against closed forms in test/unit/band-power.test.ts): the sector beam at 80–100°
+ * Reference, computed here from each signal alone with the same STFT and band (weighted-band-power.ts,
+ * whose scale is checked against Parseval in test/unit/weighted-band-power.test.ts): the sector beam at 80–100°
  * reads the wanted source's band power and the one at 0–10° the interferer's, each within 1 dB
  * (MVDR's distortionless response, w^H v = 1, J. Capon 1969; the rest is the finite-snapshot and
  * diagonal-loading loss), and the omnidirectional level reads their sum within 0.2 dB.
@@ -12,7 +12,7 @@
 import { describe, expect, it } from 'vitest';
 import { MultiChannelStft } from '../../server/dsp/stft.ts';
 import { Engine } from '../../server/engine/engine.ts';
-import { omniMeanSquare } from '../../server/monitor/band-power.ts';
+import { WeightedBandPower } from '../../server/monitor/weighted-band-power.ts';
 import { SectorMeters, type LevelSink } from '../../server/monitor/sector-meters.ts';
 import type { ArrayGeometry } from '../../shared/types.ts';
 import { TestRandom } from '../helpers/random.ts';
@@ -50,7 +50,7 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
       shedding: false,
     });
     try {
-      meters = new SectorMeters(engine, { sampleRateHz: FS, weightingGains: (_k, _n, _fs, _s, count) => new Float64Array(count).fill(1), sink, omniWeighting: 'Z' });
+      meters = new SectorMeters(engine, { sampleRateHz: FS, sink, omniWeighting: 'Z' });
       meters.setSectors([
         { name: 'gate', azimuthDeg: [80, 100], method: 'mvdr', weighting: 'Z' },
         { name: 'fence', azimuthDeg: [0, 10], method: 'mvdr', weighting: 'Z' },
@@ -70,7 +70,7 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
 
       // References: each source alone, through the same STFT and band bins.
       const { startBin, count } = engine.band;
-      const ones = new Float64Array(count).fill(1);
+      const z = new WeightedBandPower({ weighting: 'Z', fftSize: N, sampleRateHz: FS, startBin, count });
       const reference = (chan: (m: number, n: number) => number) => {
         const stft = new MultiChannelStft(M, N);
         const data = new Float32Array(M * total);
@@ -78,7 +78,7 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
         let sum = 0, hops = 0;
         stft.push(data, total, 0, (snap, start) => {
           if (start < (SECONDS - 3) * FS) return;
-          sum += omniMeanSquare(snap, 0, M, startBin, count, ones, N);
+          sum += z.meanSquareOfSnapshot(snap, M);
           hops++;
         });
         return sum / hops;
@@ -98,6 +98,8 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
       // Every hop after the first frame was metered by the omni meter (sample-index continuity).
       const omniHops = got.get('(omni)')!;
       for (let k = 1; k < omniHops.length; k++) expect(omniHops[k].start - omniHops[k - 1].start).toBe(N / 2);
+      // Each frame stands for its middle hop (weighted-band-power.ts hopSpanStart): frame start + N/4.
+      expect(((omniHops[0].start % (N / 2)) + N / 2) % (N / 2)).toBe(N / 4);
       meters.close();
       expect(engine.beams).toHaveLength(0);
     } finally {
