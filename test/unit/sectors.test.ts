@@ -23,6 +23,7 @@ import { ConfigError } from '../../server/config/validate.ts';
 import { liveGrid, MESSAGES_VERSION, MessageParseError, parseServerMessage } from '../../shared/messages.ts';
 import { directionGrid } from '../../server/dsp/steering.ts';
 import { mulberry32 } from '../helpers/random.ts';
+import { sectorsOnAxis } from '../../client/src/lib/sector-bands.ts';
 
 const gate: Sector = { name: 'gate', azimuthDeg: [20, 50], method: 'mvdr', weighting: 'A' };
 const north: Sector = { name: 'north_fence', azimuthDeg: [350, 10], elevationDeg: [0, 30], bandHz: [200, 4000], method: 'conventional', weighting: 'C' };
@@ -213,5 +214,31 @@ describe('sectors in the array file and the hello', () => {
     expect(m.type === 'hello' && m.array.sectors).toEqual([gate]);
     expect(() => parseServerMessage(hello([{ ...gate, weighting: 'Q' }]))).toThrow(MessageParseError);
     expect(() => parseServerMessage(hello([{ ...gate, weighting: 'Q' }]))).toThrow(/array\.sectors\[0\]\.weighting/);
+  });
+});
+
+describe('sectors on the dashboard\'s azimuth axis (client/src/lib/sector-bands.ts)', () => {
+  const full = Array.from({ length: 360 }, (_, i) => i);
+  const half = Array.from({ length: 181 }, (_, i) => i);
+  it('shades the columns inside: one run, or two at both ends when the sector wraps through 0', () => {
+    const [g, n] = sectorsOnAxis([gate, north], full);
+    // Columns 20…50 (31 of 360): column i spans [i/360, (i+1)/360].
+    expect(g.runs).toEqual([{ from: 20 / 360, to: 51 / 360 }]);
+    expect(g.labelAt).toBeCloseTo(35.5 / 360, 12);
+    // 0…10 (11 columns) and 350…359 (10 columns); the name goes on the wider run.
+    expect(n.runs).toEqual([
+      { from: 0, to: 11 / 360 },
+      { from: 350 / 360, to: 1 },
+    ]);
+    expect(n.labelAt).toBeCloseTo(5.5 / 360, 12);
+    expect(n.index).toBe(1);
+  });
+  it('clips to a half-circle axis and leaves out a sector with no column on it', () => {
+    const away: Sector = { ...gate, name: 'away', azimuthDeg: [200, 250] };
+    const on = sectorsOnAxis([away, north], half);
+    expect(on.map((o) => o.sector.name)).toEqual(['north_fence']);
+    expect(on[0].runs).toEqual([{ from: 0, to: 11 / 181 }]);
+    expect(on[0].index).toBe(1);
+    expect(sectorsOnAxis([gate], [])).toEqual([]);
   });
 });
