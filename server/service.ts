@@ -225,6 +225,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     if (engine) live.broadcastJson(hello());
     if (chain) compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
   });
+  for (const p of sectors.problems()) process.emitWarning(`array file: ${p}`);
   noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
   /** Free bytes on the recordings' disk (its folder, or the nearest existing parent), null when unknown. */
   const outputsFreeBytes = (): number | null => {

@@ -165,6 +165,18 @@ export function validateSectors(value: unknown, at: string, add: Add, limits?: S
   return ok ? out : undefined;
 }
 
+/**
+ * Saved sectors checked again against what the server knows now (fs/2, the processing band, which
+ * may have changed since a sector was saved): one line per problem, `sectors.NAME.bandHz …`.
+ */
+export function sectorLimitProblems(sectors: readonly Sector[], limits: SectorLimits): string[] {
+  const out: string[] = [];
+  for (const s of sectors) {
+    validateSectorFields(s, `sectors.${s.name}`, (path, _v, msg) => out.push(`${path} ${msg}`), { limits });
+  }
+  return out;
+}
+
 /** Width of a sector in degrees, counter-clockwise from its first end to its second: (0, 360). */
 export function sectorWidthDeg(s: Pick<Sector, 'azimuthDeg'>): number {
   const w = (((s.azimuthDeg[1] - s.azimuthDeg[0]) % 360) + 360) % 360;

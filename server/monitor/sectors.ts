@@ -10,7 +10,7 @@
  * serialises writes of one file; the routes also queue their changes).
  */
 import { basename } from 'node:path';
-import { MAX_SECTORS, type Sector, type SectorLimits } from '../../shared/sectors.ts';
+import { MAX_SECTORS, sectorLimitProblems, type Sector, type SectorLimits } from '../../shared/sectors.ts';
 import { updateArrayFile } from '../config/array-file-update.ts';
 import { ConfigError } from '../config/validate.ts';
 import { publicText } from '../public-text.ts';
@@ -50,6 +50,11 @@ export interface SectorsController {
   limits(): SectorLimits;
   /** The array file's name (no folder). */
   file(): string;
+  /**
+   * The saved sectors checked against limits() now: a band above fs/2 or outside the processing band
+   * (changed since the sector was saved). One line each; empty when all fit.
+   */
+  problems(): string[];
 }
 
 const copy = (s: Sector): Sector => {
@@ -114,5 +119,6 @@ export function arrayFileSectors(arrayPath: string, initial: readonly Sector[], 
     },
     limits,
     file: () => basename(arrayPath),
+    problems: () => sectorLimitProblems(current, limits()),
   };
 }

@@ -13,6 +13,7 @@ import {
   MAX_SECTORS,
   sectorChangeSummary,
   sectorDirections,
+  sectorLimitProblems,
   sectorWidthDeg,
   validateSectorFields,
   validateSectors,
@@ -24,6 +25,10 @@ import { liveGrid, MESSAGES_VERSION, MessageParseError, parseServerMessage } fro
 import { directionGrid } from '../../server/dsp/steering.ts';
 import { mulberry32 } from '../helpers/random.ts';
 import { sectorsOnAxis } from '../../client/src/lib/sector-bands.ts';
+import { arrayFileSectors, SectorsError } from '../../server/monitor/sectors.ts';
+import { mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 
 const gate: Sector = { name: 'gate', azimuthDeg: [20, 50], method: 'mvdr', weighting: 'A' };
 const north: Sector = { name: 'north_fence', azimuthDeg: [350, 10], elevationDeg: [0, 30], bandHz: [200, 4000], method: 'conventional', weighting: 'C' };
@@ -240,5 +245,40 @@ describe('sectors on the dashboard\'s azimuth axis (client/src/lib/sector-bands.
     expect(on[0].runs).toEqual([{ from: 0, to: 11 / 181 }]);
     expect(on[0].index).toBe(1);
     expect(sectorsOnAxis([gate], [])).toEqual([]);
+  });
+});
+
+describe('the sectors controller (server/monitor/sectors.ts)', () => {
+  it('saves through the array file, tells listeners, refuses a ninth and an unknown name', async () => {
+    const file = join(mkdtempSync(join(tmpdir(), 'nullsteer-sectors-unit-')), 'a.json');
+    writeFileSync(file, JSON.stringify({ name: 'a', positions: [[0, 0, 0], [0.1, 0, 0]], note: 'kept' }));
+    const c = arrayFileSectors(file, [], () => ({ nyquistHz: 24_000, processingBandHz: [300, 6000] }));
+    const heard: string[][] = [];
+    const off = c.onChange((after) => heard.push(after.map((x) => x.name)));
+    c.onChange(() => {
+      throw new Error('a listener that fails');
+    });
+    expect(await c.put(gate)).toEqual({ sector: gate, created: true });
+    expect(await c.put(north)).toEqual({ sector: north, created: true });
+    expect(JSON.parse(readFileSync(file, 'utf8'))).toEqual({ name: 'a', positions: [[0, 0, 0], [0.1, 0, 0]], note: 'kept', sectors: [gate, north] });
+    expect(heard).toEqual([['gate'], ['gate', 'north_fence']]);
+    // A copy: changing what list() gave changes nothing inside.
+    c.list()[0].azimuthDeg[0] = 99;
+    expect(c.get('gate')).toEqual(gate);
+    off();
+    expect(await c.remove('gate')).toEqual(gate);
+    expect(heard).toHaveLength(2);
+    await expect(c.remove('gate')).rejects.toThrow(SectorsError);
+    for (let i = 0; i < 7; i++) await c.put({ ...gate, name: `s${i}` });
+    await expect(c.put({ ...gate, name: 'ninth' })).rejects.toMatchObject({ code: 'full' });
+    // north_fence's band (200–4000 Hz) starts below this processing band (300–6000 Hz).
+    expect(c.problems()).toEqual(['sectors.north_fence.bandHz must lie inside the processing band 300–6000 Hz (only those frequencies are analysed)']);
+  });
+
+  it('reports saved sectors that no longer fit the processing band', () => {
+    expect(sectorLimitProblems([gate, north], { nyquistHz: 24_000, processingBandHz: [1000, 6000] })).toEqual([
+      'sectors.north_fence.bandHz must lie inside the processing band 1000–6000 Hz (only those frequencies are analysed)',
+    ]);
+    expect(sectorLimitProblems([north], { nyquistHz: 3000 })).toEqual(['sectors.north_fence.bandHz must be [lo, hi], Hz in 1…3000 Hz (half the sample rate)']);
   });
 });
