@@ -109,8 +109,8 @@ describe.skipIf(!browserAvailable)('sectors in the dashboard', () => {
 
     // Edit: the form takes the sector's values; a new end replaces it under the same name.
     await row('gate').getByTestId('sector-edit').click();
-    expect(await page.getByTestId('sector-new-from').inputValue()).toBe('20');
-    expect(await page.getByTestId('sector-save').textContent()).toBe('Replace');
+    await expect.poll(() => page.getByTestId('sector-new-from').inputValue(), { timeout: 15_000 }).toBe('20');
+    await expect.poll(() => page.getByTestId('sector-save').textContent(), { timeout: 15_000 }).toBe('Replace');
     await page.getByTestId('sector-new-to').fill('60');
     await page.getByTestId('sector-save').click();
     await expect.poll(() => onDisk()[0].azimuthDeg, { timeout: 15_000 }).toEqual([20, 60]);
