@@ -51,6 +51,8 @@ import { InputMask } from './engine/input-mask.ts';
 import { HttpError } from './http/errors.ts';
 import { arrayFileLandmarks } from './http/routes/landmarks.ts';
 import { landmarkChangeSummary } from '../shared/landmarks.ts';
+import { arrayFileSectors, type SectorsController } from './monitor/sectors.ts';
+import { sectorChangeSummary } from '../shared/sectors.ts';
 import { ArrayCheckRunner, createArrayCheckController } from './engine/array-check-runner.ts';
 import { updateArrayFile } from './config/array-file-update.ts';
 import { memberDelaysUs } from './ingest/group.ts';
@@ -72,6 +74,8 @@ export interface Service {
   readonly live: LiveHub;
   /** GET /metrics: the monitor feeds sector levels and events into it. */
   readonly metrics: ServiceMetrics;
+  /** The sectors of the array file (list, get, onChange), for the level measurement. */
+  readonly sectors: SectorsController;
   readonly httpPort: number;
   readonly udpPort: number | null;
   /** Base URL of the HTTP server, e.g. http://127.0.0.1:8750 */
@@ -187,7 +191,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       version: 1,
       grid: { nAz: g.nAz, nEl: g.nEl, azimuthDeg: Array.from(g.azimuthDeg.subarray(0, g.nAz)), elevationDeg: Array.from({ length: g.nEl }, (_, i) => g.elevationDeg[i * g.nAz]) },
       params,
-      array: { name: geometry.name, positions: geometry.positions, calibration: describeCalibration(geometry.calibration), landmarks: landmarks.list() },
+      array: { name: geometry.name, positions: geometry.positions, calibration: describeCalibration(geometry.calibration), landmarks: landmarks.list(), sectors: sectors.list() },
       derived: d,
     };
   };
@@ -214,6 +218,14 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     if (engine) live.broadcastJson(hello());
     if (chain) compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
   });
+  // Sectors saved into the array file (server/monitor/sectors.ts): journaled, and a new hello tells the dashboards.
+  const sectors = arrayFileSectors(arrayPath, geometry.sectors ?? [], () => (engine ? { nyquistHz: fs / 2, processingBandHz: engine.params.bandHz } : { nyquistHz: fs / 2 }));
+  sectors.onChange((after, before) => {
+    journalNote('sectors', before, after, sectorChangeSummary(before, after));
+    if (engine) live.broadcastJson(hello());
+    if (chain) compareLive.broadcastJson(hello(chain.params, chainDerived(chain)));
+  });
+  for (const p of sectors.problems()) process.emitWarning(`array file: ${p}`);
   noteSwitch = (text, from, to) => journalNote('input-stream', { streamId: from }, { streamId: to }, text);
   /** Free bytes on the recordings' disk (its folder, or the nearest existing parent), null when unknown. */
   const outputsFreeBytes = (): number | null => {
@@ -529,6 +541,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     openStatus: config.access.openStatus,
     rateLimit: config.access.controlRatePerS > 0 ? { perS: config.access.controlRatePerS, burst: config.access.controlBurst } : null,
     landmarks,
+    sectors,
     processing: {
       get: () => eng.params,
       apply: (next) => applyParams(next, 'processing'),
@@ -666,6 +679,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     engine: eng,
     live,
     metrics,
+    sectors,
     httpPort,
     udpPort: udp ? udp.port : null,
     url: `http://${urlHost(config.server.host)}:${httpPort}`,

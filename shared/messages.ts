@@ -31,6 +31,7 @@
  */
 import type { ProcessingParams } from '../server/engine/params.ts';
 import { validateLandmarks, type Landmark } from './landmarks.ts';
+import { validateSectors, type Sector } from './sectors.ts';
 
 export type { ProcessingParams };
 
@@ -332,7 +333,7 @@ export interface HelloMessage {
   grid: LiveGrid;
   params: ProcessingParams;
   /** calibration: the largest per-channel correction applied (null or absent: channels nominal). */
-  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null; inverted?: number[]; reordered?: number[] } | null; landmarks?: Landmark[] };
+  array: { name: string; positions: [number, number, number][]; calibration?: { gainDbMax: number; delayUsMax: number; splOffsetDb?: number | null; inverted?: number[]; reordered?: number[] } | null; landmarks?: Landmark[]; sectors?: Sector[] };
   derived?: ProcessingDerived;
 }
 
@@ -465,6 +466,8 @@ export function parseServerMessage(text: string): ServerMessage {
       }
       // Named azimuths (shared/landmarks.ts); a hello is sent again when they change.
       if (a.landmarks !== undefined) validateLandmarks(a.landmarks, 'array.landmarks', (path, _v, msg) => { throw new MessageParseError(path, msg); });
+      // Sectors (shared/sectors.ts); a hello is sent again when they change.
+      if (a.sectors !== undefined) validateSectors(a.sectors, 'array.sectors', (path, _v, msg) => { throw new MessageParseError(path, msg); });
       derived('derived', m.derived);
       return m as unknown as HelloMessage;
     }

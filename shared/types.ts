@@ -4,6 +4,7 @@
 
 import type { Landmark } from './landmarks.ts';
 import type { Pose } from './site.ts';
+import type { Sector } from './sectors.ts';
 
 /** Sensor positions of one array, metres, in the array's own x–y–z frame. */
 export interface ArrayGeometry {
@@ -22,6 +23,8 @@ export interface ArrayGeometry {
   landmarks?: Landmark[];
   /** Where the array stands on a site plan (shared/site.ts); needed to locate sources with other arrays. */
   pose?: Pose;
+  /** Named regions of directions whose levels the monitor measures (shared/sectors.ts). */
+  sectors?: Sector[];
 }
 
 /**

@@ -3,7 +3,8 @@
  * `"calibration": { "gainDb": […], "delayUs": […], "sensitivityMvPerPa": …, "fullScaleVolts": …, "polarity": […], "channelOrder": […] }`
  * (the lists one entry per position, each part optional),
  * `"landmarks": [{ "name": "gate", "azimuthDeg": 35 }]` (shared/landmarks.ts),
- * `"pose": { "positionM": [x, y, z], "headingDeg": h }` (its place on a site plan, shared/site.ts); more fields allowed
+ * `"pose": { "positionM": [x, y, z], "headingDeg": h }` (its place on a site plan, shared/site.ts),
+ * `"sectors": [{ "name": "gate", "azimuthDeg": [20, 50], "method": "mvdr", "weighting": "A" }]` (shared/sectors.ts); more fields allowed
  * and ignored. Validated on load with errors naming the file and the field.
  */
 import { readFile } from 'node:fs/promises';
@@ -11,6 +12,7 @@ import type { ArrayGeometry, ChannelCalibration, InputMapping } from '../../shar
 import { ConfigError, type ConfigIssue } from './validate.ts';
 import { validateLandmarks } from '../../shared/landmarks.ts';
 import { SiteMessageError, validatePose, type Pose } from '../../shared/site.ts';
+import { validateSectors } from '../../shared/sectors.ts';
 
 export const MAX_SENSORS = 1024;
 /** Coordinates beyond this are almost certainly millimetres or a typo, not metres. */
@@ -54,6 +56,7 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
   const calibration = o.calibration === undefined ? undefined : validateCalibration(o.calibration, pos.length, add);
   const inputs = o.inputs === undefined ? undefined : validateInputs(o.inputs, pos.length, add);
   const landmarks = o.landmarks === undefined ? undefined : validateLandmarks(o.landmarks, 'landmarks', add);
+  const sectors = o.sectors === undefined ? undefined : validateSectors(o.sectors, 'sectors', add);
   let pose: Pose | undefined;
   if (o.pose !== undefined) {
     try {
@@ -69,6 +72,7 @@ export function validateGeometry(value: unknown, where: string): ArrayGeometry {
   if (inputs) g.inputs = inputs;
   if (landmarks) g.landmarks = landmarks;
   if (pose) g.pose = pose;
+  if (sectors) g.sectors = sectors;
   return g;
 }
 

@@ -17,6 +17,8 @@ import { recordingRoutes, type RecordingController } from './routes/recording.ts
 import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { landmarksRoutes, type LandmarksController } from './routes/landmarks.ts';
+import { sectorsRoutes } from './routes/sectors.ts';
+import type { SectorsController } from '../monitor/sectors.ts';
 import { actorOf, runAs } from './actor.ts';
 import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
@@ -43,6 +45,8 @@ export interface AppDeps {
   beams?: BeamsController;
   /** Named azimuths saved in the array file (`/api/landmarks`); absent without it. */
   landmarks?: LandmarksController;
+  /** Sectors saved in the array file (`/api/sectors`); absent without it. */
+  sectors?: SectorsController;
   /** The array check and saving its calibration (`/api/array-check`); absent without it. */
   arrayCheck?: ArrayCheckController;
   /** `GET /metrics` (Prometheus text exposition format), guarded like status; absent without it. */
@@ -211,6 +215,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
+  if (deps.sectors) app.register(sectorsRoutes(deps.sectors), { prefix: '/api' });
   if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
   if (deps.metrics) app.register(metricsRoutes(deps.metrics));
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));

@@ -34,6 +34,8 @@ export const HTTP_ERRORS = {
   ERR_HTTP_CHECK_FAILED: { statusCode: 422, template: 'the array check could not run: {detail}' },
   ERR_HTTP_CALIBRATION_INVALID: { statusCode: 400, template: '{detail}' },
   ERR_HTTP_CALIBRATION_WRITE_FAILED: { statusCode: 500, template: 'the calibration could not be saved: {detail}' },
+  ERR_HTTP_SECTOR_NOT_FOUND: { statusCode: 404, template: 'no sector named {name}' },
+  ERR_HTTP_SECTORS_FULL: { statusCode: 409, template: '{detail}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 
