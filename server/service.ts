@@ -59,6 +59,7 @@ import { memberDelaysUs } from './ingest/group.ts';
 import { encodeRow } from '../shared/messages.ts';
 import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
 import { ServiceMetrics } from './monitor/metrics.ts';
+import { Monitor } from './monitor/monitor.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -276,6 +277,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   let edge: EdgePublisher | null = null;
   // GET /metrics (issue 16): read from one status snapshot per scrape; row latencies fed per row.
   const metrics = new ServiceMetrics({ status: () => status() });
+  // Levels per direction (server/monitor/monitor.ts): made once the engine exists; rows and hop snapshots feed it.
+  let monitor: Monitor | null = null;
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
@@ -285,11 +288,13 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     speedOfSoundMps: config.engine.speedOfSoundMps,
     onRow: (row) => {
       metrics.observeRowLatency(row.latencyMs);
+      monitor?.row(row);
       if (!edge) return live.broadcastRow(row);
       const bytes = encodeRow(row);
       live.broadcastRowBytes(bytes);
       edge.row(bytes, engine!.grid);
     },
+    onHopSnapshot: (snap, offset, start) => monitor?.hop(snap, offset, start),
     onBeamAudio: (hop) => {
       streamOut.send(hop);
       if (recordBeams && recorder.recording && hop.sampleIndex >= 0) {
@@ -316,6 +321,16 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     throw e;
   });
   const eng = engine;
+  monitor = new Monitor({
+    engine: eng,
+    sampleRateHz: fs,
+    levelsDir: resolvePath(dataDir, 'levels'),
+    splOffsetDb: describeCalibration(geometry.calibration)?.splOffsetDb ?? null,
+    ...(config.simulator.scene !== null && config.source.kind === 'simulator' ? { utcOfSample: (i: number) => sampleIndexUtcMs(i, fs) } : {}),
+    onSecond: (series, leqDb) => void metrics.setSectorLeq(series, leqDb),
+  });
+  monitor.setSectors(sectors.list());
+  sectors.onChange((after) => monitor?.setSectors(after));
   const meters = new ChannelMeters(channels, fs);
   bus.subscribe((b) => meters.push(b.data, b.frames), 'channel-meters');
   // Channels in use: the operator's mask and, of a merged array, the members that delivered the span.
@@ -386,6 +401,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
       retention: retention.status(),
+      monitor: monitor?.status() ?? null,
       cluster: edge ? edge.status() : clusterOff(config.cluster.site, config.cluster.node),
     };
   };
@@ -542,6 +558,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     rateLimit: config.access.controlRatePerS > 0 ? { perS: config.access.controlRatePerS, burst: config.access.controlBurst } : null,
     landmarks,
     sectors,
+    levels: monitor.levels(),
     processing: {
       get: () => eng.params,
       apply: (next) => applyParams(next, 'processing'),
@@ -692,6 +709,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       await inputs?.close();
       if (recorder.recording) await recorder.stop();
       await retention.stop();
+      await monitor?.close();
       await edge?.close();
       await streamOut.close();
       await live.close();

@@ -17,6 +17,7 @@ import { recordingRoutes, type RecordingController } from './routes/recording.ts
 import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { landmarksRoutes, type LandmarksController } from './routes/landmarks.ts';
+import { levelsRoutes, type LevelsController } from './routes/levels.ts';
 import { sectorsRoutes } from './routes/sectors.ts';
 import type { SectorsController } from '../monitor/sectors.ts';
 import { actorOf, runAs } from './actor.ts';
@@ -83,6 +84,8 @@ export interface AppDeps {
   serialStats?: SerialStats;
   /** fastify logger setting; false in tests. */
   logger?: boolean | object;
+  /** Levels per direction kept in memory (`GET /api/levels`; server/monitor/monitor.ts); absent without it. */
+  levels?: LevelsController;
 }
 
 const READ_ONLY_METHODS = new Set(['GET', 'HEAD', 'OPTIONS']);
@@ -215,6 +218,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.input) app.register(inputRoutes(deps.input), { prefix: '/api' });
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
+  if (deps.levels) app.register(levelsRoutes(deps.levels), { prefix: '/api' });
   if (deps.sectors) app.register(sectorsRoutes(deps.sectors), { prefix: '/api' });
   if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
   if (deps.metrics) app.register(metricsRoutes(deps.metrics));

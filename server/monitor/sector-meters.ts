@@ -21,6 +21,7 @@
 import type { DirectionGrid } from '../dsp/steering.ts';
 import type { BeamState } from '../engine/beam-set.ts';
 import type { WeightingKind } from '../../shared/frequency-weighting.ts';
+import { sectorDirections } from '../../shared/sectors.ts';
 import { beamBinPowers } from './band-power.ts';
 import { WeightedBandPower } from './weighted-band-power.ts';
 
@@ -93,12 +94,6 @@ interface Meter {
   hops: number;
 }
 
-/** Whether azimuth `az` lies in the sector running counter-clockwise from `from` to `to` (wrapping through 0). */
-export function inAzimuthRange(az: number, from: number, to: number): boolean {
-  const a = ((az % 360) + 360) % 360, f = ((from % 360) + 360) % 360, t = ((to % 360) + 360) % 360;
-  return f <= t ? a >= f && a <= t : a >= f || a <= t;
-}
-
 export class SectorMeters {
   readonly #engine: MeterEngine;
   readonly #o: SectorMetersOptions;
@@ -154,14 +149,7 @@ export class SectorMeters {
   }
 
   #directionsFor(m: Meter, g: DirectionGrid): void {
-    const s = m.sector;
-    const idx: number[] = [];
-    for (let d = 0; d < g.count; d++) {
-      if (!inAzimuthRange(g.azimuthDeg[d], s.azimuthDeg[0], s.azimuthDeg[1])) continue;
-      if (s.elevationDeg && (g.elevationDeg[d] < s.elevationDeg[0] || g.elevationDeg[d] > s.elevationDeg[1])) continue;
-      idx.push(d);
-    }
-    m.directions = Int32Array.from(idx);
+    m.directions = sectorDirections(m.sector, g.azimuthDeg, g.elevationDeg);
   }
 
   /** A spectrum row: each sector's beam follows the strongest direction inside it. */
