@@ -60,6 +60,9 @@ import { encodeRow } from '../shared/messages.ts';
 import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
 import { ServiceMetrics } from './monitor/metrics.ts';
 import { Monitor } from './monitor/monitor.ts';
+import { EventMonitor } from './monitor/events.ts';
+import { RulesStore } from './monitor/rules-store.ts';
+import { WebhookSender } from './monitor/webhooks.ts';
 
 export const VERSION = '0.1.0';
 /** The built dashboard, served at `/`. */
@@ -276,7 +279,9 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   // The site's broker (cluster.natsUrl; server/cluster/): rows (the dashboards' bytes), peaks, status, journal.
   let edge: EdgePublisher | null = null;
   // GET /metrics (issue 16): read from one status snapshot per scrape; row latencies fed per row.
-  const metrics = new ServiceMetrics({ status: () => status() });
+  // Webhook deliveries given up (failed every attempt, dropped from a full queue): a count that only grows.
+  let webhookFailures = (): number => 0;
+  const metrics = new ServiceMetrics({ status: () => status(), webhookFailures: () => webhookFailures() });
   // Levels per direction (server/monitor/monitor.ts): made once the engine exists; rows and hop snapshots feed it.
   let monitor: Monitor | null = null;
   engine = await Engine.create({
@@ -321,16 +326,46 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     throw e;
   });
   const eng = engine;
+  const splOffset = describeCalibration(geometry.calibration)?.splOffsetDb ?? null;
   monitor = new Monitor({
     engine: eng,
     sampleRateHz: fs,
     levelsDir: resolvePath(dataDir, 'levels'),
-    splOffsetDb: describeCalibration(geometry.calibration)?.splOffsetDb ?? null,
+    splOffsetDb: splOffset,
+    omniWeighting: config.monitor.omniWeighting,
     ...(config.simulator.scene !== null && config.source.kind === 'simulator' ? { utcOfSample: (i: number) => sampleIndexUtcMs(i, fs) } : {}),
-    onSecond: (series, leqDb) => void metrics.setSectorLeq(series, leqDb),
+    onSecond: (series, leqDb) => {
+      metrics.setSectorLeq(series, leqDb);
+      events.second(series, leqDb);
+    },
+    onHopLevel: (series, sampleIndex, frames, ms) => events.hopLevel(series, sampleIndex, frames, ms),
   });
   monitor.setSectors(sectors.list());
   sectors.onChange((after) => monitor?.setSectors(after));
+  // Rules and events (server/monitor/events.ts): changes go live, to the webhooks and to the metrics.
+  const webhooks = new WebhookSender(config.monitor.webhooks);
+  webhookFailures = () => webhooks.counters().hooks.reduce((p, h) => p + h.abandoned + h.dropped, 0);
+  const mon = monitor;
+  const events = new EventMonitor({
+    sampleRateHz: fs,
+    splOffsetDb: splOffset,
+    dir: resolvePath(dataDir, 'events'),
+    utcOfSample: (i) => mon.utcOfSample(i),
+    lookOf: (sector) => mon.meters.look(sector),
+    onChange: (change, event) => {
+      if (change === 'started') metrics.countEvent(event.rule);
+      live.broadcastJson({ type: 'event', change, event });
+      webhooks.send(change, event);
+    },
+  });
+  const rules = new RulesStore(resolvePath(dataDir, 'rules.json'), config.monitor.preTriggerS);
+  await rules.load();
+  if (rules.loadError) process.emitWarning(`monitoring rules not loaded: ${rules.loadError}`);
+  events.setRules(rules.list());
+  rules.onChange((after, before) => {
+    events.setRules(after);
+    journalNote('rules', before, after, `rules: ${after.map((r) => r.name).join(', ') || 'none'}`);
+  });
   const meters = new ChannelMeters(channels, fs);
   bus.subscribe((b) => meters.push(b.data, b.frames), 'channel-meters');
   // Channels in use: the operator's mask and, of a merged array, the members that delivered the span.
@@ -401,7 +436,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
       retention: retention.status(),
-      monitor: monitor?.status() ?? null,
+      monitor: monitor ? { ...monitor.status(), events: { ...events.counters }, rules: rules.list().length, rulesError: rules.loadError, webhooks: webhooks.counters() } : null,
       cluster: edge ? edge.status() : clusterOff(config.cluster.site, config.cluster.node),
     };
   };
@@ -559,6 +594,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     landmarks,
     sectors,
     levels: monitor.levels(),
+    rules: { store: rules, events: (from, to, rule) => events.list(from, to, rule), unit: () => events.unit },
     processing: {
       get: () => eng.params,
       apply: (next) => applyParams(next, 'processing'),
@@ -710,6 +746,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (recorder.recording) await recorder.stop();
       await retention.stop();
       await monitor?.close();
+      webhooks.close();
+      await events.flushed();
       await edge?.close();
       await streamOut.close();
       await live.close();

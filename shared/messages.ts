@@ -351,8 +351,31 @@ export interface StatusMessage {
   status: Record<string, unknown>;
 }
 
-export type ServerMessage = HelloMessage | ParamsMessage | StatusMessage;
-export const SERVER_MESSAGE_TYPES = ['hello', 'params', 'status'] as const;
+/** A monitoring event started, changed or ended (server/monitor/events.ts; indicative levels). */
+export interface EventMessage {
+  type: 'event';
+  change: 'started' | 'updated' | 'ended';
+  event: {
+    id: string;
+    rule: string;
+    sector: string;
+    state: 'active' | 'ended';
+    startSample: number;
+    endSample: number | null;
+    startUtc: string;
+    endUtc: string | null;
+    peakDb: number;
+    leqDb: number;
+    azimuthDeg: number | null;
+    elevationDeg: number | null;
+    thresholdDb: number;
+    unit: string;
+    clips: string[];
+  };
+}
+
+export type ServerMessage = HelloMessage | ParamsMessage | StatusMessage | EventMessage;
+export const SERVER_MESSAGE_TYPES = ['hello', 'params', 'status', 'event'] as const;
 
 /** Thrown by {@link parseServerMessage}; `field` is the path of the offending value. */
 export class MessageParseError extends TypeError {
@@ -479,6 +502,15 @@ export function parseServerMessage(text: string): ServerMessage {
       num('emittedAtMs', m.emittedAtMs);
       obj('status', m.status);
       return m as unknown as StatusMessage;
+    case 'event': {
+      if (m.change !== 'started' && m.change !== 'updated' && m.change !== 'ended') throw new MessageParseError('change', 'must be started, updated or ended');
+      obj('event', m.event);
+      const e = m.event as Record<string, unknown>;
+      for (const k of ['id', 'rule', 'sector', 'startUtc', 'unit']) if (typeof e[k] !== 'string') throw new MessageParseError(`event.${k}`, 'must be a string');
+      for (const k of ['startSample', 'peakDb', 'leqDb', 'thresholdDb']) num(`event.${k}`, e[k]);
+      if (!Array.isArray(e.clips)) throw new MessageParseError('event.clips', 'must be a list');
+      return m as unknown as EventMessage;
+    }
     default:
       throw new MessageParseError('type', `must be one of ${SERVER_MESSAGE_TYPES.join(', ')}, got ${JSON.stringify(m.type)}`);
   }

@@ -4,7 +4,7 @@
  */
 import type { ProcessingParams } from './messages.ts';
 
-export const JOURNAL_KINDS = ['processing', 'reset', 'beam-add', 'beam-update', 'beam-remove', 'mask', 'preset-apply', 'preset-save', 'preset-delete', 'recording-start', 'recording-stop', 'compare-on', 'compare-set', 'compare-off', 'compare-promote', 'input-stream', 'landmarks', 'calibration', 'retention', 'sectors'] as const;
+export const JOURNAL_KINDS = ['processing', 'reset', 'beam-add', 'beam-update', 'beam-remove', 'mask', 'preset-apply', 'preset-save', 'preset-delete', 'recording-start', 'recording-stop', 'compare-on', 'compare-set', 'compare-off', 'compare-promote', 'input-stream', 'landmarks', 'calibration', 'retention', 'rules', 'sectors'] as const;
 export type JournalKind = (typeof JOURNAL_KINDS)[number];
 
 /** Who made a change: the client's address and, when it sent one, its User-Agent (truncated). */

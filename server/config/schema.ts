@@ -217,6 +217,8 @@ export const CONFIG_SCHEMA: FieldSpec = {
     monitor: {
       kind: 'object',
       fields: {
+        preTriggerS: { kind: 'number', min: 0, max: 60, doc: 'Seconds of raw input kept for event clips (all channels, float32: channels × sample rate × this × 4 bytes, allocated at start; 24 channels at 48 kHz for 10 s is 46 MB): a clip can start this long before its trigger.' },
+        omniWeighting: { kind: 'enum', values: ['A', 'C', 'Z'], doc: 'Frequency weighting (IEC 61672-1) of the array-as-one-microphone level (series omni of GET /api/levels); sectors name their own.' },
         webhooks: {
           kind: 'recordList',
           maxItems: 8,
@@ -275,7 +277,7 @@ export interface Config {
   simulator: { seed: number; blockFrames: number; speedOfSoundMps: number; scene: string | null };
   cluster: { natsUrl: string | null; site: string; node: string; token: string | null; durableMaxAgeS: number; durableMaxBytes: number; pendingMaxEntries: number };
   site: { windowS: number; offlineAfterS: number };
-  monitor: { webhooks: { url: string; secret: string; events?: ('started' | 'updated' | 'ended')[] }[] };
+  monitor: { preTriggerS: number; omniWeighting: 'A' | 'C' | 'Z'; webhooks: { url: string; secret: string; events?: ('started' | 'updated' | 'ended')[] }[] };
 }
 
 /** Walk the schema and list every leaf with its dotted path (for docs and `--set`). */

@@ -18,6 +18,7 @@ import { sessionRoutes, type SessionController } from './routes/session.ts';
 import { compareRoutes, type CompareController } from './routes/compare.ts';
 import { landmarksRoutes, type LandmarksController } from './routes/landmarks.ts';
 import { levelsRoutes, type LevelsController } from './routes/levels.ts';
+import { rulesRoutes, type RulesRoutesDeps } from './routes/rules.ts';
 import { sectorsRoutes } from './routes/sectors.ts';
 import type { SectorsController } from '../monitor/sectors.ts';
 import { actorOf, runAs } from './actor.ts';
@@ -86,6 +87,8 @@ export interface AppDeps {
   logger?: boolean | object;
   /** Levels per direction kept in memory (`GET /api/levels`; server/monitor/monitor.ts); absent without it. */
   levels?: LevelsController;
+  /** Monitoring rules and events (`/api/rules`, `/api/events`); absent without them. */
+  rules?: RulesRoutesDeps;
 }
 
 const READ_ONLY_METHODS = new Set(['GET', 'HEAD', 'OPTIONS']);
@@ -219,6 +222,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.recording) app.register(recordingRoutes(deps.recording), { prefix: '/api' });
   if (deps.landmarks) app.register(landmarksRoutes(deps.landmarks), { prefix: '/api' });
   if (deps.levels) app.register(levelsRoutes(deps.levels), { prefix: '/api' });
+  if (deps.rules) app.register(rulesRoutes(deps.rules), { prefix: '/api' });
   if (deps.sectors) app.register(sectorsRoutes(deps.sectors), { prefix: '/api' });
   if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
   if (deps.metrics) app.register(metricsRoutes(deps.metrics));

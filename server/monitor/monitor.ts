@@ -37,6 +37,8 @@ export interface MonitorOptions {
   nowMs?: () => number;
   /** Each series' 1-s Leq as it is made (metrics, rules' background). */
   onSecond?: (series: string, leqDb: number, sampleIndex: number, utcMs: number) => void;
+  /** Each series' hop mean square as it is metered (the event detectors). */
+  onHopLevel?: (series: string, sampleIndex: number, frames: number, meanSquare: number) => void;
 }
 
 interface Series {
@@ -62,7 +64,16 @@ export class Monitor {
     this.#weightings.set(OMNI, o.omniWeighting ?? 'A');
     this.meters = new SectorMeters(o.engine, {
       sampleRateHz: o.sampleRateHz,
-      sink: (name) => this.#seriesFor(name ?? OMNI).second,
+      sink: (name) => {
+        const series = this.#seriesFor(name ?? OMNI);
+        const key = name ?? OMNI;
+        return {
+          push: (sampleIndex: number, frames: number, ms: number) => {
+            series.second.push(sampleIndex, frames, ms);
+            this.#o.onHopLevel?.(key, sampleIndex, frames, ms);
+          },
+        };
+      },
       omniWeighting: o.omniWeighting ?? 'A',
     });
   }

@@ -94,6 +94,8 @@ interface Meter {
   hops: number;
 }
 
+const NO_LOOK = Object.freeze({ azimuthDeg: null, elevationDeg: null });
+
 export class SectorMeters {
   readonly #engine: MeterEngine;
   readonly #o: SectorMetersOptions;
@@ -209,6 +211,17 @@ export class SectorMeters {
       this.#omniFor = key;
     }
     this.#omniSink.push(this.#omni.hopSpanStart(hopStart), this.#omni.hopSamples, this.#omni.meanSquareOfSnapshot(snapshot, e.channels, offset));
+  }
+
+  /** A sector's look direction now (null when it has no beam). No allocation. */
+  look(name: string): { azimuthDeg: number | null; elevationDeg: number | null } {
+    const g = this.#engine.grid;
+    for (const m of this.#meters) {
+      if (m.sector.name !== name) continue;
+      if (m.look < 0 || m.look >= g.count) break;
+      return { azimuthDeg: g.azimuthDeg[m.look], elevationDeg: g.elevationDeg[m.look] };
+    }
+    return NO_LOOK;
   }
 
   /** The beam ids the meters own (the service marks them in the beam list). */

@@ -121,13 +121,17 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
 
   it('locates the still sources within 1.5 m and tracks the cart within 3 m', async () => {
     await waitFor(() => site.core.registry.list().filter((n) => n.state === 'online').length === 3, 30_000, 'three nodes online');
+    // The first window with bearings of all three arrays: an edge started last (or slowly, on a
+    // loaded machine) is online by its status some seconds before its first rows, and west and east
+    // alone already locate the generator and the cart.
+    const allThree = (w: SiteWindowResult) => EDGES.every((n) => w.bearings.some((b) => b.node === n && b.bearings.length > 0));
     const first = await (async () => {
-      await waitFor(() => [...windows.values()].some((w) => w.sources.length >= 3), 30_000, 'a window with three sources');
-      return Math.min(...[...windows.values()].filter((w) => w.sources.length >= 3).map((w) => w.index));
+      await waitFor(() => [...windows.values()].some((w) => allThree(w) && w.sources.length >= 3), 60_000, 'a window with bearings of all three arrays and three sources');
+      return Math.min(...[...windows.values()].filter((w) => allThree(w) && w.sources.length >= 3).map((w) => w.index));
     })();
     // 40 windows (20 s of scene time) after the tracks have settled (6 windows).
-    const from = first + 6, to = from + 40;
-    await waitFor(() => site.core.counters.windows > 0 && (site.core.latest()?.index ?? 0) >= to, 40_000, '40 windows');
+    const from = first + 6, to = from + Number(process.env.SITE_ACCEPTANCE_WINDOWS ?? 40);
+    await waitFor(() => site.core.counters.windows > 0 && (site.core.latest()?.index ?? 0) >= to, 40_000 + (to - from) * 600, '40 windows');
     const list = [...windows.values()].filter((w) => w.index >= from && w.index < to).sort((a, b) => a.index - b.index);
     expect(list.length).toBeGreaterThanOrEqual(36);
     const f = figures(list);
@@ -136,7 +140,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     // Reported sources farther than 3 m from every true source (ghosts or lagging tracks).
     const stray = list.reduce((p, w) => p + w.sources.filter((s) => truth.every((t) => Math.hypot(s.xM - t.at(w.windowUtcMs)[0], s.yM - t.at(w.windowUtcMs)[1]) > MOVING_WITHIN_M)).length, 0);
     const all = list.flatMap((w) => w.sources).length;
-    console.log(`site acceptance, steady (windows ${from}–${to - 1}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m, worst ${x.worstM.toFixed(2)} m, ids ${x.ids}`).join('; ')}; fixes by 3 arrays ${nodes3}/${all}; farther than 3 m from every source ${stray}/${all}; late peaks ${site.core.windows.counters.late}, edges' highest shedding step ${JSON.stringify(Object.fromEntries(maxShedStep))}, site counters ${JSON.stringify(site.core.counters)}`);
+    console.log(`site acceptance, steady (windows ${from}–${to - 1}): ${f.map((x) => `${x.name} ${x.within}/${x.windows} within, RMS ${x.rmsM.toFixed(2)} m, worst ${x.worstM.toFixed(2)} m, ids ${x.ids}`).join('; ')}; fixes by 3 arrays ${nodes3}/${all}; farther than 3 m from every source ${stray}/${all}; windows with each array's bearings ${JSON.stringify(Object.fromEntries(EDGES.map((n) => [n, list.filter((w) => w.bearings.some((b) => b.node === n && b.bearings.length > 0)).length])))}, late peaks ${site.core.windows.counters.late}, edges' highest shedding step ${JSON.stringify(Object.fromEntries(maxShedStep))}, site counters ${JSON.stringify(site.core.counters)}`);
     // Measured on this 2-core machine (AMD EPYC, AVX-512), idle and with one core kept busy: every
     // source within its limit in 40 of 40 windows with one id each; RMS pump 0.10 m, fan 0.05 m,
     // generator 0.95 m (worst 1.22 m: its 1250 Hz tone's peak sits on the slope of the cart's lobe,
@@ -151,7 +155,7 @@ describe.skipIf(!natsAvailable)('site acceptance: three edges, a broker, the sit
     // An edge stalled for longer than the grace's margin can still land a message after its window
     // closed (the grace follows lags already seen): at most 2 % (measured 0, idle and loaded).
     expect(site.core.windows.counters.late, 'peak messages too late for their window').toBeLessThanOrEqual(0.02 * site.core.counters.messages);
-  }, 90_000);
+  }, 90_000 + Number(process.env.SITE_ACCEPTANCE_WINDOWS ?? 40) * 600);
 
   it('a broker away for 10 s: edges keep processing, the site recovers within 10 windows, JetStream lost nothing', async () => {
     const rowsAtKill = EDGES.map((n) => edges.get(n)!.engine.rows);

@@ -258,7 +258,9 @@ describe('JSON server messages', () => {
     const cases: [unknown, string, RegExp][] = [
       ['not json', '(message)', /not JSON/],
       [[1, 2], '(message)', /must be an object/],
-      [{ type: 'row' }, 'type', /one of hello, params, status, got "row"/],
+      [{ type: 'row' }, 'type', /one of hello, params, status, event, got "row"/],
+      [JSON.stringify({ type: 'event', change: 'begun', event: {} }), 'change', /started, updated or ended/],
+      [JSON.stringify({ type: 'event', change: 'started', event: { id: 1 } }), 'event.id', /must be a string/],
       [{ ...h, version: 2 }, 'version', /2, this client reads 1/],
       [{ ...h, grid: { ...h.grid, nAz: 71 } }, 'grid.azimuthDeg', /has 72 values, expected 71/],
       [{ ...h, grid: { ...h.grid, elevationDeg: [0, 'x'] } }, 'grid.elevationDeg', /has 2 values/],
