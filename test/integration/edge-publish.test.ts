@@ -141,8 +141,12 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
     const checker = await connect({ servers: broker.url });
     try {
       const name = siteStreamName(SITE);
-      const info = await (await jetstreamManager(checker)).streams.info(name);
+      // The edge goes on publishing: take its last sequence first, then wait for the stream to hold
+      // that many (the newest entries may still be on their way to the broker).
       const lastSeq = (await getStatus(svc)).cluster.lastSeq;
+      const jsm = await jetstreamManager(checker);
+      let info = await jsm.streams.info(name);
+      await waitFor(async () => (info = await jsm.streams.info(name)).state.messages >= lastSeq, 10_000, 'the stream holding the last sequence');
       expect(info.state.messages).toBeGreaterThanOrEqual(lastSeq);
       const consumer = await jetstream(checker).consumers.get(name);
       const seqs: number[] = [];
