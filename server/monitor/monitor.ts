@@ -57,6 +57,8 @@ export class Monitor {
   #anchor: { sample: number; utcMs: number } | null = null;
   #lastSample = -1;
   reanchors = 0;
+  /** First sample of the last hop's analysis frame (its live beam audio hop starts here; the next one half a frame on). */
+  lastHopStart = -Infinity;
 
   constructor(o: MonitorOptions) {
     this.#o = o;
@@ -95,6 +97,7 @@ export class Monitor {
   }
 
   hop(snapshot: Float64Array, offset: number, hopStart: number): void {
+    this.lastHopStart = hopStart;
     this.#clock(hopStart);
     this.meters.hop(snapshot, offset, hopStart);
   }

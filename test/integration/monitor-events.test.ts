@@ -8,15 +8,26 @@
  * Checked against the scene's own sample indices (the acceptance of issue 16):
  * - the event starts within ±0.25 s of the onset and ends within ±0.25 s of the source's end plus
  *   releaseS; its direction is within ±2° of 90°;
- * - the interferer alone (before the onset, after the end) makes no event in the gate sector.
+ * - the interferer alone (before the onset, after the end) makes no event in the gate sector;
+ * - the event's clip (clips.ts: the pre-trigger ring synthesised with the beam's weights, then the
+ *   live beam) holds at least preS before the onset, and its signal-to-interference ratio beats one
+ *   microphone's by at least 15 dB. Both sources are white, so each SIR is measured as (power while
+ *   the source is on − power before it) / power before it, the clip's and microphone 0's.
  */
 import { describe, expect, it } from 'vitest';
 import { Engine } from '../../server/engine/engine.ts';
+import { mkdtempSync, readFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { parseWavHeader } from '../../server/io/wav.ts';
+import { ClipRecorder } from '../../server/monitor/clips.ts';
 import { EventMonitor, type MonitorEvent } from '../../server/monitor/events.ts';
+import { RawRing } from '../../server/monitor/pre-trigger.ts';
 import { Monitor } from '../../server/monitor/monitor.ts';
 import { validateRule } from '../../shared/rules.ts';
 import type { ArrayGeometry } from '../../shared/types.ts';
 import { TestRandom } from '../helpers/random.ts';
+import { waitFor } from '../helpers/service.ts';
 
 const FS = 48_000, C = 343.2, M = 8, N = 512;
 const SPACING = (3 * C) / FS;
@@ -34,6 +45,7 @@ describe('events from a sector on the engine', () => {
     const changes: { change: string; event: MonitorEvent }[] = [];
     let monitor: Monitor | null = null;
     let events: EventMonitor | null = null;
+    let clips: ClipRecorder | null = null;
     const engine = await Engine.create({
       geometry,
       sampleRateHz: FS,
@@ -42,6 +54,7 @@ describe('events from a sector on the engine', () => {
       speedOfSoundMps: C,
       onRow: (row) => monitor?.row(row),
       onHopSnapshot: (snap, offset, start) => monitor?.hop(snap, offset, start),
+      onBeamAudio: (h) => clips?.beamHop(h.sampleIndex, h.frames, h.ids, h.data),
       shedding: false,
     });
     try {
@@ -49,7 +62,29 @@ describe('events from a sector on the engine', () => {
       monitor = new Monitor({ engine, sampleRateHz: FS, levelsDir: null, splOffsetDb: null, omniWeighting: 'Z', utcOfSample: (k) => utc0 + (k * 1000) / FS, onSecond: (series, db) => events?.second(series, db), onHopLevel: (series, k, f, ms) => events?.hopLevel(series, k, f, ms) });
       monitor.setSectors([{ name: 'gate', azimuthDeg: [80, 100], method: 'mvdr', weighting: 'Z' }]);
       const mon = monitor;
-      events = new EventMonitor({ sampleRateHz: FS, splOffsetDb: null, dir: null, utcOfSample: (k) => mon.utcOfSample(k), lookOf: (sec) => mon.meters.look(sec), onChange: (change, event) => changes.push({ change, event }) });
+      const ring = new RawRing(M, 10 * FS);
+      const clipDir = mkdtempSync(join(tmpdir(), 'nullsteer-clips-'));
+      const clipDone: string[] = [];
+      clips = new ClipRecorder({
+        dir: clipDir, sampleRateHz: FS, channels: M, fftSize: N, ring, band: () => engine.band, utcOfSample: (k) => mon.utcOfSample(k),
+        beamOf: (sector) => {
+          const id = [...mon.meters.ownedBeams()].find(([, name]) => name === sector)?.[0];
+          if (id === undefined) return null;
+          const look = mon.meters.look(sector);
+          return { id, weights: engine.beamWeights(id), ...look, wngDb: engine.beams.find((b) => b.id === id)?.wngDb ?? null };
+        },
+        onClip: (_id, file) => clipDone.push(file),
+      });
+      const clipper = clips;
+      events = new EventMonitor({
+        sampleRateHz: FS, splOffsetDb: null, dir: null, utcOfSample: (k) => mon.utcOfSample(k), lookOf: (sec) => mon.meters.look(sec),
+        onChange: (change, event) => {
+          changes.push({ change, event });
+          if (change === 'started') clipper.start(event, rule!, mon.lastHopStart + N / 2);
+          if (change === 'ended') clipper.end(event);
+        },
+      });
+      // (the rule is made below; the detector only calls back after setRules)
       const problems: string[] = [];
       // The gate reads about −34 dBFS with the source and at most about −51 without it (measured,
       // printed below): a threshold of −45 dBFS sits between them.
@@ -62,6 +97,7 @@ describe('events from a sector on the engine', () => {
         if (k * frames === 3 * FS) events.setRules([rule!]);
         const data = new Float32Array(M * frames);
         for (let m = 0; m < M; m++) for (let n = 0; n < frames; n++) data[m * frames + n] = s[k * frames + n] + i[k * frames + n + 3 * m] + 0.0005 * rng.gaussian();
+        ring.push(data, frames, k * frames);
         await engine.pushAsync({ streamId: 1, sampleIndex: k * frames, sampleRateHz: FS, channels: M, frames, data, gap: false, discontinuity: false });
         gateLevels.push({ k: k * frames, db: mon.store.seconds('gate').at(-1)?.leqDb ?? NaN });
       }
@@ -78,6 +114,30 @@ describe('events from a sector on the engine', () => {
       expect(Math.abs(ev.azimuthDeg! - 90)).toBeLessThanOrEqual(2);
       expect(ev.startUtc).toBe(new Date(utc0 + (ev.startSample * 1000) / FS).toISOString());
       expect(events.list()).toHaveLength(1);
+
+      // The clip: at least preS (5 s) before the onset; SIR against microphone 0.
+      await waitFor(() => clipDone.length > 0 || clipper.counters.failed + clipper.counters.refused > 0, 10_000, 'the clip written');
+      expect(clipper.counters).toMatchObject({ started: 1, refused: 0, failed: 0 });
+      const side = JSON.parse(readFileSync(join(clipDir, `${ev.id}-beam.json`), 'utf8'));
+      expect(side.event.id).toBe(ev.id);
+      expect(side.preTriggerS).toBeGreaterThanOrEqual(5);
+      expect(side.toSample).toBe(ev.endSample! + 5 * FS);
+      const bytes = readFileSync(join(clipDir, `${ev.id}-beam.wav`));
+      const info = await parseWavHeader(new Uint8Array(bytes.buffer, bytes.byteOffset, bytes.byteLength));
+      const y = new Float32Array(bytes.buffer.slice(bytes.byteOffset + info.dataOffset, bytes.byteOffset + info.dataOffset + info.dataBytes));
+      expect(y.length).toBe(side.toSample - side.fromSample);
+      const power = (x: ArrayLike<number>, a: number, b: number) => {
+        let p = 0;
+        for (let n = a; n < b; n++) p += x[n] * x[n];
+        return p / (b - a);
+      };
+      const at = (sample: number) => sample - side.fromSample;
+      const clipBefore = power(y, at(ON - 4 * FS), at(ON - FS / 2)), clipDuring = power(y, at(ON + FS / 2), at(OFF - FS / 2));
+      const mic = Float32Array.from({ length: total }, (_, n) => s[n] + i[n]);
+      const micBefore = power(mic, ON - 4 * FS, ON - FS / 2), micDuring = power(mic, ON + FS / 2, OFF - FS / 2);
+      const sirClip = 10 * Math.log10((clipDuring - clipBefore) / clipBefore), sirMic = 10 * Math.log10((micDuring - micBefore) / micBefore);
+      console.log(`monitor clip: ${side.preTriggerS.toFixed(2)} s before the onset, ${(y.length / FS).toFixed(2)} s long, WNG ${side.whiteNoiseGainDb?.toFixed?.(2)} dB; SIR clip ${sirClip.toFixed(1)} dB, microphone ${sirMic.toFixed(1)} dB: ${(sirClip - sirMic).toFixed(1)} dB better`);
+      expect(sirClip - sirMic).toBeGreaterThanOrEqual(15);
     } finally {
       await engine.close();
     }
