@@ -60,7 +60,9 @@ import { encodeRow } from '../shared/messages.ts';
 import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
 import { ServiceMetrics } from './monitor/metrics.ts';
 import { Monitor } from './monitor/monitor.ts';
-import { EventMonitor } from './monitor/events.ts';
+import { EventMonitor, type MonitorEvent } from './monitor/events.ts';
+import { ClipRecorder } from './monitor/clips.ts';
+import { PRE_TRIGGER_MAX_BYTES, RawRing } from './monitor/pre-trigger.ts';
 import { RulesStore } from './monitor/rules-store.ts';
 import { WebhookSender } from './monitor/webhooks.ts';
 
@@ -284,6 +286,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   const metrics = new ServiceMetrics({ status: () => status(), webhookFailures: () => webhookFailures() });
   // Levels per direction (server/monitor/monitor.ts): made once the engine exists; rows and hop snapshots feed it.
   let monitor: Monitor | null = null;
+  let clipsRef: ClipRecorder | null = null;
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
@@ -301,6 +304,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     },
     onHopSnapshot: (snap, offset, start) => monitor?.hop(snap, offset, start),
     onBeamAudio: (hop) => {
+      clipsRef?.beamHop(hop.sampleIndex, hop.frames, hop.ids, hop.data);
       streamOut.send(hop);
       if (recordBeams && recorder.recording && hop.sampleIndex >= 0) {
         // Which beam each channel carries, noted in the sidecar whenever the set of beams changes.
@@ -342,7 +346,8 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   });
   monitor.setSectors(sectors.list());
   sectors.onChange((after) => monitor?.setSectors(after));
-  // Rules and events (server/monitor/events.ts): changes go live, to the webhooks and to the metrics.
+  // Rules and events (server/monitor/events.ts): changes go live, to the webhooks, to the metrics and to the clips.
+  let onClipChange: (change: 'started' | 'updated' | 'ended', event: MonitorEvent) => void = () => undefined;
   const webhooks = new WebhookSender(config.monitor.webhooks);
   webhookFailures = () => webhooks.counters().hooks.reduce((p, h) => p + h.abandoned + h.dropped, 0);
   const mon = monitor;
@@ -353,6 +358,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     utcOfSample: (i) => mon.utcOfSample(i),
     lookOf: (sector) => mon.meters.look(sector),
     onChange: (change, event) => {
+      onClipChange(change, event);
       if (change === 'started') metrics.countEvent(event.rule);
       live.broadcastJson({ type: 'event', change, event });
       webhooks.send(change, event);
@@ -366,6 +372,31 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     events.setRules(after);
     journalNote('rules', before, after, `rules: ${after.map((r) => r.name).join(', ') || 'none'}`);
   });
+  // Event clips (server/monitor/clips.ts): the pre-trigger ring of raw input, allocated once at start
+  // (monitor.preTriggerS; status says its size), so that a rule made later has its history too.
+  // At most PRE_TRIGGER_MAX_BYTES (256 MiB): a very large array gets a shorter ring, said in status.
+  const ring: RawRing | null = config.monitor.preTriggerS > 0 ? new RawRing(channels, Math.max(Math.min(Math.round(config.monitor.preTriggerS * fs), Math.floor(PRE_TRIGGER_MAX_BYTES / (4 * channels))), 2 * eng.fftSize)) : null;
+  const clips = new ClipRecorder({
+    dir: resolvePath(config.outputs.dir, 'clips'),
+    sampleRateHz: fs,
+    channels,
+    fftSize: eng.fftSize,
+    ring: () => ring,
+    band: () => eng.band,
+    utcOfSample: (i) => mon.utcOfSample(i),
+    beamOf: (sector) => {
+      const id = [...mon.meters.ownedBeams()].find(([, name]) => name === sector)?.[0];
+      if (id === undefined) return null;
+      return { id, weights: eng.beamWeights(id), ...mon.meters.look(sector), wngDb: eng.beams.find((b) => b.id === id)?.wngDb ?? null };
+    },
+    onClip: (id, file) => events.addClip(id, file),
+  });
+  clipsRef = clips;
+  onClipChange = (change, event) => {
+    const rule = rules.get(event.rule);
+    if (change === 'started' && rule) clips.start(event, rule, mon.lastHopStart + eng.fftSize / 2);
+    if (change === 'ended') clips.end(event);
+  };
   const meters = new ChannelMeters(channels, fs);
   bus.subscribe((b) => meters.push(b.data, b.frames), 'channel-meters');
   // Channels in use: the operator's mask and, of a merged array, the members that delivered the span.
@@ -377,6 +408,11 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   bus.subscribe((b) => {
     if (recordRaw && recorder.recording) recorder.push(b);
   }, 'recorder');
+  // Before the engine: a hop's frame is in the ring by the time the engine meters it.
+  bus.subscribe((b) => {
+    if (b.sampleIndex >= 0) ring?.push(b.data, b.frames, b.sampleIndex, b.discontinuity);
+    clips.rawBlock(b.sampleIndex, b.frames, b.data);
+  }, 'pre-trigger');
   bus.subscribe((b) => {
     inputMask.observe(b.sampleIndex, b.frames, b.absent);
     eng.push(b);
@@ -436,7 +472,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       journal: { session: journal.session, entries: journal.total, corruptLines: journal.corruptLines, readError: journal.readError, rotations: journal.rotations, maxBytes: config.data.journalMaxBytes, writeErrors: journal.writeErrors, lastWriteError: journal.lastWriteError },
       recording: { recording: rec.recording, dir: rec.dir, stopReason: rec.stopReason, streamOut: streamOut.stats() },
       retention: retention.status(),
-      monitor: monitor ? { ...monitor.status(), events: { ...events.counters }, rules: rules.list().length, rulesError: rules.loadError, webhooks: webhooks.counters() } : null,
+      monitor: monitor ? { ...monitor.status(), events: { ...events.counters }, clips: clipsRef ? { ...clipsRef.counters, active: clipsRef.active, preTriggerBytes: clipsRef.ringBytes, preTriggerS: ring ? ring.capacity / fs : 0 } : null, rules: rules.list().length, rulesError: rules.loadError, webhooks: webhooks.counters() } : null,
       cluster: edge ? edge.status() : clusterOff(config.cluster.site, config.cluster.node),
     };
   };
@@ -745,6 +781,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       await inputs?.close();
       if (recorder.recording) await recorder.stop();
       await retention.stop();
+      await clips.close();
       await monitor?.close();
       webhooks.close();
       await events.flushed();

@@ -217,7 +217,7 @@ export const CONFIG_SCHEMA: FieldSpec = {
     monitor: {
       kind: 'object',
       fields: {
-        preTriggerS: { kind: 'number', min: 0, max: 60, doc: 'Seconds of raw input kept for event clips (all channels, float32: channels × sample rate × this × 4 bytes, allocated at start; 24 channels at 48 kHz for 10 s is 46 MB): a clip can start this long before its trigger.' },
+        preTriggerS: { kind: 'number', min: 0, max: 60, doc: 'Seconds of raw input kept for event clips (all channels, float32: channels × sample rate × this × 4 bytes, allocated at start; 24 channels at 48 kHz for 10 s is 46 MB; at most 256 MiB, a very large array gets a shorter ring, status monitor.clips.preTriggerS): a clip can start this long before its trigger.' },
         omniWeighting: { kind: 'enum', values: ['A', 'C', 'Z'], doc: 'Frequency weighting (IEC 61672-1) of the array-as-one-microphone level (series omni of GET /api/levels); sectors name their own.' },
         webhooks: {
           kind: 'recordList',

@@ -42,7 +42,8 @@ export interface ClipOptions {
   sampleRateHz: number;
   channels: number;
   fftSize: number;
-  ring: RawRing;
+  /** The pre-trigger ring now (null while there is none: no rules). */
+  ring: () => RawRing | null;
   band: () => { startBin: number; count: number };
   /** The sector's beam now: id, its weights as applied, look direction, WNG (dB). */
   beamOf: (sector: string) => { id: number; weights: Float64Array | null; azimuthDeg: number | null; elevationDeg: number | null; wngDb: number | null } | null;
@@ -78,6 +79,11 @@ export class ClipRecorder {
     return this.#jobs.size;
   }
 
+  /** Memory held by the pre-trigger ring, bytes (0 without one). */
+  get ringBytes(): number {
+    return this.#o.ring()?.bytes ?? 0;
+  }
+
   /**
    * An event started (its detector's decision came in the hop whose live beam audio ends at
    * `nextLiveSample`): write its pre-trigger part now and follow the live beam from there.
@@ -90,8 +96,9 @@ export class ClipRecorder {
     }
     const o = this.#o;
     const beam = o.beamOf(ev.sector);
-    const span = o.ring.span;
-    if (!beam || !beam.weights || !span) {
+    const ring = o.ring();
+    const span = ring?.span ?? null;
+    if (!beam || !beam.weights || !ring || !span) {
       this.counters.refused++;
       return;
     }
@@ -101,7 +108,7 @@ export class ClipRecorder {
     let from = nextLiveSample - Math.ceil((nextLiveSample - wanted) / hop) * hop;
     while (from - (o.fftSize - hop) < span[0]) from += hop;
     if (from >= nextLiveSample) from = nextLiveSample;
-    const pre = from < nextLiveSample ? synthesizeFromRing(o.ring, from, nextLiveSample, beam.weights, { fftSize: o.fftSize, band: o.band(), sampleRateHz: o.sampleRateHz }) : new Float32Array(0);
+    const pre = from < nextLiveSample ? synthesizeFromRing(ring, from, nextLiveSample, beam.weights, { fftSize: o.fftSize, band: o.band(), sampleRateHz: o.sampleRateHz }) : new Float32Array(0);
     if (!pre) {
       this.counters.refused++;
       return;
@@ -124,7 +131,7 @@ export class ClipRecorder {
       const n = nextLiveSample - from;
       if (n > 0) {
         const planar = new Float32Array(o.channels * n);
-        o.ring.read(from, nextLiveSample, planar);
+        ring.read(from, nextLiveSample, planar);
         raw.write(planar, n);
       }
     }

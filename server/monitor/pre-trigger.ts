@@ -16,6 +16,9 @@
 import { BeamSynthesizer } from '../dsp/beam-synth.ts';
 import { MultiChannelStft } from '../dsp/stft.ts';
 
+/** Most memory the service gives the ring, bytes: a very large array gets a shorter ring (status says how long). */
+export const PRE_TRIGGER_MAX_BYTES = 256 * 1024 * 1024;
+
 export class RawRing {
   readonly channels: number;
   readonly capacity: number;

@@ -66,7 +66,7 @@ describe('events from a sector on the engine', () => {
       const clipDir = mkdtempSync(join(tmpdir(), 'nullsteer-clips-'));
       const clipDone: string[] = [];
       clips = new ClipRecorder({
-        dir: clipDir, sampleRateHz: FS, channels: M, fftSize: N, ring, band: () => engine.band, utcOfSample: (k) => mon.utcOfSample(k),
+        dir: clipDir, sampleRateHz: FS, channels: M, fftSize: N, ring: () => ring, band: () => engine.band, utcOfSample: (k) => mon.utcOfSample(k),
         beamOf: (sector) => {
           const id = [...mon.meters.ownedBeams()].find(([, name]) => name === sector)?.[0];
           if (id === undefined) return null;

@@ -3,7 +3,7 @@
  * (closed body, data.dir/rules.json, journaled) makes events from its sector's level; each event
  * change goes out on the live WebSocket (`event`), to a webhook receiver on 127.0.0.1 (signed with
  * HMAC-SHA256 over the body, checked here with node:crypto), into GET /api/events and GET /metrics,
- * and into data.dir/events. The built-in scene's source at 35° is on all the time, so a threshold far
+ * and into data.dir/events, and its clip is written to outputs.dir/clips. The built-in scene's source at 35° is on all the time, so a threshold far
  * below its level (−80 dBFS) starts an event once minDurationS has passed; deleting the rule stops it.
  */
 import { createHmac } from 'node:crypto';
@@ -22,6 +22,7 @@ const SECRET = 'a-test-secret-of-32-characters!!';
 let svc: Service;
 let hook: Server;
 let dataDir: string;
+let outputsDir: string;
 const received: { body: string; signature: string; event: string }[] = [];
 const liveEvents: { change: string; event: { id: string; rule: string } }[] = [];
 let ws: WebSocket;
@@ -42,7 +43,8 @@ describe('rules and events on the service', () => {
     const arrayFile = join(dir, 'ring-24.json');
     copyFileSync(fileURLToPath(new URL('../../config/arrays/ring-24.json', import.meta.url)), arrayFile);
     dataDir = join(dir, 'data');
-    svc = await startTestService({ source: { kind: 'simulator' }, array: { file: arrayFile }, data: { dir: dataDir }, monitor: { webhooks: [{ url: `http://127.0.0.1:${port}/hook`, secret: SECRET }] } });
+    outputsDir = join(dir, 'recordings');
+    svc = await startTestService({ source: { kind: 'simulator' }, array: { file: arrayFile }, data: { dir: dataDir }, outputs: { dir: outputsDir }, monitor: { webhooks: [{ url: `http://127.0.0.1:${port}/hook`, secret: SECRET }] } });
     ws = new WebSocket(`${svc.url.replace('http', 'ws')}/api/live`);
     ws.on('message', (data, isBinary) => {
       if (isBinary) return;
@@ -59,6 +61,8 @@ describe('rules and events on the service', () => {
 
   it('a rule saved over REST makes signed, live, listed and counted events; bad bodies are refused by field', async () => {
     expect((await fetch(`${svc.url}/api/sectors/gate`, { method: 'PUT', headers: JSON_HEADERS, body: JSON.stringify({ azimuthDeg: [20, 50], method: 'mvdr', weighting: 'A' }) })).status).toBe(201);
+    // Six seconds of stream first, so the pre-trigger ring holds the clip's 5 s before the event.
+    await waitFor(async () => ((await getStatus(svc)).engine.hops ?? 0) * 256 >= 6 * 48_000, 30_000, 'six seconds of stream');
     const bad = await fetch(`${svc.url}/api/rules/gate-loud`, { method: 'PUT', headers: JSON_HEADERS, body: JSON.stringify({ sector: 'gate', threshold: { mode: 'loudest', db: 1 }, extra: 1 }) });
     expect(bad.status).toBe(400);
     const badText = await bad.text();
@@ -87,11 +91,22 @@ describe('rules and events on the service', () => {
     expect(st.monitor.events.started).toBeGreaterThanOrEqual(1);
     expect(st.monitor.rules).toBe(1);
     expect(st.monitor.webhooks.hooks[0].delivered).toBeGreaterThanOrEqual(1);
+    // Its clip is being written (the event goes on); the pre-trigger ring holds 10 s of 24 channels.
+    expect(st.monitor.clips).toMatchObject({ started: 1, active: 1, refused: 0, preTriggerBytes: 24 * 48_000 * 10 * 4 });
     const journal = await (await fetch(`${svc.url}/api/journal`)).json();
     expect(JSON.stringify(journal)).toContain('"kind":"rules"');
 
     expect((await fetch(`${svc.url}/api/rules/gate-loud`, { method: 'DELETE', headers: JSON_HEADERS })).status).toBe(200);
     expect((await (await fetch(`${svc.url}/api/rules`)).json()).rules).toEqual([]);
     expect((await fetch(`${svc.url}/api/rules/nope`)).status).toBe(404);
+    // Closing the service closes the clip where it is: a WAV and its sidecar, marked truncated.
+    await svc.close();
+    const clipsDir = join(outputsDir, 'clips');
+    const names = readdirSync(clipsDir).sort();
+    expect(names).toEqual([`${started.event.id}-beam.json`, `${started.event.id}-beam.wav`]);
+    const side = JSON.parse(readFileSync(join(clipsDir, names[0]), 'utf8'));
+    expect(side).toMatchObject({ truncated: true, indicative: true, files: [`${started.event.id}-beam.wav`] });
+    expect(side.preTriggerS).toBeGreaterThanOrEqual(4.9);
+    expect(side.caution).toContain('recording people is regulated');
   }, 90_000);
 });
