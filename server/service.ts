@@ -362,6 +362,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
       if (change === 'started') metrics.countEvent(event.rule);
       live.broadcastJson({ type: 'event', change, event });
       webhooks.send(change, event);
+      edge?.event(change, event);
     },
   });
   const rules = new RulesStore(resolvePath(dataDir, 'rules.json'), config.monitor.preTriggerS);

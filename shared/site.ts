@@ -29,7 +29,7 @@ export const MAX_SITE_PEAKS = 16;
 /** Largest JSON message accepted from the broker, bytes. */
 export const MAX_SITE_MESSAGE_BYTES = 64 * 1024;
 
-export type SiteSubjectKind = 'rows' | 'peaks' | 'status' | 'journal';
+export type SiteSubjectKind = 'rows' | 'peaks' | 'status' | 'journal' | 'events';
 
 export function siteSubject(site: string, node: string, kind: SiteSubjectKind): string {
   return `nullsteer.${site}.${node}.${kind}`;
@@ -49,7 +49,7 @@ export function siteStreamName(site: string): string {
 export function parseSiteSubject(subject: string): { site: string; node: string; kind: SiteSubjectKind } | null {
   const p = subject.split('.');
   if (p.length !== 4 || p[0] !== 'nullsteer' || !SITE_NAME.test(p[1]) || !SITE_NAME.test(p[2])) return null;
-  if (p[3] !== 'rows' && p[3] !== 'peaks' && p[3] !== 'status' && p[3] !== 'journal') return null;
+  if (p[3] !== 'rows' && p[3] !== 'peaks' && p[3] !== 'status' && p[3] !== 'journal' && p[3] !== 'events') return null;
   return { site: p[1], node: p[2], kind: p[3] };
 }
 

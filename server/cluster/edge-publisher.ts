@@ -69,8 +69,8 @@ export interface EdgePublisherOptions {
   onError?: (message: string) => void;
 }
 
-type Kind = 'rows' | 'peaks' | 'status' | 'journal';
-const kinds = (): Record<Kind, number> => ({ rows: 0, peaks: 0, status: 0, journal: 0 });
+type Kind = 'rows' | 'peaks' | 'status' | 'journal' | 'events';
+const kinds = (): Record<Kind, number> => ({ rows: 0, peaks: 0, status: 0, journal: 0, events: 0 });
 
 /** `GET /api/status` → `cluster`. */
 export interface ClusterStatus {
@@ -88,7 +88,7 @@ export interface ClusterStatus {
   pending: number;
   /** Durable entries dropped for room (pending queue full; peaks first), plus rows dropped before their peaks were read. */
   dropped: number;
-  droppedByKind: { peaks: number; journal: number; rows: number };
+  droppedByKind: { peaks: number; journal: number; events: number; rows: number };
   /** Journal entries whose before/after were left out to fit a message. */
   journalTrimmed: number;
   /** The edge's sequence number of the latest durable entry. */
@@ -100,7 +100,7 @@ export interface ClusterStatus {
 
 /** `cluster` in status when no broker is configured. */
 export function clusterOff(site: string, node: string): ClusterStatus {
-  return { state: 'off', url: null, site, node, published: kinds(), publishedBytes: kinds(), skipped: { rows: 0, status: 0 }, pending: 0, dropped: 0, droppedByKind: { peaks: 0, journal: 0, rows: 0 }, journalTrimmed: 0, lastSeq: 0, streamReady: false, reconnects: 0, lastError: null };
+  return { state: 'off', url: null, site, node, published: kinds(), publishedBytes: kinds(), skipped: { rows: 0, status: 0 }, pending: 0, dropped: 0, droppedByKind: { peaks: 0, journal: 0, events: 0, rows: 0 }, journalTrimmed: 0, lastSeq: 0, streamReady: false, reconnects: 0, lastError: null };
 }
 
 /** The server's own dashboard URL for other machines: its bound address, or a wildcard's first external address. */
@@ -172,7 +172,7 @@ export class EdgePublisher {
   constructor(opts: EdgePublisherOptions) {
     this.#o = opts;
     this.#queue = new PendingQueue(opts.pendingMaxEntries);
-    this.#subjects = { rows: siteSubject(opts.site, opts.node, 'rows'), peaks: siteSubject(opts.site, opts.node, 'peaks'), status: siteSubject(opts.site, opts.node, 'status'), journal: siteSubject(opts.site, opts.node, 'journal') };
+    this.#subjects = { rows: siteSubject(opts.site, opts.node, 'rows'), peaks: siteSubject(opts.site, opts.node, 'peaks'), status: siteSubject(opts.site, opts.node, 'status'), journal: siteSubject(opts.site, opts.node, 'journal'), events: siteSubject(opts.site, opts.node, 'events') };
     this.#statusTimer = setInterval(() => this.#sendStatus(), opts.statusIntervalMs ?? 1000);
     this.#statusTimer.unref?.();
     void this.#connectLoop();
@@ -197,6 +197,23 @@ export class EdgePublisher {
     if (!this.#drainScheduled) {
       this.#drainScheduled = true;
       setImmediate(() => this.#drainRows());
+    }
+  }
+
+  /**
+   * A monitoring event's change (server/monitor/events.ts), published durably on
+   * `nullsteer.SITE.NODE.events` as `{ v, site, node, change, event }`; it waits in the pending queue
+   * like a journal entry (peaks are dropped before it).
+   */
+  event(change: 'started' | 'updated' | 'ended', event: object): void {
+    if (this.#closed) return;
+    try {
+      const data = enc.encode(JSON.stringify({ v: SITE_MESSAGE_VERSION, site: this.#o.site, node: this.#o.node, change, event }));
+      if (data.byteLength > MAX_SITE_MESSAGE_BYTES) return this.#error(`event larger than ${MAX_SITE_MESSAGE_BYTES} bytes: not published`);
+      this.#queue.push('events', this.#subjects.events, data);
+      this.#pump();
+    } catch (e) {
+      this.#error(`event: ${errText(e)}`);
     }
   }
 
@@ -230,8 +247,8 @@ export class EdgePublisher {
       publishedBytes: { ...this.#bytes },
       skipped: { ...this.#skipped },
       pending: q.pending,
-      dropped: q.dropped.peaks + q.dropped.journal + this.#rowsDropped,
-      droppedByKind: { peaks: q.dropped.peaks, journal: q.dropped.journal, rows: this.#rowsDropped },
+      dropped: q.dropped.peaks + q.dropped.journal + q.dropped.events + this.#rowsDropped,
+      droppedByKind: { peaks: q.dropped.peaks, journal: q.dropped.journal, events: q.dropped.events, rows: this.#rowsDropped },
       journalTrimmed: this.#journalTrimmed,
       lastSeq: q.lastSeq,
       streamReady: this.#streamReady,
@@ -344,7 +361,7 @@ export class EdgePublisher {
     try {
       const jsm = await jetstreamManager(nc, { timeout: this.#o.ackTimeoutMs ?? 5000 });
       const name = siteStreamName(this.#o.site);
-      const subjects = [siteWildcard(this.#o.site, 'peaks'), siteWildcard(this.#o.site, 'journal')];
+      const subjects = [siteWildcard(this.#o.site, 'peaks'), siteWildcard(this.#o.site, 'journal'), siteWildcard(this.#o.site, 'events')];
       const maxAgeMs = this.#o.durableMaxAgeS * 1000;
       const want: Partial<StreamConfig> = { subjects, max_age: nanos(maxAgeMs), max_bytes: this.#o.durableMaxBytes, duplicate_window: nanos(Math.min(120_000, maxAgeMs)) };
       let info = null;

@@ -9,7 +9,8 @@
  * already hold them). Every drop is counted by kind: nothing is lost silently.
  */
 
-export type DurableKind = 'peaks' | 'journal';
+/** Monitoring events (`events`) are held like journal entries: peaks are dropped first. */
+export type DurableKind = 'peaks' | 'journal' | 'events';
 
 export interface DurableEntry {
   /** The edge's sequence number: 1, 2, … in the order entries were queued. */
@@ -56,9 +57,9 @@ export interface PendingCounts {
   pending: number;
   inFlight: number;
   /** Dropped for room since start, by kind. */
-  dropped: { peaks: number; journal: number };
+  dropped: { peaks: number; journal: number; events: number };
   /** Acknowledged by JetStream since start, by kind. */
-  acked: { peaks: number; journal: number };
+  acked: { peaks: number; journal: number; events: number };
   /** Sequence number of the latest entry queued (0: none yet). */
   lastSeq: number;
 }
@@ -69,8 +70,8 @@ export class PendingQueue {
   readonly #journal = new Fifo<DurableEntry>();
   readonly #inFlight = new Set<DurableEntry>();
   #seq = 0;
-  readonly dropped = { peaks: 0, journal: 0 };
-  readonly acked = { peaks: 0, journal: 0 };
+  readonly dropped = { peaks: 0, journal: 0, events: 0 };
+  readonly acked = { peaks: 0, journal: 0, events: 0 };
 
   /** @param maxEntries ≥ 1 (cluster.pendingMaxEntries) */
   constructor(maxEntries: number) {

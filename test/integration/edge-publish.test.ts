@@ -41,7 +41,7 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
   let svc: Service;
   let nc: NatsConnection;
   let sub: Subscription;
-  const got = { rows: [] as Uint8Array[], peaks: [] as PeakMessage[], status: [] as NodeStatusMessage[], journal: [] as JournalMessage[], bad: [] as string[] };
+  const got = { rows: [] as Uint8Array[], peaks: [] as PeakMessage[], status: [] as NodeStatusMessage[], journal: [] as JournalMessage[], events: [] as { v: number; site: string; node: string; change: string; event: { id: string; rule: string } }[], bad: [] as string[] };
 
   beforeAll(async () => {
     broker = await startBroker();
@@ -58,6 +58,7 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
           } else if (s?.kind === 'peaks') got.peaks.push(parsePeakMessage(m.data));
           else if (s?.kind === 'status') got.status.push(parseNodeStatus(m.data));
           else if (s?.kind === 'journal') got.journal.push(parseJournalMessage(m.data));
+          else if (s?.kind === 'events') got.events.push(JSON.parse(new TextDecoder().decode(m.data)));
           else got.bad.push(m.subject);
         } catch (e) {
           got.bad.push(`${m.subject}: ${(e as Error).message}`);
@@ -102,6 +103,25 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
     expect(cl).toMatchObject({ state: 'connected', url: broker.url, site: SITE, node: NODE, dropped: 0, lastError: null });
     expect(cl.published.rows).toBeGreaterThan(0);
   }, 40_000);
+
+  it('publishes monitoring events on nullsteer.SITE.NODE.events, kept in the site\'s stream', async () => {
+    const put = (path: string, body: unknown) => fetch(`${svc.url}${path}`, { method: 'PUT', headers: { 'content-type': 'application/json' }, body: JSON.stringify(body) });
+    // The built-in scene's source at 35° (array frame) is on all the time: a threshold far under it starts an event.
+    expect((await put('/api/sectors/gate', { azimuthDeg: [20, 50], method: 'mvdr', weighting: 'A' })).status).toBe(201);
+    expect((await put('/api/rules/gate-loud', { sector: 'gate', threshold: { mode: 'absolute', db: -80 }, clip: { beam: false, raw: false, preS: 0, postS: 0 } })).status).toBe(201);
+    await waitFor(() => got.events.some((e) => e.change === 'started'), 30_000, 'an event on the broker');
+    const e = got.events.find((x) => x.change === 'started')!;
+    expect(e).toMatchObject({ v: 1, site: SITE, node: NODE, event: { rule: 'gate-loud' } });
+    const checker = await connect({ servers: broker.url });
+    try {
+      const info = await (await jetstreamManager(checker)).streams.info(siteStreamName(SITE));
+      expect(info.config.subjects).toContain(`nullsteer.${SITE}.*.events`);
+      await waitFor(async () => ((await getStatus(svc)).cluster.published.events ?? 0) >= 1, 10_000, 'the event acknowledged');
+    } finally {
+      await checker.close();
+    }
+    expect((await fetch(`${svc.url}/api/rules/gate-loud`, { method: 'DELETE', headers: { 'content-type': 'application/json' } })).status).toBe(200);
+  });
 
   it('keeps processing while the broker is away, holds peaks and journal, and JetStream has every entry after the restart', async () => {
     const rowsAtKill = svc.engine.rows;
@@ -157,6 +177,7 @@ describe.skipIf(!natsAvailable)('edge publishing on a real broker', () => {
         seqs.push(Number(m.headers?.get(EDGE_SEQ_HEADER)));
         runs.add(m.headers?.get(EDGE_RUN_HEADER) ?? '');
         if (m.subject.endsWith('.journal')) journal.push(parseJournalMessage(m.data));
+        else if (m.subject.endsWith('.events')) expect(JSON.parse(new TextDecoder().decode(m.data)).node).toBe(NODE);
         else parsePeakMessage(m.data);
         if (seqs.length === info.state.messages) break;
       }
@@ -181,7 +202,7 @@ describe.skipIf(!natsAvailable)('edge with an unreachable broker', () => {
       await waitFor(async () => (await getStatus(svc)).cluster.pending > 0, 20_000, 'pending peaks');
       const cl = (await getStatus(svc)).cluster;
       expect(cl.state).toBe('reconnecting');
-      expect(cl.published).toEqual({ rows: 0, peaks: 0, status: 0, journal: 0 });
+      expect(cl.published).toEqual({ rows: 0, peaks: 0, status: 0, journal: 0, events: 0 });
       expect(cl.skipped.rows).toBeGreaterThan(0);
     } finally {
       await svc.close();

@@ -19,6 +19,19 @@ describe('pending queue', () => {
     expect(q.size).toBe(3); // in flight until acknowledged
   });
 
+  it('holds monitoring events like journal entries: peaks go first, then the oldest of events and journal', () => {
+    const q = new PendingQueue(2);
+    q.push('events', 'e', b); // 1
+    q.push('peaks', 'p', b); // 2
+    q.push('journal', 'j', b); // 3: drops peak 2
+    expect(q.dropped).toEqual({ peaks: 1, journal: 0, events: 0 });
+    q.push('journal', 'j', b); // 4: drops event 1, the oldest left
+    expect(q.dropped).toEqual({ peaks: 1, journal: 0, events: 1 });
+    const e = q.take()!;
+    q.ack(e);
+    expect(q.acked).toEqual({ peaks: 0, journal: 1, events: 0 });
+  });
+
   it('keeps at most maxEntries: drops the oldest peak entries first, journal entries last, and counts each', () => {
     const q = new PendingQueue(4);
     q.push('journal', 'j', b); // 1
@@ -27,12 +40,12 @@ describe('pending queue', () => {
     q.push('journal', 'j', b); // 4
     q.push('peaks', 'p', b); // 5: drops 2
     expect(q.size).toBe(4);
-    expect(q.dropped).toEqual({ peaks: 1, journal: 0 });
+    expect(q.dropped).toEqual({ peaks: 1, journal: 0, events: 0 });
     q.push('journal', 'j', b); // 6: drops 3
     q.push('journal', 'j', b); // 7: drops 5 (the last peak)
-    expect(q.dropped).toEqual({ peaks: 3, journal: 0 });
+    expect(q.dropped).toEqual({ peaks: 3, journal: 0, events: 0 });
     q.push('journal', 'j', b); // 8: no peak left: drops journal 1
-    expect(q.dropped).toEqual({ peaks: 3, journal: 1 });
+    expect(q.dropped).toEqual({ peaks: 3, journal: 1, events: 0 });
     const seqs: number[] = [];
     for (let e = q.take(); e; e = q.take()) seqs.push(e.seq);
     expect(seqs).toEqual([4, 6, 7, 8]);
@@ -60,7 +73,7 @@ describe('pending queue', () => {
     q.fail(d);
     q.fail(a);
     expect(q.size).toBe(3);
-    expect(q.acked).toEqual({ peaks: 0, journal: 1 });
+    expect(q.acked).toEqual({ peaks: 0, journal: 1, events: 0 });
     expect([q.take()!.seq, q.take()!.seq, q.take()!.seq]).toEqual([1, 3, 4]);
   });
 });
