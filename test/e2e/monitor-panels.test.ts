@@ -68,7 +68,7 @@ describe.skipIf(!browserAvailable)('levels and events panels', () => {
     // rule, sector, start UTC, length, peak, direction, state
     expect(cells[0]).toBe('gate-loud');
     expect(cells[1]).toBe('gate');
-    expect(cells[2]).toMatch(/^\d{2}-\d{2} \d{2}:\d{2}:\d{2}$/);
+    expect(cells[2]).toMatch(/^\d{2}:\d{2}:\d{2}$/);
     expect(cells[6]).toBe('active');
     const listed = (await (await fetch(`${url}/api/events`)).json()) as { events: { id: string; clips: string[] }[] };
     const id = await row.first().getAttribute('data-id');
