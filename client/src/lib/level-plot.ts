@@ -117,16 +117,16 @@ export function latestTable(bySeries: ReadonlyMap<string, readonly LevelRecord[]
   return rows;
 }
 
-/** Time labels for the plot's x axis: about `count` round UTC times in [fromMs, toMs], "HH:MM" (or "MM-DD" for a week). */
+/** Time labels for the plot's x axis: at most `count` round UTC times in [fromMs, toMs], "HH:MM:SS" below a minute's step, "HH:MM", or "MM-DD" for a day's. */
 export function timeTicks(fromMs: number, toMs: number, count = 4): { tMs: number; text: string }[] {
   const span = toMs - fromMs;
   if (!(span > 0)) return [];
-  const steps = [60_000, 120_000, 300_000, 600_000, 900_000, 1_800_000, 3_600_000, 3 * 3_600_000, 6 * 3_600_000, 12 * 3_600_000, 86_400_000];
+  const steps = [5_000, 10_000, 15_000, 30_000, 60_000, 120_000, 300_000, 600_000, 900_000, 1_800_000, 3_600_000, 3 * 3_600_000, 6 * 3_600_000, 12 * 3_600_000, 86_400_000];
   const step = steps.find((s) => span / s <= count) ?? 86_400_000;
   const out: { tMs: number; text: string }[] = [];
   for (let t = Math.ceil(fromMs / step) * step; t <= toMs; t += step) {
     const iso = new Date(t).toISOString();
-    out.push({ tMs: t, text: step >= 86_400_000 ? iso.slice(5, 10) : iso.slice(11, 16) });
+    out.push({ tMs: t, text: step >= 86_400_000 ? iso.slice(5, 10) : iso.slice(11, step < 60_000 ? 19 : 16) });
   }
   return out;
 }
