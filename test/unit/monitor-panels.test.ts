@@ -70,8 +70,8 @@ describe('Levels plot', () => {
     const from = Date.UTC(2026, 11, 4, 1, 2, 30);
     // An hour: 15-min steps (60/15 = 4 labels at most) from 01:15.
     expect(timeTicks(from, from + 3_600_000).map((t) => t.text)).toEqual(['01:15', '01:30', '01:45', '02:00']);
-    // 25 s: 10-s steps (25/10 ≤ 4) from 01:02:40.
-    expect(timeTicks(from, from + 25_000).map((t) => t.text)).toEqual(['01:02:40', '01:02:50']);
+    // 25 s from 01:02:30: 10-s steps (25/5 > 4, 25/10 ≤ 4), the start itself round.
+    expect(timeTicks(from, from + 25_000).map((t) => t.text)).toEqual(['01:02:30', '01:02:40', '01:02:50']);
   });
 });
 
