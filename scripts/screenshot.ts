@@ -19,7 +19,7 @@ const browser = await chromium.launch({
 });
 try {
   // Tall enough for the side column's panels to be on the page, not behind its scroll bar.
-  const page = await browser.newPage({ viewport: { width: 1280, height: 2300 } });
+  const page = await browser.newPage({ viewport: { width: 1280, height: 2900 } });
   await page.goto(`${svc.url}/`);
   await fetch(`${svc.url}/api/beams`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ azimuthDeg: 35 }) });
   await page.waitForTimeout(8000);

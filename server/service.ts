@@ -632,6 +632,7 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
     sectors,
     levels: monitor.levels(),
     rules: { store: rules, events: (from, to, rule) => events.list(from, to, rule), unit: () => events.unit },
+    clipsDir: resolvePath(config.outputs.dir, 'clips'),
     processing: {
       get: () => eng.params,
       apply: (next) => applyParams(next, 'processing'),

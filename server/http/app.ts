@@ -26,6 +26,8 @@ import { createSerial, type SerialStats } from './serial.ts';
 import { staticRoutes } from './routes/static.ts';
 import { statusRoutes, type StatusProvider } from './routes/status.ts';
 import { arrayCheckRoutes, type ArrayCheckController } from './routes/array-check.ts';
+// Issue 16 (dashboard): GET /api/clips/FILE, event clips from outputs.dir/clips.
+import { clipsRoutes } from './routes/clips.ts';
 // Issue 16 (metrics): GET /metrics, guarded like GET /api/status.
 import { METRICS_PATH, metricsRoutes, type MetricsProvider } from './routes/metrics.ts';
 
@@ -89,6 +91,8 @@ export interface AppDeps {
   levels?: LevelsController;
   /** Monitoring rules and events (`/api/rules`, `/api/events`); absent without them. */
   rules?: RulesRoutesDeps;
+  /** outputs.dir/clips, resolved: `GET /api/clips/FILE` serves event clips from it; absent without it. */
+  clipsDir?: string;
 }
 
 const READ_ONLY_METHODS = new Set(['GET', 'HEAD', 'OPTIONS']);
@@ -225,6 +229,7 @@ export function buildApp(deps: AppDeps): FastifyInstance {
   if (deps.rules) app.register(rulesRoutes(deps.rules), { prefix: '/api' });
   if (deps.sectors) app.register(sectorsRoutes(deps.sectors), { prefix: '/api' });
   if (deps.arrayCheck) app.register(arrayCheckRoutes(deps.arrayCheck), { prefix: '/api' });
+  if (deps.clipsDir) app.register(clipsRoutes(deps.clipsDir), { prefix: '/api' });
   if (deps.metrics) app.register(metricsRoutes(deps.metrics));
   if (deps.staticDir) app.register(staticRoutes(deps.staticDir));
   return app;

@@ -39,6 +39,7 @@ export const HTTP_ERRORS = {
   ERR_HTTP_RULE_NOT_FOUND: { statusCode: 404, template: 'no rule named {name}' },
   ERR_HTTP_RULES_FULL: { statusCode: 409, template: '{detail}' },
   ERR_HTTP_RULES_FILE_FAILED: { statusCode: 500, template: 'the rules could not be saved (they are unchanged): {detail}' },
+  ERR_HTTP_CLIP_NOT_FOUND: { statusCode: 404, template: 'no clip named {name}' },
   ERR_HTTP_INTERNAL: { statusCode: 500, template: 'internal error; see the server log' },
 } as const;
 

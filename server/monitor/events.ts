@@ -67,6 +67,8 @@ export class EventMonitor {
   #pending: { file: string; line: string }[] = [];
   #writing = false;
   #idle: Promise<void> = Promise.resolve();
+  /** One past the last sample metered (the end of an event whose rule goes). */
+  #lastSample = 0;
 
   constructor(o: EventsOptions) {
     this.#o = o;
@@ -83,8 +85,25 @@ export class EventMonitor {
       const old = keep.get(r.name);
       return old && JSON.stringify(old.rule) === JSON.stringify(r) ? old : new EventDetector(r, this.#o.sampleRateHz, this.#o.splOffsetDb ?? 0);
     });
-    const names = new Set(rules.map((r) => r.name));
-    for (const [key, ev] of this.#active) if (!names.has(ev.rule) || !this.#detectors.some((d) => d.rule.name === ev.rule && `${d.rule.name}#` === key.slice(0, d.rule.name.length + 1))) this.#active.delete(key);
+    // Open events of a removed rule, or of one replaced (its new detector counts events from 1 again).
+    const kept = new Set(this.#detectors.filter((d) => keep.get(d.rule.name) === d).map((d) => d.rule.name));
+    for (const [key, ev] of this.#active) if (!kept.has(ev.rule)) {
+      this.#active.delete(key);
+      this.#endDropped(ev);
+    }
+  }
+
+  /**
+   * An open event whose rule was removed or replaced ends at the last sample metered: told like any
+   * end (state, file line, onChange: live message, webhooks, the clip's post-roll).
+   */
+  #endDropped(ev: MonitorEvent): void {
+    ev.state = 'ended';
+    ev.endSample = Math.max(ev.startSample, this.#lastSample);
+    ev.endUtc = new Date(this.#o.utcOfSample(ev.endSample)).toISOString();
+    this.counters.ended++;
+    this.#append(ev.startUtc.slice(0, 10), JSON.stringify({ change: 'ended', ...ev }));
+    this.#o.onChange?.('ended', { ...ev, clips: [...ev.clips] });
   }
 
   get rules(): Rule[] {
@@ -93,6 +112,7 @@ export class EventMonitor {
 
   /** One hop of a sector's level (sector-meters.ts's mean square). */
   hopLevel(sector: string, sampleIndex: number, frames: number, meanSquare: number): void {
+    if (sampleIndex + frames > this.#lastSample) this.#lastSample = sampleIndex + frames;
     for (const d of this.#detectors) {
       if (d.rule.sector !== sector) continue;
       const look = this.#o.lookOf(sector);

@@ -12,6 +12,7 @@
 import {
   decodeRow,
   parseServerMessage,
+  type EventMessage,
   type HelloMessage,
   type LiveGrid,
   type ProcessingDerived,
@@ -74,6 +75,9 @@ export class LiveConnection {
   #minDelayMs = Infinity;
   #paramsSerial = 0;
   #started = false;
+
+  /** Called with each live monitoring `event` message (the dashboard's EventStore, issue 16). */
+  onEvent: ((msg: EventMessage) => void) | null = null;
 
   constructor(url: string = liveUrl()) {
     this.url = url;
@@ -241,6 +245,9 @@ export class LiveConnection {
         break;
       case 'status':
         this.#statusMessage = msg;
+        break;
+      case 'event':
+        this.onEvent?.(msg);
         break;
     }
   }
