@@ -128,10 +128,12 @@ export class ClipRecorder {
     let raw: WavStreamWriter | null = null;
     if (rule.clip.raw) {
       raw = WavStreamWriter.create(`${base}-raw.wav`, { sampleRateHz: o.sampleRateHz, channels: o.channels, encoding: 'float32', onError });
-      const n = nextLiveSample - from;
+      // Everything the ring holds from `from` on (the input runs ahead of the beam audio); the raw
+      // blocks that follow go on from its end.
+      const n = span[1] - from;
       if (n > 0) {
         const planar = new Float32Array(o.channels * n);
-        ring.read(from, nextLiveSample, planar);
+        ring.read(from, span[1], planar);
         raw.write(planar, n);
       }
     }

@@ -3,9 +3,9 @@
  * `GET /api/levels`. Indicative levels only (no class-rated meter, no traceable calibration).
  *
  * Files (appended, one per UTC day; the retention of `data.retention` deletes old days):
- * - `YYYY-MM-DD-seconds.csv`: `utc,sample_index,sector,weighting,unit,leq_db,coverage`, one line per
- *   sector (and `omni`) per second; coverage is the share of the second's samples metered (hops
- *   skipped or missing leave it below 1).
+ * - `YYYY-MM-DD-seconds.csv` and `YYYY-MM-DD-seconds.jsonl`: `utc,sample_index,sector,weighting,unit,
+ *   leq_db,coverage`, one line per sector (and `omni`) per second; coverage is the share of the
+ *   second's samples metered (hops skipped or missing leave it below 1).
  * - `YYYY-MM-DD-intervals.csv` and `YYYY-MM-DD-intervals.jsonl`: one record per sector per completed
  *   interval (1min, 15min, 1h): `utc` (start), `interval`, `sector`, `weighting`, `unit`, `leq_db`,
  *   `lmax_db`, `lmin_db`, `l10_db`, `l50_db`, `l90_db`, `l95_db`, `seconds`.
@@ -108,7 +108,9 @@ export class LevelStore {
     this.#ring(this.#seconds, s.sector, RECENT_SECONDS)?.push(s);
     this.counters.secondsKept++;
     const day = new Date(s.utcMs).toISOString().slice(0, 10);
-    this.#append(`${day}-seconds.csv`, 'utc,sample_index,sector,weighting,unit,leq_db,coverage', `${new Date(s.utcMs).toISOString()},${s.sampleIndex},${s.sector},${s.weighting},${s.unit},${f2(s.leqDb)},${s.coverage.toFixed(3)}`);
+    const utc = new Date(s.utcMs).toISOString();
+    this.#append(`${day}-seconds.csv`, 'utc,sample_index,sector,weighting,unit,leq_db,coverage', `${utc},${s.sampleIndex},${s.sector},${s.weighting},${s.unit},${f2(s.leqDb)},${s.coverage.toFixed(3)}`);
+    this.#append(`${day}-seconds.jsonl`, '', JSON.stringify({ utc, sample_index: s.sampleIndex, sector: s.sector, weighting: s.weighting, unit: s.unit, leq_db: round2(s.leqDb), coverage: Math.round(s.coverage * 1000) / 1000 }));
   }
 
   addInterval(r: IntervalLevel): void {

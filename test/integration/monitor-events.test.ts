@@ -88,7 +88,7 @@ describe('events from a sector on the engine', () => {
       const problems: string[] = [];
       // The gate reads about −34 dBFS with the source and at most about −51 without it (measured,
       // printed below): a threshold of −45 dBFS sits between them.
-      const rule = validateRule('gate-loud', { sector: 'gate', threshold: { mode: 'absolute', db: -45 }, minDurationS: 0.5, releaseS: 2, hysteresisDb: 3 }, 10, (p, m) => problems.push(`${p} ${m}`));
+      const rule = validateRule('gate-loud', { sector: 'gate', threshold: { mode: 'absolute', db: -45 }, minDurationS: 0.5, releaseS: 2, hysteresisDb: 3, clip: { preS: 5, postS: 5, beam: true, raw: true } }, 10, (p, m) => problems.push(`${p} ${m}`));
       expect(problems).toEqual([]);
       const frames = 4800;
       const gateLevels: { k: number; db: number }[] = [];
@@ -98,6 +98,7 @@ describe('events from a sector on the engine', () => {
         const data = new Float32Array(M * frames);
         for (let m = 0; m < M; m++) for (let n = 0; n < frames; n++) data[m * frames + n] = s[k * frames + n] + i[k * frames + n + 3 * m] + 0.0005 * rng.gaussian();
         ring.push(data, frames, k * frames);
+        clips.rawBlock(k * frames, frames, data);
         await engine.pushAsync({ streamId: 1, sampleIndex: k * frames, sampleRateHz: FS, channels: M, frames, data, gap: false, discontinuity: false });
         gateLevels.push({ k: k * frames, db: mon.store.seconds('gate').at(-1)?.leqDb ?? NaN });
       }
@@ -138,6 +139,16 @@ describe('events from a sector on the engine', () => {
       const sirClip = 10 * Math.log10((clipDuring - clipBefore) / clipBefore), sirMic = 10 * Math.log10((micDuring - micBefore) / micBefore);
       console.log(`monitor clip: ${side.preTriggerS.toFixed(2)} s before the onset, ${(y.length / FS).toFixed(2)} s long, WNG ${side.whiteNoiseGainDb?.toFixed?.(2)} dB; SIR clip ${sirClip.toFixed(1)} dB, microphone ${sirMic.toFixed(1)} dB: ${(sirClip - sirMic).toFixed(1)} dB better`);
       expect(sirClip - sirMic).toBeGreaterThanOrEqual(15);
+      // The raw clip: the same span, every channel, equal to the input.
+      expect(side.files).toEqual([`${ev.id}-beam.wav`, `${ev.id}-raw.wav`]);
+      const rawBytes = readFileSync(join(clipDir, `${ev.id}-raw.wav`));
+      const rawInfo = await parseWavHeader(new Uint8Array(rawBytes.buffer, rawBytes.byteOffset, rawBytes.byteLength));
+      expect(rawInfo.channels).toBe(M);
+      expect(rawInfo.dataBytes / (4 * M)).toBe(side.toSample - side.fromSample);
+      const raw = new Float32Array(rawBytes.buffer.slice(rawBytes.byteOffset + rawInfo.dataOffset, rawBytes.byteOffset + rawInfo.dataOffset + rawInfo.dataBytes));
+      // Interleaved in the file: frame f, channel m at f·M + m; channel 0 is s + i (+ noise) there.
+      const f = at(ON + FS);
+      expect(Math.abs(raw[f * M] - (s[ON + FS] + i[ON + FS]))).toBeLessThan(0.01);
     } finally {
       await engine.close();
     }

@@ -22,7 +22,8 @@ describe('level store', () => {
     }
     st.addInterval({ utcMs: T0 - 58_000, interval: '1min', sector: 'gate', weighting: 'A', unit: 'dBFS', leqDb: -41.234, lmaxDb: -40, lminDb: -43, l10Db: -40.5, l50Db: -41.5, l90Db: -42.5, l95Db: -42.75, seconds: 60 });
     await st.flushed();
-    expect(readdirSync(join(dir, 'levels')).sort()).toEqual(['2026-12-03-intervals.csv', '2026-12-03-intervals.jsonl', '2026-12-03-seconds.csv', '2026-12-04-seconds.csv']);
+    expect(readdirSync(join(dir, 'levels')).sort()).toEqual(['2026-12-03-intervals.csv', '2026-12-03-intervals.jsonl', '2026-12-03-seconds.csv', '2026-12-03-seconds.jsonl', '2026-12-04-seconds.csv', '2026-12-04-seconds.jsonl']);
+    expect(JSON.parse(readFileSync(join(dir, 'levels', '2026-12-03-seconds.jsonl'), 'utf8').split('\n')[1])).toEqual({ utc: '2026-12-03T23:59:58.000Z', sample_index: 0, sector: 'omni', weighting: 'A', unit: 'dBFS', leq_db: -30, coverage: 0.5 });
     const day1 = readFileSync(join(dir, 'levels', '2026-12-03-seconds.csv'), 'utf8').trim().split('\n');
     expect(day1[0]).toBe('utc,sample_index,sector,weighting,unit,leq_db,coverage');
     expect(day1.slice(1)).toEqual([
@@ -39,7 +40,7 @@ describe('level store', () => {
     expect(st.seconds('gate', T0 + 1000, T0 + 3000).map((s) => s.leqDb)).toEqual([-41, -42]);
     expect(st.intervals('gate', '1min')).toHaveLength(1);
     expect(st.series().sort()).toEqual(['gate', 'omni']);
-    expect(st.counters.linesWritten).toBe(10);
+    expect(st.counters.linesWritten).toBe(18);
   });
 
   it('keeps at most RECENT_SECONDS values per series in memory; without a folder writes nothing', async () => {
@@ -57,7 +58,7 @@ describe('level store', () => {
     const st = new LevelStore(join(dir, 'a-file', 'levels'));
     st.addSecond({ utcMs: T0, sampleIndex: 0, sector: 'gate', weighting: 'Z', unit: 'dBFS', leqDb: -1, coverage: 1 });
     await st.flushed();
-    expect(st.counters.writeErrors).toBe(1);
+    expect(st.counters.writeErrors).toBeGreaterThanOrEqual(1); // one per batch of lines that failed
     expect(st.counters.lastError).not.toContain(dir);
     expect(st.counters.lastError).toMatch(/ENOTDIR|EEXIST/);
   });
