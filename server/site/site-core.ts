@@ -3,8 +3,12 @@
  * the site clock at receipt), windows out. Every message is parsed by shared/site.ts; a malformed
  * one, one for another site, or one whose subject names another node than its body (foreign) is
  * counted by reason and ignored. Status messages feed the node registry; peak messages of a node
- * that is online and has a pose become bearings (the injected `toBearings`) at the peak's UTC
- * corrected by the node's clock offset, collected per window (site-windows.ts). When a window
+ * that is online and has a pose become bearings (the injected `toBearings`) at the peak's UTC (less
+ * the estimate's mean age), collected per window (site-windows.ts). The node's measured clock
+ * offset is shown and flagged, and applied only with `applyClockOffset`: it is an upper bound
+ * (receive − send includes every delay), and on a busy service it read hundreds of milliseconds
+ * for edges whose clocks agreed, which moved a 2 m/s source's bearings by a metre and more against
+ * the other arrays' (edges must run NTP or PTP; their clocks are trusted). When a window
  * closes, the injected locator and tracker run on its bearings and the result is kept (the last
  * `keepWindows`, 120) and handed to `onWindow`.
  *
@@ -53,6 +57,8 @@ export interface SiteCoreOptions {
   windowS: number;
   offlineAfterS: number;
   graceS?: number;
+  /** Move peak times by the node's measured clock offset (default false: shown and flagged only). */
+  applyClockOffset?: boolean;
   maxNodes?: number;
   keepWindows?: number;
   speedOfSoundMps?: number;
@@ -108,7 +114,7 @@ export class SiteCore {
       const pose = this.registry.usablePose(msg.node);
       if (!pose) return this.#count(this.registry.state(msg.node) === 'offline' ? 'offlineNode' : 'noPose', 'peaksUnused');
       // The bearings' time: the row's UTC on the site clock, less the mean age of the estimate.
-      const utcMs = msg.utcMs - (msg.ageMs ?? 0) + (this.registry.clockOffsetMs(msg.node) ?? 0);
+      const utcMs = msg.utcMs - (msg.ageMs ?? 0) + (this.#o.applyClockOffset ? (this.registry.clockOffsetMs(msg.node) ?? 0) : 0);
       const bearings = this.#o.toBearings({ ...msg, utcMs }, pose);
       const r = this.windows.add(msg.node, utcMs, bearings, now);
       if (typeof r !== 'number') this.#count(r, 'dropped');

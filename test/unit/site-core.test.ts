@@ -197,15 +197,22 @@ describe('site core: messages in, windows out', () => {
     expect(core.counters.windows).toBe(1);
   });
 
-  it('corrects peak times by the node clock offset before windowing', () => {
+  it('moves peak times by the node clock offset only with applyClockOffset (by default it is shown, not applied)', () => {
     const { core, set } = make();
-    // The edge's clock runs 400 ms behind the site's: its peak at edge time T0 + 300 is site time T0 + 700 (window k0 + 1).
+    // The edge's clock reads 400 ms behind the site's (or its status took 400 ms): shown, peaks left at their own UTC.
     core.handle(siteSubject('yard', 'a', 'status'), enc(status('a', T0 - 400)));
     core.handle(siteSubject('yard', 'a', 'peaks'), enc(peaks('a', T0 + 300)));
-    set(T0 + 1300);
-    const out = core.tick();
+    expect(core.registry.clockOffsetMs('a')).toBe(400);
+    set(T0 + 800);
     const k0 = T0 / 500;
-    expect(out.find((w) => w.index === k0 + 1)?.bearingCount).toBe(1);
+    expect(core.tick().find((w) => w.index === k0)?.bearingCount).toBe(1);
+    // Applied: the peak at edge time T0 + 300 is site time T0 + 700 (window k0 + 1).
+    let now = T0;
+    const applied = new SiteCore({ site: 'yard', windowS: 0.5, offlineAfterS: 3, graceS: 0.3, applyClockOffset: true, locate, tracker, toBearings, nowMs: () => now });
+    applied.handle(siteSubject('yard', 'a', 'status'), enc(status('a', T0 - 400)));
+    applied.handle(siteSubject('yard', 'a', 'peaks'), enc(peaks('a', T0 + 300)));
+    now = T0 + 1300;
+    expect(applied.tick().find((w) => w.index === k0 + 1)?.bearingCount).toBe(1);
   });
 
   it('takes the bearings at the row\'s UTC less the mean age of the estimate (ageMs)', () => {
