@@ -28,8 +28,9 @@
  * reported. A candidate of two arrays is refused as a ghost when another array that heard
  * something this window has the position within range, would have heard a source there at least
  * as loud as the weakest direction it reported (the louder of the pair's levels at 1 m less
- * 20·log10 of its range), and lends no bearing, unless a track predicts a source there (χ² 2-dof
- * gate, 99 %); a candidate of three or more when more such silent arrays contradict it than
+ * 20·log10 of its range), and lends no bearing, unless a track once fixed by three or more arrays
+ * predicts a source there (χ² 2-dof gate, 99 %; a track born of a ghost while an array was still
+ * silent would otherwise keep itself alive on ghost crossings); a candidate of three or more when more such silent arrays contradict it than
  * support it. With two arrays only a crossing is kept and flagged `ambiguous` when either array
  * heard more than one source.
  *
@@ -116,6 +117,8 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
   const c = opts.speedOfSoundMps;
   const tWin = opts.windowUtcMs;
   const hints = (opts.hints ?? []).filter((h) => [h.xM, h.yM, h.vxMps, h.vyMps, h.speedSigmaMps, ...h.covXY].every(Number.isFinite));
+  // Tracks that vouch for a crossing against the ghost rules: those once fixed by three or more arrays.
+  const vouching = hints.filter((h) => h.verified !== false);
   const good = bearingsIn.filter((b) => b && Number.isFinite(b.azimuthDeg) && Number.isFinite(b.sigmaDeg) && b.sigmaDeg > 0 && Number.isFinite(b.utcMs) && Number.isFinite(b.levelDb) && (b.elevationDeg === null || Number.isFinite(b.elevationDeg)) && Array.isArray(b.originM) && b.originM.length === 3 && b.originM.every(Number.isFinite));
   // At most MAX_SITE_PEAKS directions per node, the strongest (the pairs grow with their square).
   const kept = new Map<string, number>();
@@ -211,8 +214,8 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     // A lone pair that another array would refuse (below) is dropped before its fit: most pairs of
     // a busy window are such ghosts, and the fits are the cost.
     const pairLevel1mDb = Math.max(A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)), B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M)));
-    if (members.length === 2 && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y, pairLevel1mDb)) return null;
-    if (members.length >= 3 && members.length < nodeNames.length - members.length && hintDistance2(hints, x, y, pairCov) > TRACK_GATE_CHI2 && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, (A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)) + B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M))) / 2) > members.length) return null;
+    if (members.length === 2 && hintDistance2(vouching, x, y, pairCov) > TRACK_GATE_CHI2 && refusedByOthers(A.node, B.node, x, y, pairLevel1mDb)) return null;
+    if (members.length >= 3 && members.length < nodeNames.length - members.length && hintDistance2(vouching, x, y, pairCov) > TRACK_GATE_CHI2 && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, (A.b.levelDb + 20 * Math.log10(Math.max(t, MIN_RANGE_M)) + B.b.levelDb + 20 * Math.log10(Math.max(s, MIN_RANGE_M))) / 2) > members.length) return null;
     let fitted = fitMembers(work, members, x, y, vx, vy, tWin, c, hint !== null, false);
     if (!fitted) return null;
     // The supporters were lent at the pair's crossing; at the fit of all of them each node's
@@ -262,8 +265,9 @@ export const locateWindow: LocateWindow = (bearingsIn, opts) => {
     // Score: χ² of the misses plus the spread of the levels at 1 m.
     const levels = members.map((m, q) => work[m].b.levelDb + 20 * Math.log10(Math.max(fitted.ranges[q], MIN_RANGE_M)));
     const meanL = levels.reduce((p, v) => p + v, 0) / nodes;
-    if (nodes === 2 && !hinted && refusedByOthers(A.node, B.node, x, y, Math.max(...levels))) return null;
-    if (nodes >= 3 && !hinted && nodes < nodeNames.length - nodes && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, meanL) > nodes) return null;
+    const vouched = hintDistance2(vouching, x, y, fitted.fix.covXY) <= TRACK_GATE_CHI2;
+    if (nodes === 2 && !vouched && refusedByOthers(A.node, B.node, x, y, Math.max(...levels))) return null;
+    if (nodes >= 3 && !vouched && nodes < nodeNames.length - nodes && silentWitnesses(new Set(members.map((m) => work[m].node)), x, y, meanL) > nodes) return null;
     const spread = levels.reduce((p, v) => p + ((v - meanL) / LEVEL_SIGMA_DB) ** 2, 0);
     return { seed: [i, j], members, fix: fitted.fix, atUtcMs: fitted.atUtcMs, nodes, score: fitted.fix.chi2 + spread + (hints.length > 0 ? Math.min(hintD2, HINT_SCORE_CAP) : 0), hinted, ranges: fitted.ranges, vx, vy, moving: hint !== null, alternates: [] };
   };

@@ -68,6 +68,8 @@ interface Track {
   ageWindows: number;
   hits: number;
   misses: number;
+  /** The most arrays of any fix the track took. */
+  maxNodes: number;
   last: LocatedSource | null;
   history: [number, number, number][];
 }
@@ -107,7 +109,7 @@ export class ConstantVelocityTracker implements SourceTracker {
     return this.#tracks.map((t) => {
       const s = new Float64Array(t.s), P = new Float64Array(t.P);
       predictState(s, P, dt, this.#opts.accelSigmaMps2);
-      return { id: t.id, xM: s[0], yM: s[1], vxMps: s[2], vyMps: s[3], covXY: [P[0], P[1], P[5]], speedSigmaMps: Math.sqrt(Math.max(P[10], P[15])) };
+      return { id: t.id, xM: s[0], yM: s[1], vxMps: s[2], vyMps: s[3], covXY: [P[0], P[1], P[5]], speedSigmaMps: Math.sqrt(Math.max(P[10], P[15])), verified: t.maxNodes >= 3 };
     });
   }
 
@@ -175,6 +177,7 @@ export class ConstantVelocityTracker implements SourceTracker {
       }
       correct(t, fixes[p.f], windowUtcMs);
       t.hits++;
+      t.maxNodes = Math.max(t.maxNodes, fixes[p.f].nodes.length);
       t.misses = 0;
       t.last = fixes[p.f];
       t.history.push([windowUtcMs, t.s[0], t.s[1]]);
@@ -321,5 +324,5 @@ function startTrack(id: string, fix: LocatedSource, windowUtcMs: number): Track 
   const P = new Float64Array(16);
   P[0] = fix.covXY[0] + f2; P[1] = fix.covXY[1]; P[4] = fix.covXY[1]; P[5] = fix.covXY[2] + f2;
   P[10] = v2; P[15] = v2;
-  return { id, s: new Float64Array([fix.xM, fix.yM, 0, 0]), P, ageWindows: 1, hits: 1, misses: 0, last: fix, history: [[windowUtcMs, fix.xM, fix.yM]] };
+  return { id, s: new Float64Array([fix.xM, fix.yM, 0, 0]), P, ageWindows: 1, hits: 1, misses: 0, maxNodes: fix.nodes.length, last: fix, history: [[windowUtcMs, fix.xM, fix.yM]] };
 }

@@ -79,6 +79,12 @@ export interface TrackHint {
   covXY: [number, number, number];
   /** Standard deviation of the velocity (the larger axis), m/s: a young track's is too loose to place bearings with. */
   speedSigmaMps: number;
+  /**
+   * The track has taken a fix of three or more arrays (absent: taken as true). Only such a track
+   * vouches for a two-array crossing near it against the ghost rule (locate.ts): a track born of a
+   * ghost while an array was still silent would otherwise keep itself alive on ghost crossings.
+   */
+  verified?: boolean;
 }
 
 /** Locate the sources of one window from the bearings of every node that has a pose. */

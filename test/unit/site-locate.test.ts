@@ -257,6 +257,24 @@ describe('association across arrays', () => {
     expect(located.filter((s) => s.nodes.length === 23)).toHaveLength(1);
   });
 
+  it('a two-array crossing the third array would have heard is a ghost; only a track once fixed by three arrays vouches for it', () => {
+    const deg = (dx: number, dy: number) => (Math.atan2(dy, dx) * 180) / Math.PI;
+    // A source at (30, 20) heard by a (0, 0) and b (60, 0); c (30, 50) hears only a weak source elsewhere,
+    // yet would have heard one at (30, 20): 1.1 dB at 1 m less 29.5 dB is −28.4 dBFS, over its weakest −50.
+    const bs: Bearing[] = [
+      bearing('a', 0, 0, deg(30, 20), { levelDb: -30, sigmaDeg: 1 }),
+      bearing('b', 60, 0, deg(-30, 20), { levelDb: -30, sigmaDeg: 1 }),
+      bearing('c', 30, 50, deg(-30, 10), { levelDb: -50, sigmaDeg: 1 }),
+    ];
+    const hint = (verified: boolean): TrackHint => ({ id: 's1', xM: 30, yM: 20, vxMps: 0, vyMps: 0, covXY: [0.25, 0, 0.25], speedSigmaMps: 0.1, verified });
+    const near = (l: ReturnType<typeof locateWindow>) => l.filter((x) => Math.hypot(x.xM - 30, x.yM - 20) < 1).length;
+    expect(near(locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0 }))).toBe(0);
+    // A track born of such a crossing while c was silent does not keep it alive…
+    expect(near(locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0, hints: [hint(false)] }))).toBe(0);
+    // …one that was once fixed by three arrays (a source c now hears under a louder one) does.
+    expect(near(locateWindow(bs, { speedOfSoundMps: C, windowUtcMs: T0, hints: [hint(true)] }))).toBe(1);
+  });
+
   it('two arrays, two sources: both fixes flagged ambiguous; the level at 1 m picks the consistent pairing', () => {
     const two = THREE.slice(0, 2);
     const src = [still('p', 20, 30, 90), still('q', 42, 22, 76)];
