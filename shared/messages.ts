@@ -351,27 +351,30 @@ export interface StatusMessage {
   status: Record<string, unknown>;
 }
 
-/** A monitoring event started, changed or ended (server/monitor/events.ts; indicative levels). */
+/** A monitoring event (server/monitor/events.ts; indicative levels): what the live message, the REST API and the webhooks carry. */
+export interface MonitorEvent {
+  id: string;
+  rule: string;
+  sector: string;
+  state: 'active' | 'ended';
+  startSample: number;
+  endSample: number | null;
+  startUtc: string;
+  endUtc: string | null;
+  peakDb: number;
+  leqDb: number;
+  azimuthDeg: number | null;
+  elevationDeg: number | null;
+  thresholdDb: number;
+  unit: 'dBFS' | 'dB SPL';
+  clips: string[];
+}
+
+/** A monitoring event started, changed or ended. */
 export interface EventMessage {
   type: 'event';
   change: 'started' | 'updated' | 'ended';
-  event: {
-    id: string;
-    rule: string;
-    sector: string;
-    state: 'active' | 'ended';
-    startSample: number;
-    endSample: number | null;
-    startUtc: string;
-    endUtc: string | null;
-    peakDb: number;
-    leqDb: number;
-    azimuthDeg: number | null;
-    elevationDeg: number | null;
-    thresholdDb: number;
-    unit: string;
-    clips: string[];
-  };
+  event: MonitorEvent;
 }
 
 export type ServerMessage = HelloMessage | ParamsMessage | StatusMessage | EventMessage;

@@ -11,6 +11,7 @@
  */
 import { appendFile, mkdir } from 'node:fs/promises';
 import { join } from 'node:path';
+import type { MonitorEvent } from '../../shared/messages.ts';
 import type { Rule } from '../../shared/rules.ts';
 import { fsErrorText } from '../io/disk-space.ts';
 import { EventDetector, type EventChange } from './event-detector.ts';
@@ -18,23 +19,7 @@ import { EventDetector, type EventChange } from './event-detector.ts';
 export const MAX_RECENT = 1000;
 export const MAX_PENDING_LINES = 10_000;
 
-export interface MonitorEvent {
-  id: string;
-  rule: string;
-  sector: string;
-  state: 'active' | 'ended';
-  startSample: number;
-  endSample: number | null;
-  startUtc: string;
-  endUtc: string | null;
-  peakDb: number;
-  leqDb: number;
-  azimuthDeg: number | null;
-  elevationDeg: number | null;
-  thresholdDb: number;
-  unit: 'dBFS' | 'dB SPL';
-  clips: string[];
-}
+export type { MonitorEvent };
 
 export interface EventCounters {
   started: number;
