@@ -25,18 +25,16 @@ import { EventMonitor, type MonitorEvent } from '../../server/monitor/events.ts'
 import { RawRing } from '../../server/monitor/pre-trigger.ts';
 import { Monitor } from '../../server/monitor/monitor.ts';
 import { validateRule } from '../../shared/rules.ts';
-import type { ArrayGeometry } from '../../shared/types.ts';
 import { TestRandom } from '../helpers/random.ts';
+import { LINE_C, LINE_FS, LINE_M, LINE_N, lineBlock, lineGeometry, lineParams } from '../helpers/line-scene.ts';
 import { waitFor } from '../helpers/service.ts';
 
-const FS = 48_000, C = 343.2, M = 8, N = 512;
-const SPACING = (3 * C) / FS;
+const FS = LINE_FS, C = LINE_C, M = LINE_M, N = LINE_N;
 const SECONDS = 24;
 const ON = 12 * FS + 7_777, OFF = ON + 4 * FS;
 
 describe('events from a sector on the engine', () => {
   it('a broadside source on for 4 s beside a louder endfire interferer: one event, start and end within ±0.25 s, direction within ±2°', async () => {
-    const geometry: ArrayGeometry = { name: 'line-8-test', positions: Array.from({ length: M }, (_, m) => [m * SPACING, 0, 0] as [number, number, number]) };
     const rng = new TestRandom(33);
     const total = SECONDS * FS;
     const s = new Float32Array(total), i = new Float32Array(total + 3 * M);
@@ -47,9 +45,9 @@ describe('events from a sector on the engine', () => {
     let events: EventMonitor | null = null;
     let clips: ClipRecorder | null = null;
     const engine = await Engine.create({
-      geometry,
+      geometry: lineGeometry(),
       sampleRateHz: FS,
-      params: { lambda: 1 - 256 / (FS * 0.5), loading: { mode: 'relative', ratio: 0.01 }, bandHz: [300, 4000], grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 2 } }, methods: ['mvdr', 'conventional'], spectrumRateHz: 10, normalise: false, fftSize: N },
+      params: lineParams(),
       workers: 1,
       speedOfSoundMps: C,
       onRow: (row) => monitor?.row(row),
@@ -95,11 +93,10 @@ describe('events from a sector on the engine', () => {
       for (let k = 0; k * frames < total; k++) {
         // Rules apply once the covariance has settled (after 3 s, 6 τ).
         if (k * frames === 3 * FS) events.setRules([rule!]);
-        const data = new Float32Array(M * frames);
-        for (let m = 0; m < M; m++) for (let n = 0; n < frames; n++) data[m * frames + n] = s[k * frames + n] + i[k * frames + n + 3 * m] + 0.0005 * rng.gaussian();
-        ring.push(data, frames, k * frames);
-        clips.rawBlock(k * frames, frames, data);
-        await engine.pushAsync({ streamId: 1, sampleIndex: k * frames, sampleRateHz: FS, channels: M, frames, data, gap: false, discontinuity: false });
+        const block = lineBlock(k, frames, s, i, () => 0.0005 * rng.gaussian());
+        ring.push(block.data, frames, k * frames);
+        clips.rawBlock(k * frames, frames, block.data);
+        await engine.pushAsync(block);
         gateLevels.push({ k: k * frames, db: mon.store.seconds('gate').at(-1)?.leqDb ?? NaN });
       }
       await engine.drain();

@@ -14,19 +14,14 @@ import { MultiChannelStft } from '../../server/dsp/stft.ts';
 import { Engine } from '../../server/engine/engine.ts';
 import { WeightedBandPower } from '../../server/monitor/weighted-band-power.ts';
 import { SectorMeters, type LevelSink } from '../../server/monitor/sector-meters.ts';
-import type { ArrayGeometry } from '../../shared/types.ts';
 import { TestRandom } from '../helpers/random.ts';
+import { LINE_C, LINE_FS, LINE_M, LINE_N, lineBlock, lineGeometry, lineParams } from '../helpers/line-scene.ts';
 
-const FS = 48_000;
-const C = 343.2;
-const M = 8;
-const SPACING = (3 * C) / FS;
-const N = 512;
+const FS = LINE_FS, C = LINE_C, M = LINE_M, N = LINE_N;
 const SECONDS = 8;
 
 describe('sector levels on the engine: a beam per sector, metered every hop', () => {
   it('broadside source and a 9.5 dB louder endfire interferer: each sector reads its own source within 1 dB, the omni level their sum', async () => {
-    const geometry: ArrayGeometry = { name: 'line-8-test', positions: Array.from({ length: M }, (_, m) => [m * SPACING, 0, 0] as [number, number, number]) };
     const rng = new TestRandom(21);
     const total = SECONDS * FS;
     const s = new Float32Array(total), i = new Float32Array(total + 3 * M);
@@ -40,9 +35,9 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
     };
     let meters: SectorMeters | null = null;
     const engine = await Engine.create({
-      geometry,
+      geometry: lineGeometry(),
       sampleRateHz: FS,
-      params: { lambda: 1 - 256 / (FS * 0.5), loading: { mode: 'relative', ratio: 0.01 }, bandHz: [300, 4000], grid: { azimuthDeg: { startDeg: 0, stopDeg: 180, stepDeg: 2 } }, methods: ['mvdr', 'conventional'], spectrumRateHz: 10, normalise: false, fftSize: N },
+      params: lineParams(),
       workers: 1,
       speedOfSoundMps: C,
       onRow: (row) => meters?.row(row),
@@ -58,9 +53,7 @@ describe('sector levels on the engine: a beam per sector, metered every hop', ()
       expect(engine.beams).toHaveLength(2);
       const frames = 4800;
       for (let k = 0; k * frames < total; k++) {
-        const data = new Float32Array(M * frames);
-        for (let m = 0; m < M; m++) for (let n = 0; n < frames; n++) data[m * frames + n] = s[k * frames + n] + i[k * frames + n + 3 * m];
-        await engine.pushAsync({ streamId: 1, sampleIndex: k * frames, sampleRateHz: FS, channels: M, frames, data, gap: false, discontinuity: false });
+        await engine.pushAsync(lineBlock(k, frames, s, i));
       }
       await engine.drain();
       const st = meters.status();
