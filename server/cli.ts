@@ -10,9 +10,10 @@ commands:
   simulate write the built-in scene as heard by an array to a WAV file
   listen  write one beam's live audio to standard output (float32, for aplay or sox)
   site    run a site's service: fuse the arrays' bearings into positions, serve the site page
+  worker  serve bin ranges of large arrays for engines on a NATS broker
 run \`nullsteer <command> --help\` for a command's options.`;
 
-const COMMANDS = ['serve', 'send', 'analyze', 'simulate', 'listen', 'site'];
+const COMMANDS = ['serve', 'send', 'analyze', 'simulate', 'listen', 'site', 'worker'];
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
@@ -38,6 +39,10 @@ export async function main(argv: string[]): Promise<number> {
     case 'site': {
       const { siteCommand } = await import('./tools/site.ts');
       return siteCommand(rest);
+    }
+    case 'worker': {
+      const { workerCommand } = await import('./tools/worker.ts');
+      return workerCommand(rest);
     }
     case undefined:
     case '-h':

@@ -58,6 +58,7 @@ import { updateArrayFile } from './config/array-file-update.ts';
 import { memberDelaysUs } from './ingest/group.ts';
 import { encodeRow } from '../shared/messages.ts';
 import { clusterOff, dashboardUrl, EdgePublisher } from './cluster/edge-publisher.ts';
+import { RemoteBins } from './cluster/remote-bins.ts';
 import { ServiceMetrics } from './monitor/metrics.ts';
 import { Monitor } from './monitor/monitor.ts';
 import { EventMonitor, type MonitorEvent } from './monitor/events.ts';
@@ -287,11 +288,15 @@ export async function startService(loaded: LoadedConfig, opts: ServiceOptions = 
   // Levels per direction (server/monitor/monitor.ts): made once the engine exists; rows and hop snapshots feed it.
   let monitor: Monitor | null = null;
   let clipsRef: ClipRecorder | null = null;
+  // Remote bin workers on the broker (issue 17, server/cluster/remote-bins.ts): connects in the background.
+  if (config.engine.remoteWorkers && !config.cluster.natsUrl) throw new ConfigError([{ path: 'engine.remoteWorkers', value: true, message: 'engine.remoteWorkers: needs cluster.natsUrl (the broker the workers are on)' }]);
+  const remote = config.engine.remoteWorkers && config.cluster.natsUrl ? RemoteBins.start({ natsUrl: config.cluster.natsUrl, token: config.cluster.token, deadlineMs: config.engine.remoteDeadlineMs, dropMs: config.engine.remoteDropMs, log: (l) => void (engineErrors.push(publicText(l)), engineErrors.length > 20 && engineErrors.shift()) }) : undefined;
   engine = await Engine.create({
     geometry,
     sampleRateHz: fs,
     params: initial,
     workers,
+    ...(remote ? { remote } : {}),
     budget,
     speedOfSoundMps: config.engine.speedOfSoundMps,
     onRow: (row) => {

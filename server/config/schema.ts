@@ -147,6 +147,9 @@ export const CONFIG_SCHEMA: FieldSpec = {
         fftSize: { kind: 'enum', values: ['256', '512', '1024', '2048', '4096'], doc: 'STFT size N (hop N/2), as a string.' },
         speedOfSoundMps: { kind: 'number', min: 200, max: 2000, doc: 'Speed of sound for steering, m/s (343.2 at 20 °C).' },
         maxPlanMiB: { kind: 'int', min: 16, max: 1048576, doc: 'Memory the processing plans may take, main and comparison chain together (steering tables and their fast-kernel copies, snapshot ring, results), MiB. A change needing more is refused with 422 before anything is built; at start the server exits with this field named.' },
+        remoteWorkers: { kind: 'bool', doc: 'true: the band\'s bins are shared between the local threads and the remote bin workers (`nullsteer worker`) on the broker cluster.natsUrl, in proportion to their measured throughput (README "Large arrays"). Needs cluster.natsUrl.' },
+        remoteDeadlineMs: { kind: 'int', min: 20, max: 10000, doc: 'How long a row waits for the remote workers\' parts once the local threads have theirs, ms; then it goes out marked partial (counted).' },
+        remoteDropMs: { kind: 'int', min: 200, max: 60000, doc: 'A remote worker whose part has been missing past the deadline for this long is dropped and its bins re-planned over the others, ms.' },
       },
     },
     processing: {
@@ -269,7 +272,7 @@ export interface Config {
     groupHoldMs: number;
     rtp: { sessions: { name: string; sdp: string }[]; host: string | null; jitterMs: number; receiveBufferBytes: number; queueBytes: number };
   };
-  engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number };
+  engine: { workers: number; fftSize: '256' | '512' | '1024' | '2048' | '4096'; speedOfSoundMps: number; maxPlanMiB: number; remoteWorkers: boolean; remoteDeadlineMs: number; remoteDropMs: number };
   processing: { tauS: number; bandLowHz: number; bandHighHz: number; loadingRatio: number; spectrumRateHz: number; azimuthStepDeg: number };
   hub: { path: string; maxClients: number; maxBufferedBytes: number; queueRows: number; slowClientTimeoutMs: number };
   outputs: { dir: string; streamUdpTarget: string | null; streamId: number; streamPath: string; streamMaxClients: number; streamQueueFrames: number; minFreeBytes: number; retention: RetentionLimits };

@@ -5,7 +5,6 @@
  * after reporting, and the pool replaces it.
  */
 import { parentPort } from 'node:worker_threads';
-import type { LoadingSpec } from '../dsp/loading.ts';
 import { BinProcessor } from './bin-processor.ts';
 import {
   CTRL_DONE,
@@ -15,13 +14,9 @@ import {
   MAX_BEAMS,
   resultStride,
   type BeamSpec,
-  LOAD_FIXED,
-  LOAD_RELATIVE,
+  loadingAt,
   META_FLAGS,
   META_LAMBDA,
-  META_LOAD_A,
-  META_LOAD_B,
-  META_LOAD_MODE,
   META_SCAN_SEQ,
   META_STRIDE,
   RESULT_SLOTS,
@@ -98,13 +93,6 @@ async function build(plan: PlanMessage): Promise<State> {
   proc.setMask(plan.active);
   const ctrl = new Int32Array(plan.ctrl);
   return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, beamOut, weightOut, beams: plan.beams, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
-}
-
-function loadingAt(meta: Float64Array, o: number): LoadingSpec {
-  const mode = meta[o + META_LOAD_MODE];
-  if (mode === LOAD_RELATIVE) return { mode: 'relative', ratio: meta[o + META_LOAD_A] };
-  if (mode === LOAD_FIXED) return { mode: 'fixed', delta: meta[o + META_LOAD_A] };
-  return { mode: 'wng', floorDb: meta[o + META_LOAD_A], maxRatio: meta[o + META_LOAD_B] };
 }
 
 /** Process one published hop. */

@@ -8,10 +8,9 @@
  * their work in the order of DESIGN.md §4; a full ring never blocks ingest: the hop is skipped and
  * counted (the forced form of covariance decimation).
  */
-import type { RowPeak, SpectrumRow } from '../../shared/messages.ts';
+import type { SpectrumRow } from '../../shared/messages.ts';
 import type { ArrayGeometry, Block } from '../../shared/types.ts';
 import { ChannelCorrection } from '../dsp/calibration.ts';
-import { PeakFinder } from '../dsp/peaks.ts';
 import { bandBinsOf, MultiChannelStft } from '../dsp/stft.ts';
 import { directionGrid, type DirectionGrid } from '../dsp/steering.ts';
 import { SCAN_CONVENTIONAL, SCAN_MVDR, SCAN_NORMALISE } from './bin-processor.ts';
@@ -20,32 +19,14 @@ import { PlanError, planCost, planFields, RING_SLOTS, type PlanBudget, type Plan
 import { BeamAudio, type BeamAudioHop } from './beam-audio.ts';
 import { BeamSet, type BeamState } from './beam-set.ts';
 import { BinPool } from './pool.ts';
-import { gridMessage, layoutPlan, type Plan } from './plan-layout.ts';
-import {
-  CTRL_DONE,
-  CTRL_WRITE,
-  FLAG_BEAMS,
-  FLAG_RESET,
-  MAX_BEAMS,
-  resultStride,
-  LOAD_FIXED,
-  LOAD_RELATIVE,
-  LOAD_WNG,
-  META_FLAGS,
-  META_LAMBDA,
-  META_LOAD_A,
-  META_LOAD_B,
-  META_LOAD_MODE,
-  META_SAMPLE,
-  META_SCAN_SEQ,
-  META_STRIDE,
-  RESULT_SLOTS,
-  STATS_STRIDE,
-  STAT_NON_FINITE,
-  STAT_RESTARTS,
-  STAT_SINGULAR,
-  type FromWorker,
-} from './protocol.ts';
+import { coarserGrid as coarser, gridMessage, peakFinderFor, type Plan } from './plan-layout.ts';
+import { percentiles, slowestDone, slowestWorker, workerFigures } from './plan-progress.ts';
+import { combineSpectrum } from './row-combiner.ts';
+import { acceptRemotePart, commitRemote, preparePlan } from './remote-parts.ts';
+import type { RemoteBins } from '../cluster/remote-bins.ts';
+import type { Part } from '../cluster/remote-wire.ts';
+import { publicText } from '../public-text.ts';
+import { CTRL_DONE, CTRL_WRITE, FLAG_BEAMS, FLAG_RESET, MAX_BEAMS, META_FLAGS, META_LAMBDA, META_SAMPLE, META_SCAN_SEQ, META_STRIDE, RESULT_SLOTS, resultStride, STATS_STRIDE, writeLoadingMeta, type FromWorker } from './protocol.ts';
 import { DEFAULT_SHED_POLICY, LoadShedder, shedEffect, type ShedPolicy } from './shedding.ts';
 
 export { RING_SLOTS };
@@ -54,6 +35,8 @@ export const PLAN_TIMEOUT_MS = 20_000;
 const LATENCY_HISTORY = 2048;
 /** How many covariance restarts status() lists. */
 const RESTART_LOG = 16;
+/** A remote worker that joins is taken into the plan at most this often (a re-plan restarts every bin's covariance). */
+export const JOIN_REPLAN_MS = 3000;
 
 /** One replaced worker's bins, restarted from an empty covariance at `sampleIndex` (status). */
 export interface CovarianceRestart {
@@ -63,6 +46,8 @@ export interface CovarianceRestart {
   /** One past the last sample of the latest hop published before the restart (-1: none yet). */
   sampleIndex: number;
   at: string;
+  /** Why, when not a replaced local thread (worker −1: the whole band, re-planned). */
+  reason?: string;
 }
 /**
  * A row as the engine emits it: the dashboard's SpectrumRow (shared/messages.ts) with the dB spectra
@@ -74,6 +59,24 @@ export interface EngineRow extends SpectrumRow {
   mvdrPower: Float64Array | null;
   /** Last sample of the hop handed to the engine → row ready, ms. */
   latencyMs: number;
+  /** Some bins are missing: a remote part did not answer by the deadline (counted in status). */
+  partial: boolean;
+}
+
+/** A scan requested and not yet emitted. */
+interface PendingScan {
+  count: number;
+  /** Per part: 1 once its share is in the result slot. */
+  got: Uint8Array;
+  arrivalMs: number;
+  /** When the hop that asked for it was published (the remote deadline runs from here). */
+  requestMs: number;
+  sampleIndex: number;
+  flags: number;
+  scanMs: number;
+  due: number[];
+  beamIds: number[];
+  directions: number;
 }
 
 export interface EngineOptions {
@@ -98,6 +101,11 @@ export interface EngineOptions {
    * (PlanError) before it is built. Absent: no budget (offline tools), only the workers' own caps.
    */
   budget?: PlanBudget;
+  /**
+   * Remote bin workers on a broker (server/cluster/remote-bins.ts), connected by the caller; the
+   * engine owns it from here (closes it). Absent: local threads only.
+   */
+  remote?: RemoteBins;
   /** Deadline for the workers to build a new plan, ms (default PLAN_TIMEOUT_MS). */
   planTimeoutMs?: number;
   /** false disables load shedding (benchmarks measure the unshed engine). */
@@ -106,12 +114,6 @@ export interface EngineOptions {
   maxPeaks?: number;
 }
 
-
-function coarser(spec: ProcessingParams['grid'], k: number): ProcessingParams['grid'] {
-  if (k === 1) return spec;
-  const c = (r: { startDeg: number; stopDeg: number; stepDeg: number }) => ({ startDeg: r.startDeg, stopDeg: r.stopDeg, stepDeg: r.stepDeg * k });
-  return spec.elevationDeg ? { azimuthDeg: c(spec.azimuthDeg), elevationDeg: c(spec.elevationDeg) } : { azimuthDeg: c(spec.azimuthDeg) };
-}
 
 export class Engine {
   readonly opts: EngineOptions;
@@ -128,7 +130,7 @@ export class Engine {
   #lastWindowMs = performance.now();
   #nextScanSample = -1;
   #scanSeq = 0;
-  #pending = new Map<number, { count: number; arrivalMs: number; sampleIndex: number; flags: number; scanMs: number; due: number[] }>();
+  #pending = new Map<number, PendingScan>();
   #dueBeams: number[] = [];
   #pendingReset = false;
   #decimCounter = 0;
@@ -172,10 +174,13 @@ export class Engine {
     this.#active = Array(this.channels).fill(true);
     this.#shedder = new LoadShedder(opts.shedPolicy ?? DEFAULT_SHED_POLICY, () => this.#lastHopEnd);
     const size = Math.max(1, Math.min(opts.workers, this.#bandBins(opts.params).count));
+    this.#remote = opts.remote ?? null;
+    this.#remote?.attach({ onPart: (part) => this.#onRemotePart(part), onMembership: (reason, lost) => this.#onMembership(reason, lost) });
     this.#pool = new BinPool(size, {
       onScanned: (m) => this.#onScanned(m),
       onError: (i, message, replaced) => {
-        if (replaced) this.#noteRestart(i);
+        const r = replaced ? this.#plan?.ranges[i] : undefined;
+        if (r) this.#noteRestart({ worker: i, firstBin: this.#plan.startBin + r.start, bins: r.count });
         opts.onError?.(`bin worker ${i} ${replaced ? 'failed and was replaced' : 'reported an error'}: ${message.split('\n')[0]}`);
       },
     });
@@ -184,10 +189,17 @@ export class Engine {
   static async create(opts: EngineOptions): Promise<Engine> {
     const e = new Engine(opts);
     try {
-      await e.#replan(opts.params);
+      // Held as the re-plan in progress: a remote worker joining meanwhile waits for it.
+      await (e.#replanning = e.#replan(opts.params));
+      e.#replanning = null;
     } catch (err) {
       await e.#pool.close();
+      await e.#remote?.close();
       throw err;
+    }
+    if (e.#remote) {
+      e.#deadlineTimer = setInterval(() => e.#checkDeadlines(), 20);
+      e.#deadlineTimer.unref();
     }
     if (opts.shedding !== false) {
       e.#shedTimer = setInterval(() => e.#shedTick(), e.#shedder.policy.windowMs);
@@ -233,7 +245,7 @@ export class Engine {
    * size brings its own front end, installed at the same moment). On any failure nothing changes.
    * @throws PlanError (too large, refused by a worker, not built in time), ParamError (no bin in the band)
    */
-  async #replan(p: ProcessingParams): Promise<void> {
+  async #replan(p: ProcessingParams, reason?: string): Promise<void> {
     const fs = this.opts.sampleRateHz;
     const M = this.channels;
     const band = bandBinsOf(p.fftSize, p.bandHz[0], p.bandHz[1], fs);
@@ -248,28 +260,15 @@ export class Engine {
     if (!stft.accelerated) await stft.accelerate();
     const coarsening = shedEffect(this.#shedder.step).gridCoarsening;
     const grid = directionGrid(coarser(p.grid, coarsening));
-    const epoch = ++this.#epoch;
-    const { plan, messages: plans } = layoutPlan({
-      epoch,
-      band,
-      fftSize: stft.fftSize,
-      sampleRateHz: fs,
-      workers: this.#pool.size,
-      positions: this.opts.geometry.positions,
-      grid,
-      baseGrid,
-      speedOfSoundMps: this.opts.speedOfSoundMps,
-      active: this.#active,
-      fast,
-      beams: this.#beams.specs(grid),
-      finder: this.#finder(grid, p),
-    });
-    const W = plan.ranges.length;
+    let built: Awaited<ReturnType<typeof preparePlan>>;
     try {
-      await this.#pool.prepare(plans, this.opts.planTimeoutMs ?? PLAN_TIMEOUT_MS);
+      const input = { band, fftSize: stft.fftSize, sampleRateHz: fs, positions: this.opts.geometry.positions, grid, baseGrid, speedOfSoundMps: this.opts.speedOfSoundMps, active: this.#active, fast, beams: this.#beams.specs(grid), finder: peakFinderFor(grid, p.grid.azimuthDeg.stepDeg, this.opts) };
+      built = await preparePlan({ input, nextEpoch: () => ++this.#epoch, pool: this.#pool, remote: this.#remote, previous: this.#plan, timeoutMs: this.opts.planTimeoutMs ?? PLAN_TIMEOUT_MS });
     } catch (e) {
       throw e instanceof PlanError ? new PlanError(e.kind, `${fields}: ${e.message}`) : e;
     }
+    const { plan } = built;
+    const W = plan.ranges.length;
     if (this.#closed) return;
     // From here on synchronous: no hop runs between the switch of front end, plan and parameters.
     if (stft !== this.#stft) {
@@ -282,7 +281,16 @@ export class Engine {
     this.#params = p;
     this.#pending.clear();
     this.#lastBusy = Array(W).fill(0);
-    this.#pool.commit(epoch);
+    this.#pool.commit(plan.epoch);
+    if (this.#remote) {
+      commitRemote(this.#remote, plan, built.members, this.#pool.size, M);
+      this.replans++;
+      if (reason) {
+        // Every bin starts from an empty covariance in the new plan (the bias-corrected start).
+        this.#lastReplan = { at: new Date().toISOString(), reason };
+        this.#noteRestart({ worker: -1, firstBin: band.startBin, bins: band.count, reason });
+      }
+    }
     this.#planBytes = cost.totalBytes;
     this.opts.budget?.hold(this, cost.totalBytes);
     // Per-channel calibration, undone on the band's bins of each slot before anyone reads them.
@@ -298,22 +306,6 @@ export class Engine {
     this.#sendBeams();
     if (shedEffect(this.#shedder.step).gridCoarsening !== coarsening) this.#applyGrid(shedEffect(this.#shedder.step).gridCoarsening);
     else this.opts.onGrid?.(grid);
-  }
-
-  #finder(grid: DirectionGrid, p: ProcessingParams): PeakFinder {
-    const azStep = grid.nAz > 1 ? grid.azimuthDeg[1] - grid.azimuthDeg[0] : p.grid.azimuthDeg.stepDeg;
-    const elStep = grid.nEl > 1 ? grid.elevationDeg[grid.nAz] - grid.elevationDeg[0] : 0;
-    return new PeakFinder({
-      nAz: grid.nAz,
-      nEl: grid.nEl,
-      azimuthStepDeg: azStep,
-      elevationStepDeg: elStep,
-      azimuthStartDeg: grid.azimuthDeg[0],
-      elevationStartDeg: grid.elevationDeg[0],
-      circularAzimuth: grid.nAz >= 3 && Math.abs(grid.nAz * azStep - 360) < 1e-9,
-      thresholdDb: this.opts.peakThresholdDb ?? 3,
-      maxPeaks: this.opts.maxPeaks ?? 8,
-    });
   }
 
   /** Decide where the STFT writes the next hop: a free ring slot, or the trash slot. */
@@ -368,6 +360,7 @@ export class Engine {
     const specs = this.#beams.specs(p.grid);
     this.#pool.updatePlans((pl) => (pl.beams = specs));
     this.#pool.broadcast({ type: 'beams', epoch: p.epoch, beams: specs });
+    this.#remote?.control({ type: 'beams', beams: specs });
   }
 
   /** Steer a new beam (look direction snapped to the nearest grid direction for its response). */
@@ -451,7 +444,7 @@ export class Engine {
       this.#nextScanSample = Math.max(this.#nextScanSample + period, hopEnd + 1);
       const seq = this.#scanSeq++;
       p.meta[o + META_SCAN_SEQ] = seq;
-      this.#pending.set(seq, { count: 0, arrivalMs: this.#arrivalMs, sampleIndex: hopEnd - 1, flags, scanMs: 0, due: this.#dueBeams });
+      this.#pending.set(seq, { count: 0, got: new Uint8Array(p.ranges.length), arrivalMs: this.#arrivalMs, requestMs: performance.now(), sampleIndex: hopEnd - 1, flags, scanMs: 0, due: this.#dueBeams, beamIds: [], directions: -1 });
     } else if (hopEnd >= this.#nextScanSample) {
       this.scansDeferred++;
     }
@@ -463,28 +456,13 @@ export class Engine {
     this.#lastPublishedHop = this.hops;
     p.meta[o + META_LAMBDA] = k === 1 ? params.lambda : Math.max(1e-12, Math.pow(params.lambda, k));
     p.meta[o + META_FLAGS] = flags;
-    const l = params.loading;
-    const mean = 1; // relative modes are scale-free; fixed δ is in scaled units already
-    switch (l.mode) {
-      case 'relative':
-        p.meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
-        p.meta[o + META_LOAD_A] = l.ratio * mean;
-        break;
-      case 'relative-db':
-        p.meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
-        p.meta[o + META_LOAD_A] = Math.pow(10, l.db / 10);
-        break;
-      case 'fixed':
-        p.meta[o + META_LOAD_MODE] = LOAD_FIXED;
-        p.meta[o + META_LOAD_A] = l.delta;
-        break;
-      case 'wng':
-        p.meta[o + META_LOAD_MODE] = LOAD_WNG;
-        p.meta[o + META_LOAD_A] = l.floorDb;
-        p.meta[o + META_LOAD_B] = l.maxRatio ?? 1e3;
-        break;
-    }
+    writeLoadingMeta(p.meta, o, params.loading);
     p.writeSeq++;
+    // Remote parts take their bins now (the slot is then free for them) and send at scan hops.
+    if (p.ranges.length > this.#pool.size) {
+      this.#remote!.onHop(p.ring, this.#slotOffset, p.meta, o, p.writeSeq - 1, (flags & 3) !== 0);
+      for (let w = this.#pool.size; w < p.ranges.length; w++) Atomics.store(p.ctrl, CTRL_DONE + w, p.writeSeq);
+    }
     Atomics.store(p.ctrl, CTRL_WRITE, p.writeSeq);
     Atomics.notify(p.ctrl, CTRL_WRITE);
   };
@@ -587,54 +565,69 @@ export class Engine {
     const p = this.#plan;
     if (m.epoch !== p.epoch) return;
     const pend = this.#pending.get(m.scanSeq);
-    if (!pend) return;
+    if (!pend || pend.got[m.workerIndex]) return;
+    pend.got[m.workerIndex] = 1;
     pend.scanMs = Math.max(pend.scanMs, m.scanMs);
-    if (++pend.count < p.ranges.length) return;
-    this.#pending.delete(m.scanSeq);
+    pend.directions = m.directions;
+    if (m.beams.length > 0) pend.beamIds = m.beams;
+    if (++pend.count === p.ranges.length) this.#emit(m.scanSeq, pend, false);
+  }
+
+  /** A remote part's answer: into the results where a local worker would write it, then as theirs. */
+  #onRemotePart(part: Part): void {
+    if (acceptRemotePart(this.#plan, part, this.#pool.size, this.#pending.has(part.scanSeq), this.#remote!, this.channels)) {
+      this.#onScanned({ type: 'scanned', epoch: part.epoch, workerIndex: part.part, scanSeq: part.scanSeq, resultSlot: part.scanSeq % RESULT_SLOTS, directions: part.directions, scanMs: part.scanMs, beams: part.beamIds });
+    }
+  }
+
+  /**
+   * Scans whose local parts are in and whose remote parts are past the deadline go out partial
+   * (flagged, counted); the silent parts are told to the remote side, which drops a worker silent
+   * for longer. A late local thread is never cause for a partial row: it is behind, not gone.
+   */
+  #checkDeadlines(): void {
+    const remote = this.#remote;
+    const p = this.#plan;
+    const L = this.#pool.size;
+    if (!remote || !p || p.ranges.length <= L) return;
+    const now = performance.now();
+    for (const [seq, pend] of [...this.#pending]) {
+      if (now - pend.requestMs < remote.opts.deadlineMs) break;
+      if (!this.#pending.has(seq) || pend.got.subarray(0, L).includes(0)) continue;
+      for (let w = L; w < p.ranges.length; w++) if (!pend.got[w]) remote.missed(w);
+      this.partialRows++;
+      this.#emit(seq, pend, true);
+    }
+  }
+
+  #emit(seq: number, pend: PendingScan, partial: boolean): void {
+    const p = this.#plan;
+    this.#pending.delete(seq);
     for (const r of this.#resultWaiters.splice(0)) r();
     // Older scans still waiting will never complete in order: drop them.
     for (const k of [...this.#pending.keys()]) {
-      if (k < m.scanSeq) {
+      if (k < seq) {
         this.#pending.delete(k);
         this.scansDropped++;
       }
     }
     const t0 = performance.now();
-    const D = m.directions;
+    const D = pend.directions;
     const grid = p.grid;
     if (D !== grid.count) return; // a grid change crossed this scan
-    const r = m.resultSlot;
+    const r = seq % RESULT_SLOTS;
     const R = p.resultDirections;
     const W = p.ranges.length;
     const norm = (pend.flags & SCAN_NORMALISE) !== 0;
-    const toDb = (method: 0 | 1): { power: Float64Array; db: Float32Array; peaks: RowPeak[] } => {
-      const power = new Float64Array(D);
-      for (let w = 0; w < W; w++) {
-        const base = (w * RESULT_SLOTS + r) * resultStride(R, p.weightDoubles) + method * R;
-        for (let d = 0; d < D; d++) power[d] += p.results[base + d];
-      }
-      // Sum over bins = the band's power (dBFS); normalised: the mean over bins (0 dB at most).
-      const scale = norm ? 1 / p.bins : 1;
-      const db = new Float64Array(D);
-      for (let d = 0; d < D; d++) {
-        power[d] *= scale;
-        // The workers leave non-finite bins out; this is the last guard: a row is always finite.
-        if (!(power[d] - power[d] === 0)) {
-          power[d] = 0;
-          this.nonFiniteValues++;
-        }
-        db[d] = power[d] > 0 ? 10 * Math.log10(power[d]) : -300;
-      }
-      const peaks = p.finder.find(db).map((q) => ({ azimuthDeg: q.azimuthDeg, elevationDeg: q.elevationDeg, levelDb: q.levelDb }));
-      return { power, db: Float32Array.from(db), peaks };
-    };
-    if ((pend.flags & FLAG_BEAMS) !== 0) {
+    const nonFinite = () => this.nonFiniteValues++;
+    // Beams need every bin's weights: a partial scan leaves them as they were.
+    if ((pend.flags & FLAG_BEAMS) !== 0 && !partial) {
       const slotBase = (w: number) => (w * RESULT_SLOTS + r) * resultStride(R, p.weightDoubles);
-      this.#beams.combine(m.beams, p.results, (w) => slotBase(w) + 2 * R, W, D, p.bins, pend.due);
-      this.#audio.setWeights(m.beams, p.results, (w) => slotBase(w) + 2 * R + MAX_BEAMS * (R + 1), p.weightDoubles, p.ranges, pend.due);
+      this.#beams.combine(pend.beamIds, p.results, (w) => slotBase(w) + 2 * R, W, D, p.bins, pend.due);
+      this.#audio.setWeights(pend.beamIds, p.results, (w) => slotBase(w) + 2 * R + MAX_BEAMS * (R + 1), p.weightDoubles, p.ranges, pend.due);
     }
-    const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? toDb(0) : null;
-    const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? toDb(1) : null;
+    const conv = (pend.flags & SCAN_CONVENTIONAL) !== 0 ? combineSpectrum(p, r, 0, D, norm, pend.got, nonFinite) : null;
+    const mvdr = (pend.flags & SCAN_MVDR) !== 0 ? combineSpectrum(p, r, 1, D, norm, pend.got, nonFinite) : null;
     const now = performance.now();
     this.#combineMs += now - t0;
     const latencyMs = now - pend.arrivalMs;
@@ -642,11 +635,12 @@ export class Engine {
     this.#scanWall[this.#latencyCount++ % LATENCY_HISTORY] = pend.scanMs;
     this.rows++;
     this.opts.onRow({
-      seq: m.scanSeq,
+      seq,
       sampleIndex: pend.sampleIndex,
       emittedAtMs: Date.now(),
       shedStep: this.#shedder.step,
       normalised: norm,
+      partial,
       nAz: grid.nAz,
       nEl: grid.nEl,
       conventionalDb: conv ? conv.db : null,
@@ -684,8 +678,9 @@ export class Engine {
     const msg = gridMessage(grid);
     this.#pool.updatePlans((pl) => (pl.grid = msg));
     this.#pool.broadcast({ type: 'grid', epoch: p.epoch, grid: msg });
+    this.#remote?.control({ type: 'grid', grid: msg });
     p.grid = grid;
-    p.finder = this.#finder(grid, this.#params);
+    p.finder = peakFinderFor(grid, this.#params.grid.azimuthDeg.stepDeg, this.opts);
     this.#sendBeams();
     this.opts.onGrid?.(grid);
   }
@@ -718,17 +713,49 @@ export class Engine {
     const p = this.#plan;
     this.#pool.updatePlans((pl) => (pl.active = [...active]));
     this.#pool.broadcast({ type: 'mask', epoch: p.epoch, active: [...active] });
+    this.#remote?.control({ type: 'mask', active: [...active] });
   }
 
-  /** A replaced worker's bins start from an empty covariance: keep which bins and from which sample. */
-  #noteRestart(i: number): void {
-    const p = this.#plan;
-    const r = p?.ranges[i];
-    if (!r) return;
+  /** Bins that start from an empty covariance (a replaced worker, a re-plan after a remote loss): which, from which sample. */
+  #noteRestart(r: Omit<CovarianceRestart, 'sampleIndex' | 'at'>): void {
     this.covarianceRestarts++;
-    this.#restartLog.push({ worker: i, firstBin: p.startBin + r.start, bins: r.count, sampleIndex: this.#lastHopEnd, at: new Date().toISOString() });
+    this.#restartLog.push({ ...r, sampleIndex: this.#lastHopEnd, at: new Date().toISOString() });
     if (this.#restartLog.length > RESTART_LOG) this.#restartLog.shift();
   }
+
+  /**
+   * Remote workers came or went: re-plan (a lost worker at once, a new one at most every
+   * JOIN_REPLAN_MS). Rows go on from the plan in force meanwhile, partial where its parts are silent.
+   */
+  #onMembership(reason: string, lost: boolean): void {
+    const now = performance.now();
+    if (this.#closed || !this.#plan || (!lost && now - this.#lastMembershipMs < JOIN_REPLAN_MS)) return;
+    if (this.#replanning) {
+      if (lost) this.#replanAgain = reason;
+      return;
+    }
+    this.#lastMembershipMs = now;
+    const run = this.#replan(this.#params, reason);
+    this.#replanning = run;
+    run
+      .catch((e) => this.opts.onError?.(`re-plan after "${reason}" failed: ${publicText(e)}`))
+      .finally(() => {
+        if (this.#replanning === run) this.#replanning = null;
+        const again = this.#replanAgain;
+        this.#replanAgain = null;
+        if (again) this.#onMembership(again, true);
+      });
+  }
+
+  #lastMembershipMs = -Infinity;
+  #replanAgain: string | null = null;
+  #remote: RemoteBins | null = null;
+  #deadlineTimer: NodeJS.Timeout | null = null;
+  /** Rows emitted with a remote part missing (partial). */
+  partialRows = 0;
+  /** Plans built while remote workers are enabled, and the last one a membership change caused. */
+  replans = 0;
+  #lastReplan: { at: string; reason: string } | null = null;
 
   /** Test hook: end worker i's thread from outside (a crash, not a reported error). */
   killWorker(i: number): void {
@@ -768,15 +795,7 @@ export class Engine {
   status(): Record<string, unknown> {
     const p = this.#plan;
     const W = p.ranges.length;
-    const workers = p.ranges.map((r, w) => ({
-      bins: r.count,
-      firstBin: p.startBin + r.start,
-      hops: p.stats[w * STATS_STRIDE + 1],
-      scans: p.stats[w * STATS_STRIDE + 2],
-      busyMs: p.stats[w * STATS_STRIDE],
-      lastScanMs: p.stats[w * STATS_STRIDE + 3],
-    }));
-    const sum = (k: number) => p.ranges.reduce((n, _r, w) => n + p.stats[w * STATS_STRIDE + k], 0);
+    const { workers, sum } = workerFigures(p);
     const lat = this.latencyPercentiles();
     const eff = shedEffect(this.#shedder.step);
     return {
@@ -795,7 +814,7 @@ export class Engine {
       scansDeferred: this.scansDeferred,
       // Bins of the current plan flagged in scans: MVDR left at 0 because R + δI did not factor (no
       // signal in the bin), or left out as not finite (then that worker's covariance restarted).
-      flaggedBins: { singular: sum(STAT_SINGULAR), nonFinite: sum(STAT_NON_FINITE), covarianceRestarts: sum(STAT_RESTARTS), rowValuesNotFinite: this.nonFiniteValues },
+      flaggedBins: { ...sum, rowValuesNotFinite: this.nonFiniteValues },
       bins: p.bins,
       directions: p.grid.count,
       planMiB: Math.round(this.#planBytes / 2 ** 20),
@@ -808,6 +827,7 @@ export class Engine {
       },
       latencyMs: { p50: lat.p50, p99: lat.p99 },
       perWorker: workers,
+      ...(this.#remote ? { remote: { ...this.#remote.status(this.#pool.size), partialRows: this.partialRows, replans: this.replans, lastReplan: this.#lastReplan } } : {}),
     };
   }
 
@@ -816,31 +836,7 @@ export class Engine {
     this.#closed = true;
     this.opts.budget?.release(this);
     if (this.#shedTimer) clearInterval(this.#shedTimer);
-    await this.#pool.close();
+    if (this.#deadlineTimer) clearInterval(this.#deadlineTimer);
+    await Promise.all([this.#pool.close(), this.#remote?.close()]);
   }
-}
-
-/** Which worker of a plan has done the fewest hops. */
-function slowestWorker(p: { ranges: unknown[]; ctrl: Int32Array }): number {
-  let done = Infinity;
-  let worker = 0;
-  for (let w = 0; w < p.ranges.length; w++) {
-    const d = Atomics.load(p.ctrl, CTRL_DONE + w);
-    if (d < done) [done, worker] = [d, w];
-  }
-  return worker;
-}
-
-/** Hops done by the slowest worker of a plan (every slot before it is free to overwrite). */
-function slowestDone(p: { ranges: unknown[]; ctrl: Int32Array }): number {
-  // The minimum of one pass: each counter only grows, so this never overstates the free slots.
-  let done = Infinity;
-  for (let w = 0; w < p.ranges.length; w++) done = Math.min(done, Atomics.load(p.ctrl, CTRL_DONE + w));
-  return done;
-}
-
-function percentiles(x: Float64Array, n: number): { p50: number; p99: number; count: number } {
-  if (n === 0) return { p50: NaN, p99: NaN, count: 0 };
-  const a = Array.from(x.subarray(0, n)).sort((p, q) => p - q);
-  return { p50: a[Math.floor(0.5 * (n - 1))], p99: a[Math.floor(0.99 * (n - 1))], count: n };
 }

@@ -5,11 +5,12 @@
  * ranges. The engine (engine.ts) fills the ring and reads the results; the workers (bin-worker.ts)
  * get their PlanMessage. Sized beforehand by plan-budget.ts.
  */
-import type { PeakFinder } from '../dsp/peaks.ts';
+import { PeakFinder } from '../dsp/peaks.ts';
+import type { ProcessingParams } from './params.ts';
 import type { DirectionGrid } from '../dsp/steering.ts';
 import type { BinRange } from '../dsp/stft.ts';
 import { RING_SLOTS } from './plan-budget.ts';
-import { splitBins, type WorkerRange } from './pool.ts';
+import { splitBins, splitBinsWeighted, type WorkerRange } from './pool.ts';
 import { META_STRIDE, RESULT_SLOTS, resultStride, STATS_STRIDE, type BeamSpec, type PlanMessage } from './protocol.ts';
 
 /** One plan as the engine holds it: views of the shared memory and what the rows need. */
@@ -39,6 +40,12 @@ export interface PlanLayoutInput {
   fftSize: number;
   sampleRateHz: number;
   workers: number;
+  /**
+   * Relative speed of each part (the local threads first, then remote workers) and the most bins
+   * each may take; absent: `workers` equal parts.
+   */
+  weights?: readonly number[];
+  caps?: readonly number[];
   positions: [number, number, number][];
   /** The grid scanned now (coarser than baseGrid while shedding). */
   grid: DirectionGrid;
@@ -59,7 +66,7 @@ export function gridMessage(g: DirectionGrid): PlanMessage['grid'] {
 /** Allocate a plan's shared memory and write each worker's staged PlanMessage. */
 export function layoutPlan(i: PlanLayoutInput): { plan: Plan; messages: PlanMessage[] } {
   const M = i.positions.length;
-  const ranges = splitBins(i.band.count, i.workers);
+  const ranges = i.weights ? splitBinsWeighted(i.band.count, i.weights, i.caps) : splitBins(i.band.count, i.workers);
   const W = ranges.length;
   const slotDoubles = 2 * M * (i.fftSize / 2 + 1);
   const resultDirections = i.baseGrid.count;
@@ -114,4 +121,28 @@ export function layoutPlan(i: PlanLayoutInput): { plan: Plan; messages: PlanMess
     writeSeq: 0,
   };
   return { plan, messages };
+}
+
+/** The grid spec with every step k times coarser (load shedding). */
+export function coarserGrid(spec: ProcessingParams['grid'], k: number): ProcessingParams['grid'] {
+  if (k === 1) return spec;
+  const c = (r: { startDeg: number; stopDeg: number; stepDeg: number }) => ({ startDeg: r.startDeg, stopDeg: r.stopDeg, stepDeg: r.stepDeg * k });
+  return spec.elevationDeg ? { azimuthDeg: c(spec.azimuthDeg), elevationDeg: c(spec.elevationDeg) } : { azimuthDeg: c(spec.azimuthDeg) };
+}
+
+/** The peak finder of a grid (azimuth step `fallbackAzStepDeg` when the grid has one azimuth). */
+export function peakFinderFor(grid: DirectionGrid, fallbackAzStepDeg: number, o: { peakThresholdDb?: number; maxPeaks?: number }): PeakFinder {
+  const azStep = grid.nAz > 1 ? grid.azimuthDeg[1] - grid.azimuthDeg[0] : fallbackAzStepDeg;
+  const elStep = grid.nEl > 1 ? grid.elevationDeg[grid.nAz] - grid.elevationDeg[0] : 0;
+  return new PeakFinder({
+    nAz: grid.nAz,
+    nEl: grid.nEl,
+    azimuthStepDeg: azStep,
+    elevationStepDeg: elStep,
+    azimuthStartDeg: grid.azimuthDeg[0],
+    elevationStartDeg: grid.elevationDeg[0],
+    circularAzimuth: grid.nAz >= 3 && Math.abs(grid.nAz * azStep - 360) < 1e-9,
+    thresholdDb: o.peakThresholdDb ?? 3,
+    maxPeaks: o.maxPeaks ?? 8,
+  });
 }

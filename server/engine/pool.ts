@@ -29,6 +29,48 @@ export function splitBins(bins: number, workers: number): WorkerRange[] {
   return out;
 }
 
+/**
+ * Split `bins` into contiguous ranges in proportion to `weights` (largest remainder), each part at
+ * most `caps[i]` bins and at least one while bins last; parts beyond the bins get none (count 0).
+ * Used when remote workers of other speeds share the band with the local threads.
+ */
+export function splitBinsWeighted(bins: number, weights: readonly number[], caps?: readonly number[]): WorkerRange[] {
+  const n = weights.length;
+  const cap = (i: number) => Math.max(0, Math.floor(caps?.[i] ?? Infinity));
+  const w = weights.map((x, i) => (Number.isFinite(x) && x > 0 && cap(i) > 0 ? x : 0));
+  const counts = new Array<number>(n).fill(0);
+  let left = bins;
+  // One bin each first (in order), so that every usable part works while bins last.
+  for (let i = 0; i < n && left > 0; i++) if (w[i] > 0) (counts[i] = 1), left--;
+  // Then the rest in proportion, whole bins first, then one at a time by largest remainder, within the caps.
+  while (left > 0) {
+    const open = w.map((x, i) => (x > 0 && counts[i] < cap(i) ? x : 0));
+    const total = open.reduce((a, b) => a + b, 0);
+    if (total === 0) break;
+    let given = 0;
+    let best = -1;
+    let bestRem = -1;
+    for (let i = 0; i < n; i++) {
+      if (open[i] === 0) continue;
+      const share = (left * open[i]) / total;
+      const whole = Math.min(Math.floor(share), cap(i) - counts[i]);
+      counts[i] += whole;
+      given += whole;
+      if (counts[i] < cap(i) && share - Math.floor(share) > bestRem) (bestRem = share - Math.floor(share)), (best = i);
+    }
+    if (given === 0 && best >= 0) (counts[best]++, given++);
+    if (given === 0) break;
+    left -= given;
+  }
+  const out: WorkerRange[] = [];
+  let start = 0;
+  for (const count of counts) {
+    out.push({ start, count });
+    start += count;
+  }
+  return out;
+}
+
 export interface PoolEvents {
   onScanned(m: Extract<FromWorker, { type: 'scanned' }>): void;
   onError(workerIndex: number, message: string, replaced: boolean): void;

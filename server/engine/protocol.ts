@@ -15,6 +15,7 @@
  *   singular bins (MVDR power 0: R + δI did not factor), non-finite bins left out, covariance
  *   restarts after a non-finite scan (all three counted over the plan's life).
  */
+import type { LoadingSpec } from '../dsp/loading.ts';
 
 export const CTRL_WRITE = 0;
 export const CTRL_DONE = 8;
@@ -57,6 +58,37 @@ export interface BeamSpec {
 export const LOAD_RELATIVE = 0;
 export const LOAD_FIXED = 1;
 export const LOAD_WNG = 2;
+
+/** Write a loading spec into the hop meta at `o` (the engine's side of loadingAt). */
+export function writeLoadingMeta(meta: Float64Array, o: number, l: LoadingSpec): void {
+  switch (l.mode) {
+    case 'relative':
+      meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
+      meta[o + META_LOAD_A] = l.ratio; // relative modes are scale-free
+      break;
+    case 'relative-db':
+      meta[o + META_LOAD_MODE] = LOAD_RELATIVE;
+      meta[o + META_LOAD_A] = Math.pow(10, l.db / 10);
+      break;
+    case 'fixed':
+      meta[o + META_LOAD_MODE] = LOAD_FIXED;
+      meta[o + META_LOAD_A] = l.delta; // in scaled units already
+      break;
+    case 'wng':
+      meta[o + META_LOAD_MODE] = LOAD_WNG;
+      meta[o + META_LOAD_A] = l.floorDb;
+      meta[o + META_LOAD_B] = l.maxRatio ?? 1e3;
+      break;
+  }
+}
+
+/** The loading spec of the hop whose meta starts at `o` (the layout above). */
+export function loadingAt(meta: Float64Array, o: number): LoadingSpec {
+  const mode = meta[o + META_LOAD_MODE];
+  if (mode === LOAD_RELATIVE) return { mode: 'relative', ratio: meta[o + META_LOAD_A] };
+  if (mode === LOAD_FIXED) return { mode: 'fixed', delta: meta[o + META_LOAD_A] };
+  return { mode: 'wng', floorDb: meta[o + META_LOAD_A], maxRatio: meta[o + META_LOAD_B] };
+}
 
 export interface PlanMessage {
   type: 'plan';

@@ -1,0 +1,241 @@
+/**
+ * Remote bin workers (issue 17) on a real broker (Debian nats-server, started here on a free
+ * loopback port and stopped here): two `nullsteer worker` processes share the band with one local
+ * thread.
+ *
+ * The equality bound (derived in docs/remote-workers.md; the perturbation argument is common
+ * practice, the steps are ours):
+ * - Snapshots travel as float32. Each complex component is rounded once: |x̃ − x| ≤ u|x|
+ *   componentwise, u = 2⁻²⁴ (IEEE 754 binary32 round to nearest), so ‖x̃x̃ᴴ − xxᴴ‖₂ ≤ (2u + u²)‖x‖².
+ *   The covariance is a convex combination of snapshot outer products (covariance.ts), so
+ *   ‖R̃ − R‖₂ ≤ (2u + u²)·tr(R) =: e, and |tr R̃ − tr R| ≤ e.
+ * - Conventional, P = vᴴRv/M² with |v_m| = 1: |ΔP| ≤ ‖ΔR‖·‖v‖²/M² ≤ e/M per bin; the row's band sum
+ *   is off by at most Σ_b e_b/M.
+ * - MVDR, P = min over wᴴv = 1 of wᴴ(R + δI)w with δ = ε·tr(R)/M (relative loading): the loaded
+ *   matrices differ by ‖E‖ ≤ e(1 + ε/M); P̃ ≤ P + ‖E‖·‖w‖² and ‖w‖² ≤ P/δ, so
+ *   |P̃ − P| ≤ max(P, P̃)·ρ with ρ = (2u + u²)(M/ε + 1)/(1 − 2u − u²), per bin and for the band sum.
+ * Both paths run the same float64 kernels; their own rounding adds ~1e-12 relative, covered by a
+ * 1e-9 slack.
+ */
+import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { connect } from '@nats-io/transport-node';
+import { loadGeometry } from '../../server/config/array-file.ts';
+import { MultiChannelStft } from '../../server/dsp/stft.ts';
+import { Engine, type EngineRow } from '../../server/engine/engine.ts';
+import type { ProcessingParams } from '../../server/engine/params.ts';
+import { RemoteWorker } from '../../server/cluster/remote-worker.ts';
+import { encodeJson, HopBatchWriter, hopsSubject, partsSubject, workerSubject, type RemotePlan } from '../../server/cluster/remote-wire.ts';
+import type { RemoteBins } from '../../server/cluster/remote-bins.ts';
+import type { Block } from '../../shared/types.ts';
+import { natsAvailable, startBroker, type TestBroker } from '../helpers/nats-server.ts';
+import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
+import { remoteWith, startWorkerProcess, type WorkerProcess } from '../helpers/remote-workers.ts';
+import { waitFor } from '../helpers/service.ts';
+
+vi.setConfig({ testTimeout: 120_000 });
+
+const ARRAYS = new URL('../../config/arrays/', import.meta.url).pathname;
+const FS = 48000;
+const N = 512;
+const U = 2 ** -24;
+const EPS = 0.01;
+
+const params = (over: Partial<ProcessingParams> = {}): ProcessingParams => ({
+  lambda: 0.98,
+  loading: { mode: 'relative', ratio: EPS },
+  bandHz: [500, 4000],
+  grid: { azimuthDeg: { startDeg: 0, stopDeg: 355, stepDeg: 5 } },
+  methods: ['mvdr', 'conventional'],
+  spectrumRateHz: 20,
+  normalise: false,
+  fftSize: N,
+  ...over,
+});
+
+async function scene(frames: number) {
+  const g = await loadGeometry(`${ARRAYS}ring-24.json`);
+  const x = renderPlaneWaves({
+    positions: g.positions,
+    sampleRateHz: FS,
+    frames,
+    speedOfSoundMps: 343.2,
+    sources: [
+      { azimuthDeg: 40, rms: 0.1, loHz: 300, hiHz: 6000, seed: 11 },
+      { azimuthDeg: 200, rms: 0.03, loHz: 300, hiHz: 6000, seed: 12 },
+    ],
+    noiseRms: 0.002,
+    noiseSeed: 13,
+  });
+  return { g, x, blocks: planarBlocks(x, g.positions.length, FS, 1000) };
+}
+
+/** Per hop (keyed by the hop's last sample), tr(R_b) of every band bin, with the covariance's own weighting. */
+function traces(blocks: Block[], M: number, p: ProcessingParams): Map<number, Float64Array> {
+  const stft = new MultiChannelStft(M, N);
+  const band = stft.bandBins(p.bandHz[0], p.bandHz[1], FS);
+  const T = new Float64Array(band.count);
+  const s2 = (2 / N) ** 2;
+  let weightSum = 0;
+  const out = new Map<number, Float64Array>();
+  for (const b of blocks) {
+    stft.push(b.data, b.frames, b.sampleIndex, (snap, hopStart) => {
+      weightSum = p.lambda * weightSum + (1 - p.lambda);
+      const w = (1 - p.lambda) / weightSum;
+      for (let k = 0; k < band.count; k++) {
+        let e = 0;
+        const o = 2 * M * (band.startBin + k);
+        for (let i = 0; i < 2 * M; i++) e += snap[o + i] * snap[o + i];
+        T[k] = (1 - w) * T[k] + w * e * s2;
+      }
+      out.set(hopStart + N - 1, Float64Array.from(T));
+    });
+  }
+  return out;
+}
+
+let broker: TestBroker;
+let workers: WorkerProcess[] = [];
+
+const describeNats = natsAvailable ? describe : describe.skip;
+
+describeNats('remote bin workers on a real broker', () => {
+  beforeAll(async () => {
+    broker = await startBroker();
+    workers = await Promise.all([startWorkerProcess(broker.url, 'hall-east'), startWorkerProcess(broker.url, 'hall-west')]);
+  }, 90_000);
+
+  afterAll(async () => {
+    await Promise.all(workers.map((w) => w.kill()));
+    await broker?.close();
+  });
+
+  it('rows with two remote worker processes equal local processing within the float32-snapshot bound', async () => {
+    const { g, blocks } = await scene(32768);
+    const M = g.positions.length;
+    const p = params();
+    const run = async (remote: RemoteBins | undefined, threads: number) => {
+      const rows: EngineRow[] = [];
+      const e = await Engine.create({ geometry: g, sampleRateHz: FS, params: p, workers: threads, speedOfSoundMps: 343.2, shedding: false, onRow: (r) => rows.push(r), ...(remote ? { remote } : {}) });
+      const beam = e.addBeam(40, 0, 'mvdr');
+      const status = e.status() as { perWorker: unknown[]; remote?: { workers: { state: string; bins: number }[] } };
+      for (const b of blocks) await e.pushAsync(b);
+      await e.drain(60_000);
+      const weights = e.beamWeights(beam.id);
+      const after = e.status() as { perWorker: { scans: number; bins: number }[]; remote?: { partialRows: number } };
+      await e.close();
+      return { rows, weights: weights ? Float64Array.from(weights) : null, status, after };
+    };
+    const local = await run(undefined, 2);
+    const remote = await run(await remoteWith(broker.url, 2, { deadlineMs: 60_000, dropMs: 120_000 }), 1);
+    // The band (38 bins) over one local thread and both remote workers; each answered every scan.
+    expect(remote.status.perWorker).toHaveLength(3);
+    expect(remote.status.remote!.workers.filter((w) => w.state === 'active' && w.bins > 0)).toHaveLength(2);
+    expect(remote.after.remote!.partialRows).toBe(0);
+    expect(remote.after.perWorker.map((w) => w.scans)).toEqual([0, 0, 0].map(() => remote.rows.length));
+    expect(remote.rows.map((r) => r.sampleIndex)).toEqual(local.rows.map((r) => r.sampleIndex));
+    expect(local.rows.length).toBeGreaterThanOrEqual(12);
+
+    const tr = traces(blocks, M, p);
+    const e2 = 2 * U + U * U;
+    const rho = (e2 * (M / EPS + 1)) / (1 - e2);
+    let worstConv = 0;
+    let worstMvdr = 0;
+    let maxRelMvdr = 0;
+    let nonZero = 0;
+    for (let i = 0; i < local.rows.length; i++) {
+      const a = local.rows[i];
+      const b = remote.rows[i];
+      expect(b.partial).toBe(false);
+      const T = tr.get(a.sampleIndex)!;
+      let convBound = 0;
+      for (const t of T) convBound += (e2 * t) / M;
+      for (let d = 0; d < a.conventionalPower!.length; d++) {
+        const c0 = a.conventionalPower![d];
+        const c1 = b.conventionalPower![d];
+        const m0 = a.mvdrPower![d];
+        const m1 = b.mvdrPower![d];
+        if (c0 !== c1 || m0 !== m1) nonZero++;
+        worstConv = Math.max(worstConv, Math.abs(c1 - c0) / (convBound + 1e-9 * c0));
+        worstMvdr = Math.max(worstMvdr, Math.abs(m1 - m0) / ((rho + 1e-9) * Math.max(m0, m1)));
+        maxRelMvdr = Math.max(maxRelMvdr, Math.abs(m1 - m0) / m0);
+      }
+    }
+    console.log(`remote vs local: conventional at most ${worstConv.toFixed(4)} of its bound, MVDR ${worstMvdr.toExponential(2)} of its bound (ρ = ${rho.toExponential(2)}, largest relative MVDR difference ${maxRelMvdr.toExponential(2)}); ${nonZero} values differ`);
+    expect(nonZero).toBeGreaterThan(0); // the remote path really ran on float32 snapshots
+    expect(worstConv).toBeLessThanOrEqual(1);
+    expect(worstMvdr).toBeLessThanOrEqual(1);
+    // Beam weights: float32 snapshots and float32 weights on the wire. No derived bound here (the
+    // first-order bound through the normalisation is κ²-large); measured against local processing.
+    const w0 = local.weights!;
+    const w1 = remote.weights!;
+    let num = 0;
+    let den = 0;
+    for (let k = 0; k < w0.length; k++) (num += (w1[k] - w0[k]) ** 2), (den += w0[k] ** 2);
+    console.log(`beam weights: relative difference ${Math.sqrt(num / den).toExponential(2)}`);
+    expect(Math.sqrt(num / den)).toBeLessThan(1e-3);
+  });
+
+  it('messages of an old epoch are ignored and counted, by the worker and by the engine; bad bytes are counted drops', async () => {
+    const worker = await RemoteWorker.start({ natsUrl: broker.url, name: 'epoch-check', id: 'epochcheck01' });
+    const nc = await connect({ servers: broker.url });
+    try {
+      const M = 4;
+      const plan = (epoch: number): RemotePlan => ({
+        v: 1, type: 'plan', engine: 'engineTest01', epoch, part: 1,
+        positions: [[0.1, 0, 0], [0, 0.1, 0], [-0.1, 0, 0], [0, -0.1, 0]],
+        freqsHz: [1000, 1100], grid: { azimuthDeg: [0, 90, 180, 270], elevationDeg: [0, 0, 0, 0], nAz: 4, nEl: 1 },
+        speedOfSoundMps: 343.2, snapshotScale: 2 / 512, active: [true, true, true, true], fast: false, beams: [], firstSeq: 0,
+      });
+      const batch = (epoch: number, firstSeq: number) => {
+        const w = new HopBatchWriter(M, 2, 4);
+        w.begin(epoch, 1, firstSeq);
+        const meta = Float64Array.from([0, 0.9, 3, firstSeq, 0, 0.01, 0]);
+        const snap = Float64Array.from({ length: 2 * M * 2 }, (_, i) => Math.sin(i + firstSeq));
+        w.add(meta, 0, snap, 0);
+        return w.finish().slice();
+      };
+      const parts: number[] = [];
+      nc.subscribe(partsSubject('engineTest01'), { callback: (_e, m) => void parts.push(m.data.byteLength) });
+      for (const epoch of [4, 5]) {
+        const reply = JSON.parse(new TextDecoder().decode((await nc.request(workerSubject(worker.id, 'plan'), encodeJson(plan(epoch)), { timeout: 10_000 })).data));
+        expect(reply).toEqual({ v: 1, type: 'plan-reply', epoch, ok: true });
+      }
+      nc.publish(hopsSubject(worker.id, 'engineTest01'), batch(5, 0)); // epoch 5 takes over
+      nc.publish(hopsSubject(worker.id, 'engineTest01'), batch(4, 1)); // old: ignored, counted
+      nc.publish(hopsSubject(worker.id, 'engineTest01'), batch(5, 1));
+      nc.publish(hopsSubject(worker.id, 'engineTest01'), new Uint8Array([1, 2, 3])); // not a batch
+      nc.publish(workerSubject(worker.id, 'ctrl'), encodeJson({ v: 1, type: 'mask', engine: 'engineTest01', epoch: 5, active: [true], extra: 1 }));
+      await nc.flush();
+      await waitFor(() => parts.length >= 2 && (worker.dropped['hops-truncated'] ?? 0) >= 1 && (worker.dropped['ctrl-schema'] ?? 0) >= 1, 10_000, 'worker answers and drops');
+      expect(parts).toHaveLength(2);
+      expect(worker.oldEpochMessages).toBe(1);
+      expect(worker.gaps).toBe(0);
+
+      // The engine side: a part of an epoch before the plan in force.
+      const remote = await remoteWith(broker.url, 2);
+      const e = await Engine.create({ geometry: await loadGeometry(`${ARRAYS}ring-24.json`), sampleRateHz: FS, params: params(), workers: 1, speedOfSoundMps: 343.2, shedding: false, onRow: () => {}, remote });
+      try {
+        await e.setParams(params({ bandHz: [600, 4000] })); // a re-plan: a new epoch
+        const st = () => (e.status() as { remote: { epoch: number; oldEpochMessages: number; dropped: Record<string, number> } }).remote;
+        const epoch = st().epoch;
+        const part = new Uint8Array(new ArrayBuffer(80 + 16 * 72));
+        const dv = new DataView(part.buffer);
+        dv.setUint32(0, 0x5042534e, true);
+        dv.setUint16(4, 1, true);
+        dv.setUint32(8, epoch - 1, true);
+        dv.setUint32(12, 1, true);
+        dv.setUint32(24, 72, true);
+        nc.publish(partsSubject(remote.engineId), part);
+        nc.publish(partsSubject(remote.engineId), new Uint8Array(7));
+        await nc.flush();
+        await waitFor(() => st().oldEpochMessages >= 1 && (st().dropped['part-truncated'] ?? 0) >= 1, 10_000, 'engine counts');
+        expect(st().oldEpochMessages).toBe(1);
+      } finally {
+        await e.close();
+      }
+    } finally {
+      await nc.close();
+      await worker.close();
+    }
+  });
+});
