@@ -115,9 +115,9 @@ describe('remote workers table cells', () => {
     expect(fmtAnswerAge(125_000)).toBe('125 s');
     expect(fmtAnswerAge(null)).toBe('never');
     expect(fmtAnswerAge(-5)).toBe('—');
-    expect(fmtByteRate(1_250_000)).toBe('1.3 MB/s');
-    expect(fmtByteRate(812)).toBe('812 B/s');
-    expect(fmtByteRate(0)).toBe('0 B/s');
+    expect(fmtByteRate(1_250_000)).toBe('1.3 MB');
+    expect(fmtByteRate(812)).toBe('812 B');
+    expect(fmtByteRate(0)).toBe('0 B');
     expect(fmtByteRate(null)).toBe('—');
     expect(droppedText({ deadline: 4, malformed: 1, other: 0 })).toBe('deadline 4 · malformed 1');
     expect(droppedText({})).toBe('none');

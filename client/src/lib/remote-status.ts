@@ -123,10 +123,9 @@ export function fmtAnswerAge(ms: number | null): string {
   return `${Math.round(ms / 1000)} s`;
 }
 
-/** Bytes per second with a decimal unit: "812 B/s", "1.2 MB/s"; "—" for null. */
+/** Bytes per second with a decimal unit, for the "bytes/s" column: "812 B", "1.3 MB"; "—" for null. */
 export function fmtByteRate(v: number | null): string {
-  const b = fmtBytes(v);
-  return b === '—' ? b : `${b}/s`;
+  return fmtBytes(v);
 }
 
 /** The `dropped` breakdown for a tooltip: "deadline 3 · malformed 1", or "none". */
