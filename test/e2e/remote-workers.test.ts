@@ -147,9 +147,12 @@ describe.skipIf(!browserAvailable)('remote workers and partial rows on the dashb
         .filter(Boolean)
         .map((p) => p.split(':').map(Number));
       const out: { sampleIndex: number; yCss: number; rgba: number[] }[] = [];
-      // Row i covers from its top edge down to the next older row's top edge: read the middle.
+      // Row i covers from its top edge down one row spacing (to the next older row's top edge,
+      // unless a skipped row left a gap there): read half a spacing below its top edge.
+      const gaps = rows.slice(1).map((r, i) => r[1] - rows[i][1]).sort((a, b) => a - b);
+      const spacing = gaps[gaps.length >> 1];
       for (let i = 0; i + 1 < rows.length; i++) {
-        const yCss = (rows[i][1] + rows[i + 1][1]) / 2;
+        const yCss = rows[i][1] + Math.min(rows[i + 1][1] - rows[i][1], spacing) / 2;
         const d = ctx.getImageData(Math.floor(marks.width / 2), Math.floor(yCss * dpr), 1, 1).data;
         out.push({ sampleIndex: rows[i][0], yCss, rgba: Array.from(d) });
       }
@@ -175,6 +178,15 @@ describe.skipIf(!browserAvailable)('remote workers and partial rows on the dashb
     }
     expect(seenPartial).toBeGreaterThanOrEqual(BLOCK_ROWS);
     expect(seenWhole).toBeGreaterThanOrEqual(BLOCK_ROWS);
+    // The pointer over a partial row says so in the readout; over a whole row it does not.
+    const box = (await canvas.boundingBox())!;
+    const onePartial = probe.out.find((p) => flagged.get(p.sampleIndex))!;
+    const oneWhole = probe.out.find((p) => !flagged.get(p.sampleIndex))!;
+    await page.mouse.move(box.x + box.width / 2, box.y + onePartial.yCss);
+    await expect.poll(() => history.getByTestId('hover-partial').count(), { timeout: 15_000 }).toBe(1);
+    await page.mouse.move(box.x + box.width / 2, box.y + oneWhole.yCss);
+    await expect.poll(() => history.getByTestId('hover-partial').count(), { timeout: 15_000 }).toBe(0);
+    await page.mouse.move(0, 0);
     await history.getByTestId('history-pause').click();
 
     // Remote workers asked for but none in the plan: the badge adds "local fallback".
