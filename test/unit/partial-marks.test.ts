@@ -100,6 +100,25 @@ describe('partial-row marks', () => {
     ]);
     // Room for one span only: the newest is written, the count says one.
     expect(spans(h, 7, 1, 1).length).toBe(1);
+    // Spans closer than the merge gap (the painter's one device pixel) become one: here the gap
+    // between them is 0.10 of the height; a merge gap of 0.1 joins them, 0.09 does not.
+    const out = new Float64Array(8);
+    expect(partialMarkSpans(h, 7, 1, out, 0.09)).toBe(2);
+    expect(partialMarkSpans(h, 7, 1, out, 0.1)).toBe(1);
+    expect(out[0]).toBeCloseTo(0.1, 12);
+    expect(out[1]).toBeCloseTo(0.3, 12);
+  });
+
+  it('merges every-other-row partials at a wide span into spans no denser than the merge gap', () => {
+    // 9000 rows (7.5 min at 20 rows/s), every other one partial, a 450 s view 500 px tall: each
+    // row is 0.056 px, so with a one-pixel merge gap the whole view is one mark.
+    const h = new RowHistory([0, 90], 9000);
+    for (let i = 0; i < 9000; i++) h.push(row(i * ROW, i % 2 === 0), 0, FS);
+    const out = new Float64Array(2 * MAX_MARK_SPANS);
+    expect(partialMarkSpans(h, 8999, 450, out)).toBe(MAX_MARK_SPANS); // no merge gap: the buffer fills
+    expect(partialMarkSpans(h, 8999, 450, out, 1 / 500)).toBe(1);
+    expect(out[0]).toBeCloseTo(0.05 / 450, 12); // row 8998, one row below the top
+    expect(out[1]).toBeCloseTo(449.95 / 450, 9); // down to row 0 (partial, 449.95 s old, no duration: the first row)
   });
 
   it('marks nothing in a history without partial rows or with no rows', () => {

@@ -40,11 +40,12 @@ export const PARTIAL_MARK_WIDTH_PX = 5;
  * pair (topFraction, bottomFraction) of the view's height from its top, the row's top edge at
  * (t_top − timeS) / spanS and its bottom edge `durationS / spanS` lower (as the history's runs
  * place them; see history-painter.ts visibleRuns). Consecutive partial rows that touch on the time
- * line are merged into one span. Newest first.
+ * line are merged into one span, and so are spans less than `mergeGapFraction` apart (the painter
+ * passes one device pixel, which no eye could tell apart anyway). Newest first.
  * @param out pairs are written here; at most `out.length / 2` spans (the rest are left out)
  * @returns the number of spans written
  */
-export function partialMarkSpans(h: RowHistory, topRow: number, spanS: number, out: Float64Array): number {
+export function partialMarkSpans(h: RowHistory, topRow: number, spanS: number, out: Float64Array, mergeGapFraction = 0): number {
   if (h.count === 0 || h.partialHeld === 0 || !(spanS > 0)) return 0;
   const maxSpans = out.length >> 1;
   const top = Math.min(h.count - 1, Math.max(h.oldest, topRow));
@@ -59,7 +60,7 @@ export function partialMarkSpans(h: RowHistory, topRow: number, spanS: number, o
     const topF = age / spanS;
     const bottomF = (age + h.durationS[s]) / spanS;
     // Touches the span above (the previous, newer partial row)? Then extend it downwards.
-    if (spans > 0 && topF <= out[2 * spans - 1] + 1e-9) {
+    if (spans > 0 && topF <= out[2 * spans - 1] + mergeGapFraction + 1e-9) {
       if (bottomF > out[2 * spans - 1]) out[2 * spans - 1] = bottomF;
       continue;
     }
@@ -92,7 +93,7 @@ export class PartialMarkPainter {
    * @returns the number of spans drawn
    */
   draw(ctx: CanvasRenderingContext2D, widthPx: number, heightPx: number, h: RowHistory | null, topRow: number, spanS: number, force = false): number {
-    const n = h ? partialMarkSpans(h, topRow, spanS, this.#spans) : 0;
+    const n = h && heightPx > 0 ? partialMarkSpans(h, topRow, spanS, this.#spans, 1 / heightPx) : 0;
     if (n === 0 && this.#drawn === 0 && !force) return 0;
     ctx.setTransform(1, 0, 0, 1, 0, 0);
     ctx.clearRect(0, 0, widthPx, heightPx);
