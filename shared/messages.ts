@@ -10,8 +10,10 @@
  * offset size field
  *      0    4 magic          0x5752534E (the bytes "NSRW")
  *      4    1 version        1
- *      5    1 flags          bit0 conventional present, bit1 mvdr present, bit2 normalised;
- *                            bits 3–7 reserved: written 0, ignored by readers
+ *      5    1 flags          bit0 conventional present, bit1 mvdr present, bit2 normalised,
+ *                            bit3 partial (some bins' parts missing: a remote bin worker did not
+ *                            answer in time; the spectra cover the bins that did answer);
+ *                            bits 4–7 reserved: written 0, ignored by readers
  *      6    1 shedStep       0 = full rate; > 0 = the engine is shedding load (DESIGN.md §4)
  *      7    1 reserved       written 0, ignored by readers
  *      8    4 seq            row counter, +1 per row, wraps at 2^32
@@ -28,6 +30,9 @@
  *      … 12·P peaks          Float32 triples (azimuthDeg, elevationDeg, levelDb),
  *                            conventional peaks first, then mvdr
  * At least one method is present. Layout changes bump the version; a reader refuses others.
+ * Bit 3 (partial) was added without a version bump: it was a reserved bit, written 0 by every
+ * earlier writer and ignored by every earlier reader, so old readers show a partial row as a
+ * whole one and new readers read old rows as not partial.
  */
 import type { ProcessingParams } from '../server/engine/params.ts';
 import { validateLandmarks, type Landmark } from './landmarks.ts';
@@ -44,6 +49,8 @@ export const MESSAGES_VERSION = 1;
 export const ROW_FLAG_CONVENTIONAL = 1;
 export const ROW_FLAG_MVDR = 2;
 export const ROW_FLAG_NORMALISED = 4;
+/** Issue 17: the row misses some bins (a remote bin worker did not answer before the deadline). */
+export const ROW_FLAG_PARTIAL = 8;
 
 /** Peaks per method a row can carry (the u16 count). */
 export const MAX_ROW_PEAKS = 0xffff;
@@ -75,6 +82,11 @@ export interface SpectrumRow {
   conventionalDb: Float32Array | null;
   mvdrDb: Float32Array | null;
   peaks: { conventional: RowPeak[]; mvdr: RowPeak[] };
+  /**
+   * Some bins are missing from the spectra: a remote bin worker did not answer in time (flags bit 3).
+   * Optional when encoding (absent = false); the decoder always sets it.
+   */
+  partial?: boolean;
 }
 
 /**
@@ -121,6 +133,7 @@ function checkRow(row: SpectrumRowInput): number {
   if (!Number.isFinite(row.emittedAtMs)) throw new RangeError(`emittedAtMs ${row.emittedAtMs} is not finite`);
   if (!u(row.shedStep, 255)) throw new RangeError(`shedStep ${row.shedStep} not in 0–255`);
   if (typeof row.normalised !== 'boolean') throw new TypeError('normalised must be a boolean');
+  if (row.partial !== undefined && typeof row.partial !== 'boolean') throw new TypeError('partial must be a boolean when given');
   if (!u(row.nAz, 0xffff) || row.nAz === 0) throw new RangeError(`nAz ${row.nAz} not in 1–65535`);
   if (!u(row.nEl, 0xffff) || row.nEl === 0) throw new RangeError(`nEl ${row.nEl} not in 1–65535`);
   const d = row.nAz * row.nEl;
@@ -167,7 +180,7 @@ export function encodeRowInto(out: Uint8Array, row: SpectrumRowInput): number {
   const d = row.nAz * row.nEl;
   const pc = row.peaks.conventional;
   const pm = row.peaks.mvdr;
-  const flags = (row.conventionalDb ? ROW_FLAG_CONVENTIONAL : 0) | (row.mvdrDb ? ROW_FLAG_MVDR : 0) | (row.normalised ? ROW_FLAG_NORMALISED : 0);
+  const flags = (row.conventionalDb ? ROW_FLAG_CONVENTIONAL : 0) | (row.mvdrDb ? ROW_FLAG_MVDR : 0) | (row.normalised ? ROW_FLAG_NORMALISED : 0) | (row.partial === true ? ROW_FLAG_PARTIAL : 0);
   dv.setUint32(0, ROW_MAGIC, true);
   dv.setUint8(4, ROW_VERSION);
   dv.setUint8(5, flags);
@@ -287,6 +300,7 @@ export function tryDecodeRow(bytes: Uint8Array): RowDecodeResult {
       conventionalDb,
       mvdrDb,
       peaks: { conventional, mvdr },
+      partial: (flags & ROW_FLAG_PARTIAL) !== 0,
     },
   };
 }

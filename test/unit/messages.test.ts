@@ -14,6 +14,7 @@ import {
   ROW_MAGIC,
   ROW_REJECT_REASONS,
   RowDecodeError,
+  ROW_FLAG_PARTIAL,
   rowByteLength,
   tryDecodeRow,
   type HelloMessage,
@@ -47,6 +48,8 @@ function row(over: Partial<SpectrumRow> = {}): SpectrumRow {
         { azimuthDeg: f32(120.5), elevationDeg: 0, levelDb: f32(-9.75) },
       ],
     },
+    // What the decoder always sets (a row written without the flag reads as not partial).
+    partial: false,
     ...over,
   };
 }
@@ -152,6 +155,7 @@ describe('spectrum row codec', () => {
       [{ sampleIndex: 1.5 }, /^sampleIndex/],
       [{ emittedAtMs: NaN }, /^emittedAtMs/],
       [{ shedStep: 256 }, /^shedStep/],
+      [{ partial: 1 as unknown as boolean }, /^partial must be a boolean/],
       [{ nAz: 0 }, /^nAz/],
       [{ nEl: 65536 }, /^nEl/],
       [{ mvdrDb: new Float32Array(180) }, /^mvdrDb has 180 values, nAz·nEl = 181/],
@@ -205,9 +209,56 @@ describe('spectrum row codec', () => {
 
   it('ignores reserved flag bits and the reserved byte', () => {
     const b = encodeRow(row());
-    b[5] |= 0xf8;
+    b[5] |= 0xf0;
     b[7] = 9;
     expect(plain(decodeRow(b))).toEqual(plain(row()));
+  });
+
+  it('round-trips the partial flag as bit 3 of the flags byte (issue 17), other bits unchanged', () => {
+    const r = row({ partial: true });
+    const bytes = encodeRow(r);
+    expect(ROW_FLAG_PARTIAL).toBe(8);
+    expect(bytes[5]).toBe(0b1111);
+    expect(bytes.byteLength).toBe(rowByteLength(181, 2, 3));
+    const d = decodeRow(bytes);
+    expect(d.partial).toBe(true);
+    expect(plain(d)).toEqual(plain(r));
+    // partial false and partial absent both write the bit as 0, and read back as false.
+    for (const over of [{ partial: false }, { partial: undefined }]) {
+      const b = encodeRow(row(over));
+      expect(b[5]).toBe(0b0111);
+      expect(decodeRow(b).partial).toBe(false);
+    }
+    // One method only, partial: the method bits stay as they were.
+    const one = row({ partial: true, conventionalDb: null, peaks: { conventional: [], mvdr: [] } });
+    expect(encodeRow(one)[5]).toBe(0b1110);
+    expect(plain(decodeRow(encodeRow(one)))).toEqual(plain(one));
+  });
+
+  it('reads a row an earlier writer made (bit 3 written 0, built by hand from the layout) as not partial', () => {
+    // The header of the layout in shared/messages.ts, written field by field without the encoder:
+    // 4 directions, conventional only, no peaks; flags 0b001 as a writer before issue 17 sets them.
+    const d = 4;
+    const b = new Uint8Array(40 + 4 * d);
+    const dv = new DataView(b.buffer);
+    dv.setUint32(0, 0x5752534e, true);
+    b[4] = 1;
+    b[5] = 0b001;
+    dv.setUint32(8, 7, true);
+    dv.setFloat64(12, 4800, true);
+    dv.setFloat64(20, 1_717_000_000_000, true);
+    dv.setUint32(28, d, true);
+    dv.setUint16(32, d, true);
+    dv.setUint16(34, 1, true);
+    for (let i = 0; i < d; i++) dv.setFloat32(40 + 4 * i, -10 - i, true);
+    const old = decodeRow(b);
+    expect(old.partial).toBe(false);
+    expect(Array.from(old.conventionalDb!)).toEqual([-10, -11, -12, -13]);
+    // The same bytes with bit 3 set: partial, nothing else changes.
+    b[5] |= 8;
+    const p = decodeRow(b);
+    expect(p.partial).toBe(true);
+    expect({ ...plain(p), partial: false }).toEqual(plain(old));
   });
 });
 

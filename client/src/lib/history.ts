@@ -69,7 +69,10 @@ export class RowHistory {
    * previous row, or after a gap the previous row's duration ({@link rowDurationS}).
    */
   readonly durationS: Float64Array;
+  /** 1 where the stored row is partial (SpectrumRow.partial: some bins missing), else 0. */
+  readonly partial: Uint8Array;
   #count = 0;
+  #partialHeld = 0;
 
   constructor(azimuthDeg: ArrayLike<number>, capacity?: number) {
     this.nAz = azimuthDeg.length;
@@ -84,6 +87,12 @@ export class RowHistory {
     this.sampleIndex = new Float64Array(this.capacity);
     this.timeS = new Float64Array(this.capacity);
     this.durationS = new Float64Array(this.capacity);
+    this.partial = new Uint8Array(this.capacity);
+  }
+
+  /** Partial rows among the rows still held (0: nothing to mark). */
+  get partialHeld(): number {
+    return this.#partialHeld;
   }
 
   /**
@@ -162,6 +171,11 @@ export class RowHistory {
       this.durationS[s] = rowDurationS(spacing, prevSpacingS, this.durationS[p]);
     }
     this.sampleIndex[s] = row.sampleIndex;
+    // The slot's old row (if the ring is full) leaves, the new one comes.
+    const wasPartial = this.#count >= this.capacity ? this.partial[s] : 0;
+    const isPartial = row.partial === true ? 1 : 0;
+    this.#partialHeld += isPartial - wasPartial;
+    this.partial[s] = isPartial;
     const nAz = this.nAz;
     const off = s * nAz;
     for (const m of HISTORY_METHODS) {
@@ -226,7 +240,9 @@ export class RowHistory {
       next.sampleIndex[t] = this.sampleIndex[s];
       next.timeS[t] = this.timeS[s];
       next.durationS[t] = this.durationS[s];
+      next.partial[t] = this.partial[s];
     }
+    next.#partialHeld = this.#partialHeld;
     next.#count = this.stored;
     return next;
   }

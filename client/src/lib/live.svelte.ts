@@ -22,6 +22,7 @@ import {
 } from '../../../shared/messages.ts';
 import { apiToken, getProcessing, type ProcessingState } from './api.ts';
 import { RowHistory } from './history.ts';
+import { partialIsRecent, PARTIAL_RECENT_ROWS } from './partial-marks.ts';
 
 export type ConnectionState = 'connecting' | 'online' | 'offline';
 
@@ -63,6 +64,9 @@ export class LiveConnection {
   #historyEpoch = $state(0);
   /** Successful opens (1 after the first connection, +1 per reconnect). */
   #opens = $state(0);
+  /** Issue 17: partial rows accepted, and the `rows` count the last one was accepted at (−1: none). */
+  #partialRows = $state(0);
+  #lastPartialRow = $state(-1);
 
   #history: RowHistory | null = null;
   #ws: WebSocket | null = null;
@@ -131,6 +135,14 @@ export class LiveConnection {
   }
   get opens(): number {
     return this.#opens;
+  }
+  /** Partial rows accepted since the page loaded (SpectrumRow.partial: some bins missing). */
+  get partialRows(): number {
+    return this.#partialRows;
+  }
+  /** One of the last {@link PARTIAL_RECENT_ROWS} accepted rows was partial. */
+  get partialRecent(): boolean {
+    return partialIsRecent(this.#rows, this.#lastPartialRow);
   }
   /** Changes whenever {@link history} is replaced. */
   get historyEpoch(): number {
@@ -297,6 +309,10 @@ export class LiveConnection {
     this.#latest = row;
     this.#rateRows++;
     this.#rows++;
+    if (row.partial) {
+      this.#partialRows++;
+      this.#lastPartialRow = this.#rows;
+    }
   }
 
   #measureRate(): void {

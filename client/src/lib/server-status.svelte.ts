@@ -7,6 +7,8 @@ import { getStatus } from './api.ts';
 import { inputCounts, summariseInput, watchRefusals, type InputView, type RefusalState } from './input-status.ts';
 import { summariseStatus, type StatusSummary } from './status-summary.ts';
 import { summariseBroker, type BrokerView } from './broker-status.ts';
+// Issue 17: remote bin workers (status engine.remote).
+import { summariseRemote, type RemoteView } from './remote-status.ts';
 
 export { summariseStatus, type ChannelReport, type StatusSummary } from './status-summary.ts';
 
@@ -22,6 +24,7 @@ export class ServerStatus {
   #input = $state.raw<InputView | null>(null);
   #broker = $state.raw<BrokerView | null>(null);
   #refusing = $state(false);
+  #remote = $state.raw<RemoteView | null>(null);
   #refusals: RefusalState | null = null;
   #polling = false;
   #again = false;
@@ -49,6 +52,10 @@ export class ServerStatus {
   /** The site broker (status `cluster`), null when none is configured. */
   get broker(): BrokerView | null {
     return this.#broker;
+  }
+  /** The engine's remote bin workers (status `engine.remote`), null when it has none. */
+  get remote(): RemoteView | null {
+    return this.#remote;
   }
   /** The input as the Input panel shows it (lib/input-status.ts). */
   get input(): InputView | null {
@@ -100,6 +107,7 @@ export class ServerStatus {
       this.#inputGaps = now - this.#gapSeenAtMs < GAP_HOLD_MS;
       this.#summary = s;
       this.#broker = summariseBroker(r.data);
+      this.#remote = summariseRemote(r.data);
       const input = summariseInput(r.data);
       this.#refusals = watchRefusals(this.#refusals, inputCounts(input), now);
       this.#input = input;

@@ -18,6 +18,8 @@ export const PALETTE = {
   ok: '#5cbf7e',
   warn: '#e3a23a',
   bad: '#e0645d',
+  /** Partial rows (issue 17): a pink the colour scale never reaches (lib/partial-marks.ts). */
+  partial: '#ff4896',
 } as const;
 
 export type PaletteName = keyof typeof PALETTE;
