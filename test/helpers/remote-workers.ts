@@ -40,6 +40,10 @@ export async function startWorkerProcess(natsUrl: string, name: string): Promise
 export async function remoteWith(natsUrl: string, n: number, o: { deadlineMs?: number; dropMs?: number } = {}): Promise<RemoteBins> {
   const remote = RemoteBins.start({ natsUrl, deadlineMs: o.deadlineMs ?? 250, dropMs: o.dropMs ?? 750 });
   await remote.ready;
-  await waitFor(() => remote.candidates().length >= n, 30_000, `${n} remote workers joined`);
+  try {
+    await waitFor(() => remote.candidates().length >= n, 30_000, `${n} remote workers joined`);
+  } catch (e) {
+    throw new Error(`${(e as Error).message}: ${JSON.stringify(remote.status(0))}`);
+  }
   return remote;
 }
