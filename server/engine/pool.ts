@@ -42,25 +42,27 @@ export function splitBinsWeighted(bins: number, weights: readonly number[], caps
   let left = bins;
   // One bin each first (in order), so that every usable part works while bins last.
   for (let i = 0; i < n && left > 0; i++) if (w[i] > 0) (counts[i] = 1), left--;
-  // Then the rest in proportion, whole bins first, then one at a time by largest remainder, within the caps.
+  // Then the rest in proportion. Parts whose share would pass their cap are filled to it and the
+  // others share what is left; then whole bins, and the last few by largest remainder (ties: first).
+  const fixed = w.map((x, i) => x === 0 || counts[i] >= cap(i));
   while (left > 0) {
-    const open = w.map((x, i) => (x > 0 && counts[i] < cap(i) ? x : 0));
-    const total = open.reduce((a, b) => a + b, 0);
+    const total = w.reduce((a, x, i) => a + (fixed[i] ? 0 : x), 0);
     if (total === 0) break;
-    let given = 0;
-    let best = -1;
-    let bestRem = -1;
+    let capped = false;
     for (let i = 0; i < n; i++) {
-      if (open[i] === 0) continue;
-      const share = (left * open[i]) / total;
-      const whole = Math.min(Math.floor(share), cap(i) - counts[i]);
-      counts[i] += whole;
-      given += whole;
-      if (counts[i] < cap(i) && share - Math.floor(share) > bestRem) (bestRem = share - Math.floor(share)), (best = i);
+      if (fixed[i] || counts[i] + (left * w[i]) / total <= cap(i)) continue;
+      left -= cap(i) - counts[i];
+      counts[i] = cap(i);
+      fixed[i] = true;
+      capped = true;
     }
-    if (given === 0 && best >= 0) (counts[best]++, given++);
-    if (given === 0) break;
-    left -= given;
+    if (capped) continue;
+    const share = w.map((x, i) => (fixed[i] ? 0 : (left * x) / total));
+    let given = 0;
+    for (let i = 0; i < n; i++) (counts[i] += Math.floor(share[i])), (given += Math.floor(share[i]));
+    const order = share.map((x, i) => [x - Math.floor(x), i] as const).filter(([, i]) => !fixed[i]).sort((a, b) => b[0] - a[0] || a[1] - b[1]);
+    for (let k = 0; k < left - given; k++) counts[order[k % order.length][1]]++;
+    left = 0;
   }
   const out: WorkerRange[] = [];
   let start = 0;
