@@ -27,7 +27,13 @@ import { peakRssMiB } from './util.ts';
 import { openRaw } from '../server/io/raw.ts';
 import { runTimeline } from '../server/tools/timeline.ts';
 
-const { values } = parseArgs({ options: { json: { type: 'boolean' }, workload: { type: 'string' }, quick: { type: 'boolean' }, workers: { type: 'string' }, ingest: { type: 'boolean' }, background: { type: 'string' } } });
+const { values } = parseArgs({ options: { json: { type: 'boolean' }, workload: { type: 'string' }, quick: { type: 'boolean' }, workers: { type: 'string' }, ingest: { type: 'boolean' }, background: { type: 'string' }, remote: { type: 'string' }, local: { type: 'string' } } });
+if (values.remote !== undefined) {
+  // Remote bin workers (bench/remote.ts): its own run, then done.
+  const { benchRemote } = await import('./remote.ts');
+  await benchRemote({ remote: Number(values.remote), workload: values.workload ?? 'W32', local: Number(values.local ?? 1), seconds: values.quick ? 3 : 8, json: values.json === true });
+  process.exit(0);
+}
 const workers = values.workers ? Number(values.workers) : availableParallelism();
 const seconds = values.quick ? 3 : 8;
 const say = (s: string) => {

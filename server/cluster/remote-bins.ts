@@ -74,6 +74,7 @@ export interface RemotePartState {
   offsetDoubles: number;
   writer: HopBatchWriter;
   bytesSent: number;
+  bytesReceived: number;
   batches: number;
   lastAnswerMs: number | null;
   /** Since when the part has missed a deadline without answering since (null: answering). */
@@ -277,7 +278,7 @@ export class RemoteBins {
     this.#epoch = epoch;
     this.#limits = limits;
     const now = performance.now();
-    this.#parts = parts.map((p) => ({ ...p, writer: new HopBatchWriter(channels, p.bins, HOP_BATCH_MAX), bytesSent: 0, batches: 0, lastAnswerMs: null, missedSinceMs: null, committedMs: now }));
+    this.#parts = parts.map((p) => ({ ...p, writer: new HopBatchWriter(channels, p.bins, HOP_BATCH_MAX), bytesSent: 0, bytesReceived: 0, batches: 0, lastAnswerMs: null, missedSinceMs: null, committedMs: now }));
     for (const id of before) if (!parts.some((p) => p.memberId === id)) this.#ctrlTo(id, { v: 1, type: 'release', engine: this.engineId, epoch });
   }
 
@@ -290,13 +291,21 @@ export class RemoteBins {
    * ring slot (at `slotOffset` doubles) with the hop's meta, and send the batches due.
    */
   onHop(ring: Float64Array, slotOffset: number, meta: Float64Array, metaOffset: number, seq: number, scan: boolean): void {
+    const t0 = performance.now();
     for (const p of this.#parts) {
       const w = p.writer;
       if (w.hops === 0) w.begin(this.#epoch, p.part, seq);
       w.add(meta, metaOffset, ring, slotOffset + p.offsetDoubles);
       if (scan || w.full) this.#send(p);
     }
+    this.frontEndMs += performance.now() - t0;
   }
+
+  /** Main-thread time spent copying hops into batches and handing them to the client, ms (the front end's cost). */
+  frontEndMs = 0;
+  /** Bytes of hop batches published, and of parts received, since start. */
+  bytesPublished = 0;
+  bytesReceived = 0;
 
   #send(p: RemotePartState): void {
     const bytes = p.writer.finish();
@@ -306,6 +315,7 @@ export class RemoteBins {
       // A copy: the client holds the bytes it is given until its next flush, and the writer is reused.
       this.#nc.publish(hopsSubject(p.memberId, this.engineId), bytes.slice());
       p.bytesSent += bytes.byteLength;
+      this.bytesPublished += bytes.byteLength;
       p.batches++;
       this.#bytesWindow.bytes.set(p.memberId, (this.#bytesWindow.bytes.get(p.memberId) ?? 0) + bytes.byteLength);
     } catch {
@@ -338,6 +348,8 @@ export class RemoteBins {
     if (!p) return this.#drop('part-unknown');
     p.lastAnswerMs = performance.now();
     p.missedSinceMs = null;
+    p.bytesReceived += data.byteLength;
+    this.bytesReceived += data.byteLength;
     this.#bytesWindow.bytes.set(p.memberId, (this.#bytesWindow.bytes.get(p.memberId) ?? 0) + data.byteLength);
     this.#events?.onPart(part);
   }

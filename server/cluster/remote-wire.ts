@@ -127,9 +127,8 @@ export class HopBatchWriter {
     const h = this.hops++;
     for (let i = 0; i < HOP_META_DOUBLES; i++) this.#meta[h * HOP_META_DOUBLES + i] = meta[o + i];
     const n = 2 * this.channels * this.bins;
-    const s = this.#snaps;
-    const base = h * n;
-    for (let i = 0; i < n; i++) s[base + i] = snap[from + i];
+    // A typed-array set converts float64 → float32 (round to nearest) natively.
+    this.#snaps.set(snap.subarray(from, from + n), h * n);
   }
 
   /**
