@@ -30,7 +30,7 @@ import type { Block } from '../../shared/types.ts';
 import { natsAvailable, startBroker, type TestBroker } from '../helpers/nats-server.ts';
 import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
 import { remoteWith, startWorkerProcess, type WorkerProcess } from '../helpers/remote-workers.ts';
-import { waitFor } from '../helpers/service.ts';
+import { getStatus, startTestService, waitFor } from '../helpers/service.ts';
 
 vi.setConfig({ testTimeout: 120_000 });
 
@@ -312,6 +312,21 @@ describeNats('remote bin workers on a real broker', () => {
       await feed.stop();
       await e.close();
     }
+  });
+
+  it('the server: engine.remoteWorkers with cluster.natsUrl takes the workers in (status lists them), and refuses to start without a broker', async () => {
+    const svc = await startTestService({ source: { kind: 'simulator' }, engine: { remoteWorkers: true, workers: 1 }, cluster: { natsUrl: broker.url, site: 'hall', node: 'rig-1' } });
+    try {
+      await waitFor(async () => (await getStatus(svc)).engine.remote?.workers.filter((w: { state: string }) => w.state === 'active').length === 2, 30_000, 'both workers active');
+      const st = (await getStatus(svc)).engine;
+      expect(st.remote).toMatchObject({ enabled: true, broker: 'connected', mode: 'remote', localThreads: 1 });
+      expect(st.perWorker).toHaveLength(3);
+      const rows = st.rows;
+      await waitFor(async () => (await getStatus(svc)).engine.rows > rows + 10, 30_000, 'rows');
+    } finally {
+      await svc.close();
+    }
+    await expect(startTestService({ engine: { remoteWorkers: true } })).rejects.toThrow(/engine\.remoteWorkers: needs cluster\.natsUrl/);
   });
 });
 
