@@ -17,6 +17,8 @@
  * Both paths run the same float64 kernels; their own rounding adds ~1e-12 relative, covered by a
  * 1e-9 slack.
  */
+import { spawn } from 'node:child_process';
+import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import { connect } from '@nats-io/transport-node';
 import { loadGeometry } from '../../server/config/array-file.ts';
@@ -25,7 +27,7 @@ import { Engine, type EngineRow } from '../../server/engine/engine.ts';
 import type { ProcessingParams } from '../../server/engine/params.ts';
 import { RemoteWorker } from '../../server/cluster/remote-worker.ts';
 import { encodeJson, HopBatchWriter, hopsSubject, partsSubject, workerSubject, type RemotePlan } from '../../server/cluster/remote-wire.ts';
-import type { RemoteBins } from '../../server/cluster/remote-bins.ts';
+import { RemoteBins } from '../../server/cluster/remote-bins.ts';
 import type { Block } from '../../shared/types.ts';
 import { natsAvailable, startBroker, type TestBroker } from '../helpers/nats-server.ts';
 import { planarBlocks, renderPlaneWaves } from '../helpers/plane-waves.ts';
@@ -35,6 +37,7 @@ import { getStatus, startTestService, waitFor } from '../helpers/service.ts';
 vi.setConfig({ testTimeout: 120_000 });
 
 const ARRAYS = new URL('../../config/arrays/', import.meta.url).pathname;
+const CLI = fileURLToPath(new URL('../../bin/nullsteer.mjs', import.meta.url));
 const FS = 48000;
 const N = 512;
 const U = 2 ** -24;
@@ -311,6 +314,23 @@ describeNats('remote bin workers on a real broker', () => {
     } finally {
       await feed.stop();
       await e.close();
+    }
+  });
+
+  it('worker --threads 2: two workers to the engines (NAME/1, NAME/2), each with its own connection; SIGTERM says goodbye', async () => {
+    const child = spawn(process.execPath, [CLI, 'worker', '--nats', broker.url, '--threads', '2', '--name', 'rack-b'], { stdio: ['ignore', 'pipe', 'pipe'] });
+    const remote = RemoteBins.start({ natsUrl: broker.url, deadlineMs: 250, dropMs: 750 });
+    try {
+      await remote.ready;
+      await waitFor(() => remote.candidates().filter((c) => c.name.startsWith('rack-b/')).length === 2, 30_000, 'rack-b/1 and rack-b/2');
+      expect(remote.candidates().map((c) => c.name).filter((n) => n.startsWith('rack-b/')).sort()).toEqual(['rack-b/1', 'rack-b/2']);
+      child.kill('SIGTERM');
+      await new Promise((r) => child.once('exit', r));
+      const st = () => (remote.status(0) as { workers: { name: string; state: string }[] }).workers.filter((w) => w.name.startsWith('rack-b/'));
+      await waitFor(() => st().every((w) => w.state === 'lost'), 10_000, 'both said goodbye');
+    } finally {
+      if (child.exitCode === null) child.kill('SIGKILL');
+      await remote.close();
     }
   });
 
