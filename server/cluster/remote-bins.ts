@@ -96,6 +96,7 @@ export class RemoteBins {
   #subs: Subscription[] = [];
   #members = new Map<string, RemoteMember>();
   #parts: RemotePartState[] = [];
+  #considered = new Set<string>();
   #epoch = 0;
   #events: RemoteEvents | null = null;
   #scratch = new AlignedScratch();
@@ -194,6 +195,7 @@ export class RemoteBins {
     if (m.lostUntilMs > now) return;
     m.lostUntilMs = now + LOST_COOLDOWN_MS;
     m.lostReason = reason;
+    this.#considered.delete(m.id);
     const inPlan = this.#parts.some((p) => p.memberId === m.id);
     this.opts.log?.(`remote worker ${m.name} (${m.id}) lost: ${reason}`);
     if (inPlan) this.#events?.onMembership(`remote worker ${m.name} lost: ${reason}`, true);
@@ -217,8 +219,8 @@ export class RemoteBins {
       const m = this.#members.get(p.memberId);
       if (m && p.missedSinceMs !== null && now - p.missedSinceMs > this.opts.dropMs) this.#lose(m, `no answer for ${Math.round(now - p.missedSinceMs + this.opts.deadlineMs)} ms`);
     }
-    // A usable worker not in the plan: a re-plan would take it (the engine limits how often).
-    const joinable = this.candidates().some((c) => !this.#parts.some((p) => p.memberId === c.id));
+    // A usable worker the plan in force did not weigh: a re-plan would take it (the engine limits how often).
+    const joinable = this.candidates().some((c) => !this.#considered.has(c.id) && !this.#parts.some((p) => p.memberId === c.id));
     if (joinable) this.#events?.onMembership('a remote worker joined', false);
     if (now - this.#bytesWindow.atMs >= 1000) {
       const dt = (now - this.#bytesWindow.atMs) / 1000;
@@ -273,8 +275,12 @@ export class RemoteBins {
   }
 
   /** The parts of the plan in force (after the engine committed `epoch`); workers left out are released. */
-  commit(epoch: number, parts: { part: number; memberId: string; firstBin: number; bins: number; offsetDoubles: number }[], channels: number, limits: { maxDirections: number; maxWeightsPerBeam: number }): void {
+  commit(epoch: number, parts: { part: number; memberId: string; firstBin: number; bins: number; offsetDoubles: number }[], channels: number, limits: { maxDirections: number; maxWeightsPerBeam: number }, considered: readonly string[]): void {
     const before = new Set(this.#parts.map((p) => p.memberId));
+    // Workers this plan weighed and left out (no bins left for them) do not ask for a re-plan again
+    // (a worker lost meanwhile is weighed again when its cool-down ends).
+    const now0 = performance.now();
+    this.#considered = new Set(considered.filter((id) => !((this.#members.get(id)?.lostUntilMs ?? 0) > now0)));
     this.#epoch = epoch;
     this.#limits = limits;
     const now = performance.now();

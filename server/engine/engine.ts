@@ -283,7 +283,7 @@ export class Engine {
     this.#lastBusy = Array(W).fill(0);
     this.#pool.commit(plan.epoch);
     if (this.#remote) {
-      commitRemote(this.#remote, plan, built.members, this.#pool.size, M);
+      commitRemote(this.#remote, plan, built.members, built.considered, this.#pool.size, M);
       this.replans++;
       if (reason) {
         // Every bin starts from an empty covariance in the new plan (the bias-corrected start).

@@ -99,11 +99,13 @@ export async function preparePlan(a: {
   remote: RemoteBins | null;
   previous: Plan | undefined;
   timeoutMs: number;
-}): Promise<{ plan: Plan; members: RemoteMember[] }> {
+}): Promise<{ plan: Plan; members: RemoteMember[]; considered: string[] }> {
   const L = a.pool.size;
   const M = a.input.positions.length;
   const remote = a.remote;
-  let members = remote ? remote.candidates().slice(0, Math.max(0, a.input.band.count - L)) : [];
+  const all = remote ? remote.candidates() : [];
+  const considered = all.map((m) => m.id);
+  let members = all.slice(0, Math.max(0, a.input.band.count - L));
   for (;;) {
     const cap = remote && members.length ? remote.maxBinsPerPart(M, a.input.baseGrid.count) : 0;
     const weighted = members.length ? { weights: partWeights(a.previous, L, members), caps: [...new Array<number>(L).fill(Infinity), ...members.map(() => cap)] } : {};
@@ -115,19 +117,19 @@ export async function preparePlan(a: {
     }
     const asks = members.map((m, i) => ({ memberId: m.id, plan: remotePlan(remote!.engineId, messages[L + i]) }));
     const [, r] = await Promise.all([a.pool.prepare(messages.slice(0, L), a.timeoutMs), remote && asks.length ? remote.prepare(asks) : { failed: [] as string[] }]);
-    if (r.failed.length === 0) return { plan, members };
+    if (r.failed.length === 0) return { plan, members, considered };
     members = members.filter((m) => !r.failed.includes(m.id));
   }
 }
 
 /** After the pool committed `plan`: its remote parts become the ones in force. */
-export function commitRemote(remote: RemoteBins, plan: Plan, members: readonly RemoteMember[], localThreads: number, channels: number): void {
+export function commitRemote(remote: RemoteBins, plan: Plan, members: readonly RemoteMember[], considered: readonly string[], localThreads: number, channels: number): void {
   const parts = members.map((m, i) => {
     const r = plan.ranges[localThreads + i];
     const firstBin = plan.startBin + r.start;
     return { part: localThreads + i, memberId: m.id, firstBin, bins: r.count, offsetDoubles: 2 * channels * firstBin };
   });
-  remote.commit(plan.epoch, parts, channels, { maxDirections: plan.resultDirections, maxWeightsPerBeam: plan.weightDoubles });
+  remote.commit(plan.epoch, parts, channels, { maxDirections: plan.resultDirections, maxWeightsPerBeam: plan.weightDoubles }, considered);
 }
 
 /**

@@ -317,6 +317,22 @@ describeNats('remote bin workers on a real broker', () => {
     }
   });
 
+  it('workers a plan has no bins for do not make the engine re-plan over and over', async () => {
+    const remote = await remoteWith(broker.url, 2);
+    const e = await Engine.create({ geometry: await loadGeometry(`${ARRAYS}ring-24.json`), sampleRateHz: FS, params: params({ bandHz: [1000, 1100] }), workers: 1, speedOfSoundMps: 343.2, shedding: false, onRow: () => {}, remote });
+    try {
+      const st = () => e.status() as unknown as RemoteStatus & { bins: number };
+      expect(st().bins).toBe(1);
+      expect(st().perWorker).toHaveLength(1);
+      // Past the join re-plan limit (3 s) twice over: still the first plan.
+      await new Promise((r) => setTimeout(r, 6500));
+      expect(st().remote.replans).toBe(1);
+      expect(st().remote.workers.filter((w) => w.state === 'joining')).toHaveLength(2);
+    } finally {
+      await e.close();
+    }
+  });
+
   it('worker --threads 2: two workers to the engines (NAME/1, NAME/2), each with its own connection; SIGTERM says goodbye', async () => {
     const child = spawn(process.execPath, [CLI, 'worker', '--nats', broker.url, '--threads', '2', '--name', 'rack-b'], { stdio: ['ignore', 'pipe', 'pipe'] });
     const remote = RemoteBins.start({ natsUrl: broker.url, deadlineMs: 250, dropMs: 750 });
