@@ -25,6 +25,13 @@ export interface BinProcessorOptions {
    * runs the plain float64 kernels, which are the reference the fast paths are tested against.
    */
   fast?: boolean;
+  /**
+   * With `fast`: 'f32' (default) runs the MVDR scan's bins that are within the stated error bound
+   * (mvdr-scan.ts float32RelativeBound ≤ FLOAT32_RELATIVE_LIMIT) and the conventional tracker's
+   * inner products in single precision (f32x4, twice the directions per instruction; errors
+   * derived in mvdr-scan.ts and conventional-tracker.ts); 'f64' keeps the fast kernels in float64.
+   */
+  precision?: 'f64' | 'f32';
 }
 
 export const SCAN_CONVENTIONAL = 1;
@@ -44,7 +51,11 @@ export class BinProcessor {
 
   async #buildFast(): Promise<void> {
     const table = this.#table;
-    const [tracker, mvdr] = await Promise.all([ConventionalTracker.create(table), FastMvdrScanner.create(table)]);
+    const precision = this.#opts.precision ?? 'f32';
+    const [tracker, mvdr] = await Promise.all([
+      ConventionalTracker.create(table, 0, table.bins, precision),
+      FastMvdrScanner.create(table, 0, table.bins, { precision }),
+    ]);
     if (table !== this.#table) return; // a newer grid won the race; it builds its own
     // Synchronous from here: no hop runs between seeding and installing.
     tracker.setMask(this.#active);
@@ -159,6 +170,11 @@ export class BinProcessor {
       this.reset();
       this.covarianceResets++;
     }
+  }
+
+  /** MVDR bins scanned in single precision (within the error bound) so far, by this grid's scanner. */
+  get float32Bins(): number {
+    return this.#fastMvdr?.float32Bins ?? 0;
   }
 
   /** Bins left MVDR power 0 because R + δI did not factor, over every scan so far. */

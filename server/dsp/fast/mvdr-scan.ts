@@ -25,10 +25,53 @@ import { InverseCholesky } from './inverse-factor.ts';
 import { mvdrBlocksK2, mvdrBlocksK4 } from './mvdr-kernels-js.ts';
 import { fillPlanar, planarLayout, type PlanarLayout } from './planar-steering.ts';
 import { instantiateKernels, WASM_BLOCK_SIZES, type WasmBlockSize, type WasmKernelExports } from './wasm-kernels.ts';
+import { instantiateKernelsF32, WASM_F32_BLOCK_SIZES, type WasmF32BlockSize, type WasmF32KernelExports } from './wasm-kernels-f32.ts';
+
+/** Unit roundoff of float32, 2⁻²⁴. */
+export const FLOAT32_UNIT_ROUNDOFF = 2 ** -24;
+
+/**
+ * Largest relative error bound (see {@link float32RelativeBound}) at which a bin is scanned by the
+ * single-precision kernel; a bin whose bound is larger is scanned in float64. 1e-2 is 0.043 dB.
+ */
+export const FLOAT32_RELATIVE_LIMIT = 1e-2;
+
+/**
+ * A bound on the relative error of q = ‖W v‖² = vᴴ(R + δI)⁻¹v computed by the single-precision
+ * kernel (W and v rounded to float32, inner products in float32, |y_i|² widened to float64 and
+ * summed there), for every direction of one bin:
+ *
+ *   |q̂ − q| / q ≤ (1 + ερ)²(1 + γ₂) − 1,   ε = √2·γ_{m+4},   ρ = ‖W‖_F · √(tr R + δ),
+ *
+ * γ_n = nu/(1 − nu), u = 2⁻²⁴ (N. J. Higham, Accuracy and Stability of Numerical Algorithms, 2nd
+ * ed., §3.1 inner products, §3.6 complex arithmetic: |fl(xy) − xy| ≤ √2γ₂|x||y|). Derivation: each
+ * ŷ_i = y_i + e_i with |e_i| ≤ ε(|W||v|)_i (rounding W and v to float32: 2u; the complex product:
+ * √2γ₂; the sum of ≤ m terms: γ_m — all within √2γ_{m+4}), so ‖e‖ ≤ ε‖|W||v|‖ ≤ ε‖W‖_F‖v‖; and
+ * ‖y‖² = q ≥ ‖v‖²/λ_max(R + δI) ≥ ‖v‖²/(tr R + δ) (R ⪰ 0), so ‖e‖ ≤ ερ‖y‖ and
+ * |‖y + e‖² − ‖y‖²| ≤ (2ερ + ε²ρ²)q; γ₂ covers |ŷ_i|² formed in float32. ρ is at most
+ * √(m(tr R + δ)/δ) (each eigenvalue of R + δI is ≥ δ), i.e. 10·m for relative loading 0.01 — the
+ * bound then is 7·10⁻³ for m = 64 — and about m for a noise-like R.
+ * @param wFrobenius2 ‖W‖_F² = tr (R + δI)⁻¹, summed while W is converted
+ */
+export function float32RelativeBound(m: number, wFrobenius2: number, traceR: number, delta: number): number {
+  const u = FLOAT32_UNIT_ROUNDOFF;
+  const gamma = (n: number) => (n * u) / (1 - n * u);
+  const eps = Math.SQRT2 * gamma(m + 4);
+  const rho = Math.sqrt(wFrobenius2 * (traceR + delta));
+  return (1 + eps * rho) ** 2 * (1 + gamma(2)) - 1;
+}
 
 export type MvdrBackend = 'wasm' | 'js';
 
 export interface FastMvdrOptions {
+  /**
+   * 'f64' (default): float64 throughout. 'f32' (wasm only): bins whose error bound
+   * ({@link float32RelativeBound}) is at most {@link FLOAT32_RELATIVE_LIMIT} run the f32x4 kernel
+   * (twice the directions per instruction), the others the float64 kernel.
+   */
+  precision?: 'f64' | 'f32';
+  /** Directions per block of the f32x4 kernel: 4, 8 or 12 (default 8). */
+  blockSizeF32?: number;
   /** 'wasm' (default): WebAssembly SIMD; 'js': plain JavaScript over the same layout. */
   backend?: MvdrBackend;
   /** Directions per block K: wasm 2, 4, 6 or 8 (default 4); js 2 or 4 (default 4). */
@@ -138,6 +181,72 @@ class WasmKernel implements BatchKernel {
   }
 }
 
+/** The f32x4 MVDR kernel (wasm-kernels-f32.ts) over a float32 block-planar copy of the slice. */
+class WasmF32Kernel {
+  readonly k: number;
+  readonly q: Float64Array;
+  readonly #layout: PlanarLayout;
+  readonly #exp: WasmF32KernelExports;
+  readonly #heapF32: Float32Array;
+  readonly #heapI32: Int32Array;
+  readonly #wPtr: number;
+  readonly #rowsPtr: number;
+  readonly #qPtr: number;
+  readonly #vPtr: number;
+
+  /** Memory map (bytes, 16-aligned): W (M(M+1) floats) | rows (M i32) | q (blocks·K doubles) | planar table (float32). */
+  static bytesFor(layout: PlanarLayout): { wPtr: number; rowsPtr: number; qPtr: number; vPtr: number; total: number } {
+    const align = (x: number) => Math.ceil(x / 16) * 16;
+    const m = layout.channels;
+    const wPtr = 0;
+    const rowsPtr = align(wPtr + 4 * m * (m + 1));
+    const qPtr = align(rowsPtr + 4 * m);
+    const vPtr = align(qPtr + 8 * layout.blocks * layout.k);
+    return { wPtr, rowsPtr, qPtr, vPtr, total: vPtr + 4 * layout.binsCount * layout.binStride };
+  }
+
+  constructor(table: SteeringTable, layout: PlanarLayout, exp: WasmF32KernelExports) {
+    this.k = layout.k;
+    this.#layout = layout;
+    this.#exp = exp;
+    const map = WasmF32Kernel.bytesFor(layout);
+    const buffer = exp.memory.buffer;
+    if (buffer.byteLength < map.total) throw new RangeError(`wasm memory holds ${buffer.byteLength} bytes, needs ${map.total}`);
+    this.#heapF32 = new Float32Array(buffer);
+    this.#heapI32 = new Int32Array(buffer);
+    this.#wPtr = map.wPtr;
+    this.#rowsPtr = map.rowsPtr;
+    this.#qPtr = map.qPtr;
+    this.#vPtr = map.vPtr;
+    fillPlanar(this.#heapF32, map.vPtr / 4, table, layout);
+    this.q = new Float64Array(buffer, map.qPtr, layout.blocks * layout.k);
+  }
+
+  /** Loads W rounded to float32; returns ‖W‖_F² (of the float64 W) for the error bound. */
+  setFactor(w: Float64Array, m: number): number {
+    const h = this.#heapF32;
+    const base = this.#wPtr / 4;
+    const n = m * (m + 1);
+    let f2 = 0;
+    for (let i = 0; i < n; i++) {
+      const x = w[i];
+      h[base + i] = x;
+      f2 += x * x;
+    }
+    return f2;
+  }
+
+  setRows(active: Int32Array): void {
+    const base = this.#rowsPtr / 4;
+    for (let j = 0; j < active.length; j++) this.#heapI32[base + j] = active[j] * 8 * this.k;
+  }
+
+  run(lb: number, m: number): void {
+    const L = this.#layout;
+    this.#exp.mvdr(this.#wPtr, this.#rowsPtr, m, this.#vPtr + 4 * lb * L.binStride, L.blocks, 4 * L.blockStride, this.#qPtr);
+  }
+}
+
 /**
  * MVDR spectra of bins binsStart … binsStart + binsCount − 1 of a steering table. Plan once per
  * table (the planar copy costs binsCount·D·M·16 bytes, as much as that part of the table); solvers
@@ -152,7 +261,13 @@ export class FastMvdrScanner {
   /** Which kernel runs, and its block size K. */
   readonly backend: MvdrBackend;
   readonly blockSize: number;
+  /** 'f32' when the single-precision kernel may run (bins within the bound), else 'f64'. */
+  readonly precision: 'f64' | 'f32';
+  /** Bins scanned by the float32 kernel and by a float64 one, over every scan so far. */
+  float32Bins = 0;
+  float64Bins = 0;
   readonly #kernel: BatchKernel;
+  readonly #kernel32: WasmF32Kernel | null;
   #m = -1;
   #activeSeen: Int32Array | null = null;
   #sub = new Float64Array(0);
@@ -161,7 +276,9 @@ export class FastMvdrScanner {
   #loader!: LoadingSolver;
   readonly #loadResult: LoadingResult = createLoadingResult();
 
-  private constructor(table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel) {
+  private constructor(table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel, kernel32: WasmF32Kernel | null = null) {
+    this.#kernel32 = kernel32;
+    this.precision = kernel32 === null ? 'f64' : 'f32';
     this.table = table;
     this.binsStart = layout.binsStart;
     this.binsCount = layout.binsCount;
@@ -189,9 +306,21 @@ export class FastMvdrScanner {
     if (!(WASM_BLOCK_SIZES as readonly number[]).includes(k)) {
       throw new RangeError(`wasm blockSize must be one of ${WASM_BLOCK_SIZES.join(', ')}, got ${k}`);
     }
+    const precision = options.precision ?? 'f64';
+    if (precision !== 'f64' && precision !== 'f32') throw new TypeError(`precision must be 'f64' or 'f32', got ${JSON.stringify(precision)}`);
     const layout = planarLayout(table, binsStart, binsCount, k);
     const exp = await instantiateKernels(k as WasmBlockSize, WasmKernel.bytesFor(layout).total);
-    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp));
+    let kernel32: WasmF32Kernel | null = null;
+    if (precision === 'f32') {
+      const k32 = options.blockSizeF32 ?? 8;
+      if (!(WASM_F32_BLOCK_SIZES as readonly number[]).includes(k32)) {
+        throw new RangeError(`wasm blockSizeF32 must be one of ${WASM_F32_BLOCK_SIZES.join(', ')}, got ${k32}`);
+      }
+      const layout32 = planarLayout(table, binsStart, binsCount, k32);
+      const exp32 = await instantiateKernelsF32(k32 as WasmF32BlockSize, WasmF32Kernel.bytesFor(layout32).total);
+      kernel32 = new WasmF32Kernel(table, layout32, exp32);
+    }
+    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp), kernel32);
   }
 
   /** Synchronous plan of the plain-JavaScript backend (block size 2 or 4). */
@@ -212,6 +341,7 @@ export class FastMvdrScanner {
     }
     if (active !== this.#activeSeen) {
       this.#kernel.setRows(active);
+      this.#kernel32?.setRows(active);
       this.#activeSeen = active;
     }
   }
@@ -263,12 +393,13 @@ export class FastMvdrScanner {
     const m = active.length;
     const sub = this.#sub;
     const kernel = this.#kernel;
-    const q = kernel.q;
+    const kernel32 = this.#kernel32;
     for (let lb = 0; lb < B; lb++) {
       bank.gather(lb, sub);
+      const traceR = hermitianTrace(sub, 0, m);
       if (singular !== null) {
         // tr(R)/M = 0 (or not finite): the bin carries no usable signal; nothing to level or factor.
-        const mean = hermitianTrace(sub, 0, m) / m;
+        const mean = traceR / m;
         if (!(mean > 0 && mean < Infinity)) {
           singular[lb] = 1;
           out.fill(0, lb * D, (lb + 1) * D);
@@ -298,8 +429,17 @@ export class FastMvdrScanner {
           continue;
         }
       } else this.#inv.factor(sub, 0, delta);
-      kernel.setFactor(this.#inv.inverse, m);
-      kernel.run(lb, m);
+      let q: Float64Array;
+      if (kernel32 !== null && float32RelativeBound(m, kernel32.setFactor(this.#inv.inverse, m), traceR, delta) <= FLOAT32_RELATIVE_LIMIT) {
+        kernel32.run(lb, m);
+        q = kernel32.q;
+        this.float32Bins++;
+      } else {
+        kernel.setFactor(this.#inv.inverse, m);
+        kernel.run(lb, m);
+        q = kernel.q;
+        this.float64Bins++;
+      }
       const o = lb * D;
       for (let d = 0; d < D; d++) out[o + d] = 1 / q[d];
     }
