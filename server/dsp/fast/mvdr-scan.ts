@@ -37,28 +37,32 @@ export const FLOAT32_UNIT_ROUNDOFF = 2 ** -24;
 export const FLOAT32_RELATIVE_LIMIT = 1e-2;
 
 /**
- * A bound on the relative error of q = ‖W v‖² = vᴴ(R + δI)⁻¹v computed by the single-precision
- * kernel (W and v rounded to float32, inner products in float32, |y_i|² widened to float64 and
- * summed there), for every direction of one bin:
+ * A bound on the relative error of q = vᴴ(R + δI)⁻¹v = ‖y‖², L y = v, computed by the
+ * single-precision kernel (L = the Cholesky factor of R + δI and v rounded to float32, the forward
+ * substitution blocked over K directions in float32, |y_i|² widened to float64 and summed there),
+ * for every direction of one bin:
  *
- *   |q̂ − q| / q ≤ (1 + ερ)²(1 + γ₂) − 1,   ε = √2·γ_{m+4},   ρ = ‖W‖_F · √(tr R + δ),
+ *   |q̂ − q| / q ≤ (1 + θ)²(1 + γ₂) − 1,   θ = ερ/(1 − ερ),   ε = √2·γ_{m+4},
+ *   ρ = √(tr(R + δI) / δ),   γ_n = nu/(1 − nu),   u = 2⁻²⁴.
  *
- * γ_n = nu/(1 − nu), u = 2⁻²⁴ (N. J. Higham, Accuracy and Stability of Numerical Algorithms, 2nd
- * ed., §3.1 inner products, §3.6 complex arithmetic: |fl(xy) − xy| ≤ √2γ₂|x||y|). Derivation: each
- * ŷ_i = y_i + e_i with |e_i| ≤ ε(|W||v|)_i (rounding W and v to float32: 2u; the complex product:
- * √2γ₂; the sum of ≤ m terms: γ_m — all within √2γ_{m+4}), so ‖e‖ ≤ ε‖|W||v|‖ ≤ ε‖W‖_F‖v‖; and
- * ‖y‖² = q ≥ ‖v‖²/λ_max(R + δI) ≥ ‖v‖²/(tr R + δ) (R ⪰ 0), so ‖e‖ ≤ ερ‖y‖ and
- * |‖y + e‖² − ‖y‖²| ≤ (2ερ + ε²ρ²)q; γ₂ covers |ŷ_i|² formed in float32. ρ is at most
- * √(m(tr R + δ)/δ) (each eigenvalue of R + δI is ≥ δ), i.e. 10·m for relative loading 0.01 — the
- * bound then is 7·10⁻³ for m = 64 — and about m for a noise-like R.
- * @param wFrobenius2 ‖W‖_F² = tr (R + δI)⁻¹, summed while W is converted
+ * Derivation (N. J. Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., Thm 8.5:
+ * substitution gives (L + ΔL)ŷ = v with |ΔL| ≤ γ_m|L|; §3.6: complex arithmetic costs a factor √2
+ * and two more units): rounding L and v to float32 and the substitution are all covered by
+ * ŷ − y = W(Δv − ΔL ŷ), |ΔL| ≤ ε|L|, |Δv| ≤ u|v|, W = L⁻¹; with ‖v‖ ≤ ‖L‖₂‖y‖,
+ * ‖|L|‖₂ ≤ ‖L‖_F = √tr(R + δI) and ‖W‖₂ = λ_min(R + δI)^(−1/2) ≤ δ^(−1/2), this gives
+ * ‖ŷ − y‖ ≤ θ‖y‖, so |‖ŷ‖² − ‖y‖²| ≤ (2θ + θ²)q; γ₂ covers |ŷ_i|² formed in float32. With relative
+ * loading δ = r·tr R/m, ρ = √(m(1 + r)/r): ≈ 10√m for r = 0.01, bound ≈ 1.7·10⁻⁶·m^1.5 (1.1·10⁻³ at
+ * m = 64, 1.6·10⁻³ at m = 96). No loading (δ = 0): no bound (Infinity), the bin runs in float64.
  */
-export function float32RelativeBound(m: number, wFrobenius2: number, traceR: number, delta: number): number {
+export function float32RelativeBound(m: number, traceR: number, delta: number): number {
+  if (!(delta > 0)) return Infinity;
   const u = FLOAT32_UNIT_ROUNDOFF;
   const gamma = (n: number) => (n * u) / (1 - n * u);
   const eps = Math.SQRT2 * gamma(m + 4);
-  const rho = Math.sqrt(wFrobenius2 * (traceR + delta));
-  return (1 + eps * rho) ** 2 * (1 + gamma(2)) - 1;
+  const rho = Math.sqrt((traceR + m * delta) / delta);
+  if (!(eps * rho < 1)) return Infinity;
+  const theta = (eps * rho) / (1 - eps * rho);
+  return (1 + theta) ** 2 * (1 + gamma(2)) - 1;
 }
 
 export type MvdrBackend = 'wasm' | 'js';
@@ -66,8 +70,9 @@ export type MvdrBackend = 'wasm' | 'js';
 export interface FastMvdrOptions {
   /**
    * 'f64' (default): float64 throughout. 'f32' (wasm only): bins whose error bound
-   * ({@link float32RelativeBound}) is at most {@link FLOAT32_RELATIVE_LIMIT} run the f32x4 kernel
-   * (twice the directions per instruction), the others the float64 kernel.
+   * ({@link float32RelativeBound}) is at most {@link FLOAT32_RELATIVE_LIMIT} run the f32x4
+   * forward-substitution kernel (twice the directions per instruction, and no L⁻¹ to form), the
+   * others the float64 kernel.
    */
   precision?: 'f64' | 'f32';
   /** Directions per block of the f32x4 kernel: 4, 8 or 12 (default 8). */
@@ -181,7 +186,10 @@ class WasmKernel implements BatchKernel {
   }
 }
 
-/** The f32x4 MVDR kernel (wasm-kernels-f32.ts) over a float32 block-planar copy of the slice. */
+/**
+ * The f32x4 MVDR kernel (wasm-kernels-f32.ts `solve`: forward substitution blocked over K
+ * directions) over a float32 block-planar copy of the slice. Needs only L, not W = L⁻¹.
+ */
 class WasmF32Kernel {
   readonly k: number;
   readonly q: Float64Array;
@@ -189,20 +197,22 @@ class WasmF32Kernel {
   readonly #exp: WasmF32KernelExports;
   readonly #heapF32: Float32Array;
   readonly #heapI32: Int32Array;
-  readonly #wPtr: number;
+  readonly #lPtr: number;
   readonly #rowsPtr: number;
   readonly #qPtr: number;
+  readonly #yPtr: number;
   readonly #vPtr: number;
 
-  /** Memory map (bytes, 16-aligned): W (M(M+1) floats) | rows (M i32) | q (blocks·K doubles) | planar table (float32). */
-  static bytesFor(layout: PlanarLayout): { wPtr: number; rowsPtr: number; qPtr: number; vPtr: number; total: number } {
+  /** Memory map (bytes, 16-aligned): L (M(M+1) floats) | rows (M i32) | q (blocks·K doubles) | y (M·2K floats) | planar table (float32). */
+  static bytesFor(layout: PlanarLayout): { lPtr: number; rowsPtr: number; qPtr: number; yPtr: number; vPtr: number; total: number } {
     const align = (x: number) => Math.ceil(x / 16) * 16;
     const m = layout.channels;
-    const wPtr = 0;
-    const rowsPtr = align(wPtr + 4 * m * (m + 1));
+    const lPtr = 0;
+    const rowsPtr = align(lPtr + 4 * m * (m + 1));
     const qPtr = align(rowsPtr + 4 * m);
-    const vPtr = align(qPtr + 8 * layout.blocks * layout.k);
-    return { wPtr, rowsPtr, qPtr, vPtr, total: vPtr + 4 * layout.binsCount * layout.binStride };
+    const yPtr = align(qPtr + 8 * layout.blocks * layout.k);
+    const vPtr = align(yPtr + 8 * m * layout.k);
+    return { lPtr, rowsPtr, qPtr, yPtr, vPtr, total: vPtr + 4 * layout.binsCount * layout.binStride };
   }
 
   constructor(table: SteeringTable, layout: PlanarLayout, exp: WasmF32KernelExports) {
@@ -214,26 +224,26 @@ class WasmF32Kernel {
     if (buffer.byteLength < map.total) throw new RangeError(`wasm memory holds ${buffer.byteLength} bytes, needs ${map.total}`);
     this.#heapF32 = new Float32Array(buffer);
     this.#heapI32 = new Int32Array(buffer);
-    this.#wPtr = map.wPtr;
+    this.#lPtr = map.lPtr;
     this.#rowsPtr = map.rowsPtr;
     this.#qPtr = map.qPtr;
+    this.#yPtr = map.yPtr;
     this.#vPtr = map.vPtr;
     fillPlanar(this.#heapF32, map.vPtr / 4, table, layout);
     this.q = new Float64Array(buffer, map.qPtr, layout.blocks * layout.k);
   }
 
-  /** Loads W rounded to float32; returns ‖W‖_F² (of the float64 W) for the error bound. */
-  setFactor(w: Float64Array, m: number): number {
+  /** Loads L rounded to float32, its diagonal slots replaced by 1/L_ii. */
+  setFactor(l: Float64Array, invDiag: Float64Array, m: number): void {
     const h = this.#heapF32;
-    const base = this.#wPtr / 4;
-    const n = m * (m + 1);
-    let f2 = 0;
-    for (let i = 0; i < n; i++) {
-      const x = w[i];
-      h[base + i] = x;
-      f2 += x * x;
+    const base = this.#lPtr / 4;
+    for (let i = 0, o = 0; i < m; i++) {
+      const end = o + 2 * i;
+      for (; o < end; o++) h[base + o] = l[o];
+      h[base + o] = invDiag[i];
+      h[base + o + 1] = 0;
+      o += 2;
     }
-    return f2;
   }
 
   setRows(active: Int32Array): void {
@@ -243,7 +253,7 @@ class WasmF32Kernel {
 
   run(lb: number, m: number): void {
     const L = this.#layout;
-    this.#exp.mvdr(this.#wPtr, this.#rowsPtr, m, this.#vPtr + 4 * lb * L.binStride, L.blocks, 4 * L.blockStride, this.#qPtr);
+    this.#exp.solve(this.#lPtr, this.#rowsPtr, m, this.#vPtr + 4 * lb * L.binStride, L.blocks, 4 * L.blockStride, this.#qPtr, this.#yPtr);
   }
 }
 
@@ -346,10 +356,10 @@ export class FastMvdrScanner {
     }
   }
 
-  /** Factor R + δI; false when it does not factor. */
-  #tryFactor(sub: Float64Array, delta: number): boolean {
+  /** Factor R + δI (and invert it unless told not to); false when it does not factor. */
+  #tryFactor(sub: Float64Array, delta: number, invert: boolean): boolean {
     try {
-      this.#inv.factor(sub, 0, delta);
+      this.#inv.factor(sub, 0, delta, invert);
       return true;
     } catch (e) {
       if (e instanceof NotPositiveDefiniteError) return false;
@@ -421,16 +431,19 @@ export class FastMvdrScanner {
         delta = this.#loader.level(sub, 0, loading);
       }
       if (deltaOut !== null) deltaOut[lb] = delta;
+      // Single precision needs only L; W = L⁻¹ is formed for the float64 kernel alone.
+      const single = kernel32 !== null && float32RelativeBound(m, traceR, delta) <= FLOAT32_RELATIVE_LIMIT;
       if (singular !== null) {
         singular[lb] = 0;
-        if (!this.#tryFactor(sub, delta)) {
+        if (!this.#tryFactor(sub, delta, !single)) {
           singular[lb] = 1;
           out.fill(0, lb * D, (lb + 1) * D);
           continue;
         }
-      } else this.#inv.factor(sub, 0, delta);
+      } else this.#inv.factor(sub, 0, delta, !single);
       let q: Float64Array;
-      if (kernel32 !== null && float32RelativeBound(m, kernel32.setFactor(this.#inv.inverse, m), traceR, delta) <= FLOAT32_RELATIVE_LIMIT) {
+      if (single) {
+        kernel32.setFactor(this.#inv.lower, this.#inv.invDiag, m);
         kernel32.run(lb, m);
         q = kernel32.q;
         this.float32Bins++;

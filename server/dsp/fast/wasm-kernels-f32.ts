@@ -4,13 +4,17 @@
  * conj(x), and the block-planar steering copy) are float32; the per-row sums |y|² are widened to
  * float64 (f64x2.promote_low_f32x4) before they are added up or folded into the recursion, so only
  * the length-≤M inner products are rounded to single precision. The error this costs, and when the
- * callers fall back to the float64 kernels, is derived in mvdr-scan.ts (FLOAT32_RELATIVE_BOUND)
- * and conventional-tracker.ts. Instruction semantics: WebAssembly Core Specification 2.0, §4.4.3.
+ * callers fall back to the float64 kernels, is derived in mvdr-scan.ts (float32RelativeBound)
+ * and conventional-tracker.ts (TrackerPrecision). Instruction semantics: WebAssembly Core Specification 2.0, §4.4.3.
  *
  * Layout (planar-steering.ts, float32 edition `fillPlanar32`): a block of K directions is an
  * M×2K slab of float32, channel m holding K real parts then K imaginary parts; W packed by rows,
  * interleaved complex float32 (8 bytes per entry). Exports, pointers are byte offsets:
- *  - mvdr(w, rows, m, v, blocks, blockBytes, out): out[d] (float64) = Σ_{i<m} |Σ_{j≤i} W_ij v_d[row j]|²
+ *  - solve(l, rows, m, v, blocks, blockBytes, out, ys): the MVDR form without the inverse factor —
+ *      forward substitution L y = v_d for the K directions of a block at once (the triangular solve
+ *      blocked over directions), out[d] (float64) = ‖y‖² = vᴴ(L Lᴴ)⁻¹v. L packed by rows,
+ *      interleaved complex float32, its diagonal slots holding 1/L_ii (real); ys: scratch of m·8K
+ *      bytes for the block's y (same slab layout as the table, row i at i·8K)
  *  - conv(w, rows, m, v, blocks, blockBytes, p, keep, scale): y_d = Σ_{j<m} w_j v_d[row j],
  *      p[d] (float64) ← keep·p[d] + scale·|y_d|²
  * rows: m i32 byte offsets inside a block of the channel used as row j (active[j]·8K).
@@ -23,7 +27,7 @@ export type WasmF32BlockSize = (typeof WASM_F32_BLOCK_SIZES)[number];
 
 export interface WasmF32KernelExports {
   memory: WasmMemory;
-  mvdr(w: number, rows: number, m: number, v: number, blocks: number, blockBytes: number, out: number): void;
+  solve(l: number, rows: number, m: number, v: number, blocks: number, blockBytes: number, out: number, ys: number): void;
   conv(
     w: number, rows: number, m: number, v: number, blocks: number, blockBytes: number,
     p: number, keep: number, scale: number,
@@ -75,8 +79,8 @@ export function kernelWatF32(k: WasmF32BlockSize): string {
   const power = per((u) => set(`t${u}`, add(mul(get(`yr${u}`), get(`yr${u}`)), mul(get(`yi${u}`), get(`yi${u}`)))));
   return `(module
   (memory (export "memory") 1)
-  (func (export "mvdr") (param $w i32) (param $rows i32) (param $m i32) (param $v i32) (param $nb i32) (param $bs i32) (param $out i32)
-    ${common} (local $i i32) (local $ob i32) ${vecLocals(per((u) => `ql${u} qh${u}`).split(/\s+/))}
+  (func (export "solve") (param $l i32) (param $rows i32) (param $m i32) (param $v i32) (param $nb i32) (param $bs i32) (param $out i32) (param $ys i32)
+    ${common} (local $i i32) (local $ob i32) (local $yp i32) (local $d v128) ${vecLocals(per((u) => `ql${u} qh${u}`).split(/\s+/))}
     (if (i32.eqz ${get('nb')}) (then (return)))
     (if (i32.eqz ${get('m')}) (then (return)))
     ${set('vb', get('v'))}
@@ -84,15 +88,30 @@ export function kernelWatF32(k: WasmF32BlockSize): string {
     ${set('blk', '(i32.const 0)')}
     (loop $blocks
       ${per((u) => `${set(`ql${u}`, zero64)} ${set(`qh${u}`, zero64)}`)}
-      ${set('wp', get('w'))}
+      ${set('wp', get('l'))}
+      ${set('yp', get('ys'))}
       ${set('i', '(i32.const 0)')}
       (loop $rowsI
         ${clearY}
-        ${set('rp', get('rows'))}
-        ${set('rend', `(i32.add ${get('rows')} (i32.shl (i32.add ${get('i')} (i32.const 1)) (i32.const 2)))`)}
-        ${cols}
+        ;; acc = Σ_{j<i} L_ij y_j, y_j from the scratch (same slab layout as the table)
+        ${set('p', get('ys'))}
+        (if (i32.lt_u ${get('p')} ${get('yp')}) (then
+          (loop $cols
+            ${set('wr', `(v128.load32_splat ${get('wp')})`)} ${set('wi', `(v128.load32_splat offset=4 ${get('wp')})`)}
+            ${macStep(n, k)}
+            ${set('wp', `(i32.add ${get('wp')} (i32.const 8))`)}
+            ${set('p', `(i32.add ${get('p')} (i32.const ${8 * k}))`)}
+            (br_if $cols (i32.lt_u ${get('p')} ${get('yp')})))))
+        ;; y_i = (v_i − acc) / L_ii (the diagonal slot holds 1/L_ii)
+        ${set('d', `(v128.load32_splat ${get('wp')})`)}
+        ${set('wp', `(i32.add ${get('wp')} (i32.const 8))`)}
+        ${set('p', `(i32.add ${get('vb')} (i32.load (i32.add ${get('rows')} (i32.shl ${get('i')} (i32.const 2)))))`)}
+        ${per((u) => `${set(`yr${u}`, mul(sub(`(v128.load offset=${16 * u} ${get('p')})`, get(`yr${u}`)), get('d')))}
+        ${set(`yi${u}`, mul(sub(`(v128.load offset=${4 * k + 16 * u} ${get('p')})`, get(`yi${u}`)), get('d')))}
+        (v128.store offset=${16 * u} ${get('yp')} ${get(`yr${u}`)}) (v128.store offset=${4 * k + 16 * u} ${get('yp')} ${get(`yi${u}`)})`)}
         ${power}
         ${per((u) => `${set(`ql${u}`, `(f64x2.add ${get(`ql${u}`)} ${lo64(get(`t${u}`))})`)} ${set(`qh${u}`, `(f64x2.add ${get(`qh${u}`)} ${hi64(`t${u}`)})`)}`)}
+        ${set('yp', `(i32.add ${get('yp')} (i32.const ${8 * k}))`)}
         ${set('i', `(i32.add ${get('i')} (i32.const 1))`)}
         (br_if $rowsI (i32.lt_u ${get('i')} ${get('m')})))
       ${per((u) => `(v128.store offset=${32 * u} ${get('ob')} ${get(`ql${u}`)}) (v128.store offset=${32 * u + 16} ${get('ob')} ${get(`qh${u}`)})`)}

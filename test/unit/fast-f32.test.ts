@@ -1,0 +1,288 @@
+/**
+ * The single-precision fast paths against the plain float64 kernels:
+ *  - FastMvdrScanner with precision 'f32' (f32x4 WebAssembly forward substitution, mvdr-scan.ts)
+ *    against SpectrumScanner's MVDR output (HermitianSolver, float64): every bin within its own
+ *    derived bound float32RelativeBound(m, tr R, δ) (Higham, Accuracy and Stability of Numerical
+ *    Algorithms, 2nd ed., Thm 8.5 and §3.6; derivation in mvdr-scan.ts), and bins whose bound exceeds
+ *    FLOAT32_RELATIVE_LIMIT scanned in float64 (1e-9 relative, as test/unit/fast-mvdr.test.ts);
+ *  - ConventionalTracker with precision 'f32' against the plain vᴴRv/M'² of a bank fed the same
+ *    snapshots: absolute error ≤ trackerF32Bound(M')·tr(R)/M' per bin (derivation in
+ *    conventional-tracker.ts);
+ *  - BinProcessor's fast path (single precision by default) against its plain path, with a mask.
+ * The measured worst errors are printed (console.info) beside the bounds: they are far below them
+ * (rounding errors add up like a random walk; the bounds are worst cases).
+ */
+import { describe, expect, it } from 'vitest';
+import { CovarianceBank } from '../../server/dsp/covariance.ts';
+import { ConventionalTracker, trackerF32Bound } from '../../server/dsp/fast/conventional-tracker.ts';
+import { FastMvdrScanner, FLOAT32_RELATIVE_LIMIT, float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
+import { hermitianTrace } from '../../server/dsp/hermitian.ts';
+import { LoadingSolver, type LoadingSpec } from '../../server/dsp/loading.ts';
+import { SpectrumScanner } from '../../server/dsp/spectrum.ts';
+import { directionGrid, SteeringTable } from '../../server/dsp/steering.ts';
+import { BinProcessor, SCAN_CONVENTIONAL, SCAN_MVDR } from '../../server/engine/bin-processor.ts';
+import { TestRandom } from '../helpers/random.ts';
+
+const C = 343.2;
+
+function positionsOf(rng: TestRandom, m: number): [number, number, number][] {
+  return Array.from({ length: m }, () => [0.3 * rng.uniform(), 0.3 * rng.uniform(), 0.05 * rng.uniform()] as [number, number, number]);
+}
+
+function tableOf(positions: [number, number, number][], freqs: number[], directions: number): SteeringTable {
+  const grid = directionGrid({ azimuthDeg: { startDeg: 0, stopDeg: 360 - 360 / directions, stepDeg: 360 / directions } });
+  return new SteeringTable({ positions, grid, freqsHz: freqs, speedOfSoundMps: C });
+}
+
+/**
+ * A bank of `bins` bins: noise of power 1 in every channel plus, when `sourcePower` > 0, one plane
+ * wave of that power from a direction of the table (bin b from direction 7b) — a strong source
+ * makes R nearly rank one (λ_min(R + δI) near δ, the case the bound assumes).
+ */
+function bankOf(rng: TestRandom, table: SteeringTable, bins: number, sourcePower: number, snapshots: number): CovarianceBank {
+  const m = table.channels;
+  const bank = new CovarianceBank(m, bins);
+  const snap = new Float64Array(2 * m * bins);
+  const t = table.data;
+  for (let k = 0; k < snapshots; k++) {
+    rng.complexGaussian(snap, 1);
+    for (let b = 0; b < bins; b++) {
+      const sr = Math.sqrt(sourcePower / 2) * rng.gaussian();
+      const si = Math.sqrt(sourcePower / 2) * rng.gaussian();
+      const o = table.offset(b, (7 * b) % table.directions);
+      for (let c = 0; c < m; c++) {
+        const vr = t[o + 2 * c];
+        const vi = t[o + 2 * c + 1];
+        snap[2 * (b * m + c)] += sr * vr - si * vi;
+        snap[2 * (b * m + c) + 1] += sr * vi + si * vr;
+      }
+    }
+    bank.update(snap, 0.98);
+  }
+  return bank;
+}
+
+/** Per bin, the bound of mvdr-scan.ts for this bank and loading. */
+function boundsOf(bank: CovarianceBank, loading: LoadingSpec): Float64Array {
+  const m = bank.activeChannels.length;
+  const sub = new Float64Array(2 * m * m);
+  const solver = new LoadingSolver(m);
+  const out = new Float64Array(bank.bins);
+  for (let b = 0; b < bank.bins; b++) {
+    bank.gather(b, sub);
+    const delta = solver.level(sub, 0, loading);
+    out[b] = float32RelativeBound(m, hermitianTrace(sub, 0, m), delta);
+  }
+  return out;
+}
+
+describe('float32RelativeBound', () => {
+  it('is (1 + θ)²(1 + γ₂) − 1, θ = ερ/(1 − ερ), ε = √2·γ_{m+4}, ρ = √(tr(R + δI)/δ) (values worked by hand)', () => {
+    const u = 2 ** -24;
+    const g = (n: number) => (n * u) / (1 - n * u);
+    // m = 64, relative loading 0.01 of tr R = 64: δ = 0.01, tr(R + δI) = 64.64, ρ = √6464 = 80.4.
+    const eps = Math.SQRT2 * g(68);
+    const rho = Math.sqrt(6464);
+    const theta = (eps * rho) / (1 - eps * rho);
+    expect(float32RelativeBound(64, 64, 0.01)).toBeCloseTo((1 + theta) ** 2 * (1 + g(2)) - 1, 15);
+    // ≈ 2ερ = 9.2e-4: well below the limit. m = 96 at the same loading: ≈ 1.7e-3.
+    expect(float32RelativeBound(64, 64, 0.01)).toBeGreaterThan(9.1e-4);
+    expect(float32RelativeBound(64, 64, 0.01)).toBeLessThan(9.4e-4);
+    expect(float32RelativeBound(96, 96, 0.01)).toBeLessThan(FLOAT32_RELATIVE_LIMIT);
+    // No loading: no bound, the bin runs in float64.
+    expect(float32RelativeBound(8, 8, 0)).toBe(Infinity);
+  });
+});
+
+describe("FastMvdrScanner precision 'f32' against the plain float64 MVDR", () => {
+  const cases: [m: number, directions: number, sourcePower: number, loading: LoadingSpec][] = [
+    [8, 37, 0, { mode: 'relative', ratio: 0.01 }],
+    [32, 90, 0, { mode: 'relative', ratio: 0.01 }],
+    [32, 90, 1000, { mode: 'relative', ratio: 0.01 }],
+    [64, 45, 1000, { mode: 'relative', ratio: 0.01 }],
+    [21, 50, 100, { mode: 'relative-db', db: -20 }],
+  ];
+  it.each(cases)('M = %i, D = %i, source power %i: every bin within its bound, all in float32', async (m, directions, sourcePower, loading) => {
+    const rng = new TestRandom(7 * m + directions);
+    const freqs = [500, 1700, 3100, 5500];
+    const positions = positionsOf(rng, m);
+    const table = tableOf(positions, freqs, directions);
+    const scanner = await FastMvdrScanner.create(table, 0, freqs.length, { precision: 'f32' });
+    expect(scanner.precision).toBe('f32');
+    const bank = bankOf(rng, table, freqs.length, sourcePower, 3 * m);
+    const out = new Float64Array(freqs.length * directions);
+    scanner.scan(bank, loading, out);
+    const ref = new Float64Array(freqs.length * directions);
+    new SpectrumScanner(table).scan(bank, { loading }, { conventional: null, mvdr: ref });
+    const bounds = boundsOf(bank, loading);
+    let worst = 0;
+    for (let b = 0; b < freqs.length; b++) {
+      let e = 0;
+      for (let d = 0; d < directions; d++) e = Math.max(e, Math.abs(out[b * directions + d] - ref[b * directions + d]) / ref[b * directions + d]);
+      expect(bounds[b]).toBeLessThanOrEqual(FLOAT32_RELATIVE_LIMIT);
+      expect(e).toBeLessThanOrEqual(bounds[b]);
+      worst = Math.max(worst, e / bounds[b]);
+    }
+    expect(scanner.float32Bins).toBe(freqs.length);
+    expect(scanner.float64Bins).toBe(0);
+    console.info(`f32 MVDR M=${m} D=${directions} P=${sourcePower}: worst error ${worst.toExponential(1)} of its bound (bounds ${Array.from(bounds, (x) => x.toExponential(1)).join(', ')})`);
+  });
+
+  it('bins whose bound exceeds the limit run in float64 (1e-9 relative); a mask is honoured', async () => {
+    const rng = new TestRandom(99);
+    const m = 48;
+    const freqs = [800, 2900, 4400];
+    const positions = positionsOf(rng, m);
+    const table = tableOf(positions, freqs, 60);
+    const scanner = await FastMvdrScanner.create(table, 0, 3, { precision: 'f32', blockSizeF32: 4 });
+    // Loading 10⁻⁷ of the mean: ρ = √(m'(1 + r)/r) ≈ √(4.4·10⁸) ≈ 2.1·10⁴, bound ≈ 2ερ ≈ 0.19 > 0.01
+    // (ε = √2·γ₄₈) — so these bins must not run in float32.
+    const bank = bankOf(rng, table, 3, 100, 3 * m);
+    bank.setMask(Array.from({ length: m }, (_, c) => c % 11 !== 4));
+    const loading: LoadingSpec = { mode: 'relative', ratio: 1e-7 };
+    const bounds = boundsOf(bank, loading);
+    for (const x of bounds) expect(x).toBeGreaterThan(FLOAT32_RELATIVE_LIMIT);
+    const out = new Float64Array(3 * 60);
+    scanner.scan(bank, loading, out);
+    const ref = new Float64Array(3 * 60);
+    new SpectrumScanner(table).scan(bank, { loading }, { conventional: null, mvdr: ref });
+    for (let i = 0; i < ref.length; i++) expect(Math.abs(out[i] - ref[i]) / ref[i]).toBeLessThan(1e-9);
+    expect(scanner.float64Bins).toBe(3);
+    expect(scanner.float32Bins).toBe(0);
+    // The same masked bank at loading 0.01 runs in float32, within its bounds.
+    const easy: LoadingSpec = { mode: 'relative', ratio: 0.01 };
+    const b2 = boundsOf(bank, easy);
+    scanner.scan(bank, easy, out);
+    new SpectrumScanner(table).scan(bank, { loading: easy }, { conventional: null, mvdr: ref });
+    for (let i = 0; i < ref.length; i++) expect(Math.abs(out[i] - ref[i]) / ref[i]).toBeLessThanOrEqual(b2[Math.floor(i / 60)]);
+    expect(scanner.float32Bins).toBe(3);
+  });
+
+  it.each([4, 8, 12])('f32 block size %i (directions not a multiple of it)', async (k) => {
+    const rng = new TestRandom(300 + k);
+    const positions = positionsOf(rng, 13);
+    const table = tableOf(positions, [900, 2500], 41);
+    const scanner = await FastMvdrScanner.create(table, 0, 2, { precision: 'f32', blockSizeF32: k });
+    const bank = bankOf(rng, table, 2, 10, 40);
+    const loading: LoadingSpec = { mode: 'relative', ratio: 0.05 };
+    const out = new Float64Array(2 * 41);
+    scanner.scan(bank, loading, out);
+    const ref = new Float64Array(2 * 41);
+    new SpectrumScanner(table).scan(bank, { loading }, { conventional: null, mvdr: ref });
+    const bounds = boundsOf(bank, loading);
+    for (let i = 0; i < ref.length; i++) expect(Math.abs(out[i] - ref[i]) / ref[i]).toBeLessThanOrEqual(bounds[Math.floor(i / 41)]);
+    await expect(FastMvdrScanner.create(table, 0, 2, { precision: 'f32', blockSizeF32: 6 })).rejects.toThrow(RangeError);
+  });
+});
+
+describe("ConventionalTracker precision 'f32' against the plain float64 vᴴRv/M'²", () => {
+  it.each([
+    [5, 9, 0],
+    [32, 360, 100],
+    [64, 90, 1000],
+  ])('M = %i, D = %i, source power %i: |error| ≤ trackerF32Bound(M)·tr(R)/M per bin, also after a mask change', async (m, directions, sourcePower) => {
+    const rng = new TestRandom(17 * m + directions);
+    const freqs = [450, 2100, 5300];
+    const positions = positionsOf(rng, m);
+    const table = tableOf(positions, freqs, directions);
+    const tracker = await ConventionalTracker.create(table, 0, freqs.length, 'f32');
+    expect(tracker.precision).toBe('f32');
+    const bank = new CovarianceBank(m, freqs.length);
+    const snap = new Float64Array(2 * m * freqs.length);
+    const check = () => {
+      const ref = new Float64Array(freqs.length * directions);
+      new SpectrumScanner(table).scan(bank, { loading: { mode: 'fixed', delta: 0 } }, { conventional: ref, mvdr: null });
+      const ma = bank.activeChannels.length;
+      const sub = new Float64Array(2 * ma * ma);
+      let worst = 0;
+      for (let b = 0; b < freqs.length; b++) {
+        bank.gather(b, sub);
+        const allowed = (trackerF32Bound(ma) * hermitianTrace(sub, 0, ma)) / ma;
+        for (let d = 0; d < directions; d++) {
+          const e = Math.abs(tracker.power[b * directions + d] - ref[b * directions + d]);
+          expect(e).toBeLessThanOrEqual(allowed);
+          worst = Math.max(worst, e / allowed);
+        }
+      }
+      return worst;
+    };
+    const t = table.data;
+    let worst = 0;
+    for (let k = 0; k < 60; k++) {
+      rng.complexGaussian(snap, 1);
+      const s = Math.sqrt(sourcePower / 2);
+      const sr = s * rng.gaussian();
+      const si = s * rng.gaussian();
+      for (let b = 0; b < freqs.length; b++) {
+        const o = table.offset(b, 3);
+        for (let c = 0; c < m; c++) {
+          snap[2 * (b * m + c)] += sr * t[o + 2 * c] - si * t[o + 2 * c + 1];
+          snap[2 * (b * m + c) + 1] += sr * t[o + 2 * c + 1] + si * t[o + 2 * c];
+        }
+      }
+      bank.update(snap, 0.95);
+      tracker.update(snap, 0.95);
+      if (k === 0 || k === 29) worst = Math.max(worst, check());
+      if (k === 30) {
+        const mask = Array.from({ length: m }, (_, c) => c !== 1);
+        bank.setMask(mask);
+        tracker.setMask(mask);
+        tracker.seedFrom(bank);
+      }
+    }
+    worst = Math.max(worst, check());
+    console.info(`f32 tracker M=${m} D=${directions} P=${sourcePower}: worst error ${worst.toExponential(1)} of its bound ${trackerF32Bound(m).toExponential(2)}·tr(R)/M`);
+  });
+});
+
+describe('BinProcessor fast path (single precision by default) against its plain path', () => {
+  it('conventional within the tracker bound, MVDR within the per-bin bound, with a mask', async () => {
+    const rng = new TestRandom(5);
+    const m = 24;
+    const positions = positionsOf(rng, m);
+    const freqsHz = Float64Array.from([700, 1500, 2600, 3900, 5200]);
+    const grid = directionGrid({ azimuthDeg: { startDeg: 0, stopDeg: 358, stepDeg: 2 } });
+    const opts = { positions, freqsHz, grid, speedOfSoundMps: C, snapshotScale: 1 };
+    const fast = await BinProcessor.create({ ...opts, fast: true });
+    const fast64 = await BinProcessor.create({ ...opts, fast: true, precision: 'f64' });
+    const plain = new BinProcessor(opts);
+    const mask = Array.from({ length: m }, (_, c) => c !== 5);
+    for (const p of [fast, fast64, plain]) p.setMask(mask);
+    const snap = new Float64Array(2 * m * freqsHz.length);
+    for (let k = 0; k < 80; k++) {
+      rng.complexGaussian(snap, 1);
+      for (const p of [fast, fast64, plain]) p.hop(Float64Array.from(snap), 0.97);
+    }
+    const D = grid.count;
+    const loading: LoadingSpec = { mode: 'relative', ratio: 0.01 };
+    const get = (p: BinProcessor) => {
+      const conv = new Float64Array(D);
+      const mvdr = new Float64Array(D);
+      p.scan(SCAN_CONVENTIONAL | SCAN_MVDR, loading, conv, mvdr);
+      return { conv, mvdr };
+    };
+    const a = get(fast);
+    const a64 = get(fast64);
+    const r = get(plain);
+    expect(fast.float32Bins).toBe(freqsHz.length);
+    // float64 fast path: equal to rounding (as test/unit/fast-conventional.test.ts).
+    for (let d = 0; d < D; d++) {
+      expect(Math.abs(a64.conv[d] - r.conv[d]) / r.conv[d]).toBeLessThan(1e-9);
+      expect(Math.abs(a64.mvdr[d] - r.mvdr[d]) / r.mvdr[d]).toBeLessThan(1e-9);
+    }
+    // Sums over bins of terms each within its bound: the sum is within the largest bound (MVDR,
+    // relative) and within the sum of the absolute bounds (conventional).
+    const ma = m - 1;
+    const sub = new Float64Array(2 * ma * ma);
+    let traceSum = 0;
+    for (let b = 0; b < freqsHz.length; b++) {
+      plain.bank.gather(b, sub);
+      traceSum += hermitianTrace(sub, 0, ma);
+    }
+    const mvdrBound = Math.max(...boundsOf(plain.bank, loading));
+    for (let d = 0; d < D; d++) {
+      expect(Math.abs(a.conv[d] - r.conv[d])).toBeLessThanOrEqual((trackerF32Bound(ma) * traceSum) / ma);
+      expect(Math.abs(a.mvdr[d] - r.mvdr[d]) / r.mvdr[d]).toBeLessThanOrEqual(mvdrBound);
+    }
+  });
+});
