@@ -8,20 +8,25 @@
  *  - ConventionalTracker with precision 'f32' against the plain vᴴRv/M'² of a bank fed the same
  *    snapshots: absolute error ≤ trackerF32Bound(M')·tr(R)/M' per bin (derivation in
  *    conventional-tracker.ts);
- *  - BinProcessor's fast path (single precision by default) against its plain path, with a mask.
+ *  - BinProcessor's fast path (single precision by default) against its plain path, with a mask;
+ *  - PairedCholesky (wasm-cholesky.ts, two bins per f64x2 lane pair) bit for bit against
+ *    InverseCholesky (the same float64 operations in the same order), its pivot failures, and the
+ *    scanner's paired and per-bin factor giving identical spectra.
  * The measured worst errors are printed (console.info) beside the bounds: they are far below them
  * (rounding errors add up like a random walk; the bounds are worst cases).
  */
 import { describe, expect, it } from 'vitest';
 import { CovarianceBank } from '../../server/dsp/covariance.ts';
 import { ConventionalTracker, trackerF32Bound } from '../../server/dsp/fast/conventional-tracker.ts';
+import { InverseCholesky } from '../../server/dsp/fast/inverse-factor.ts';
 import { FastMvdrScanner, FLOAT32_RELATIVE_LIMIT, float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
-import { hermitianTrace } from '../../server/dsp/hermitian.ts';
+import { PairedCholesky } from '../../server/dsp/fast/wasm-cholesky.ts';
+import { hermitianTrace, NotPositiveDefiniteError } from '../../server/dsp/hermitian.ts';
 import { LoadingSolver, type LoadingSpec } from '../../server/dsp/loading.ts';
 import { SpectrumScanner } from '../../server/dsp/spectrum.ts';
 import { directionGrid, SteeringTable } from '../../server/dsp/steering.ts';
 import { BinProcessor, SCAN_CONVENTIONAL, SCAN_MVDR } from '../../server/engine/bin-processor.ts';
-import { TestRandom } from '../helpers/random.ts';
+import { sampleCovariance, TestRandom } from '../helpers/random.ts';
 
 const C = 343.2;
 
@@ -284,5 +289,79 @@ describe('BinProcessor fast path (single precision by default) against its plain
       expect(Math.abs(a.conv[d] - r.conv[d])).toBeLessThanOrEqual((trackerF32Bound(ma) * traceSum) / ma);
       expect(Math.abs(a.mvdr[d] - r.mvdr[d]) / r.mvdr[d]).toBeLessThanOrEqual(mvdrBound);
     }
+  });
+});
+
+describe('PairedCholesky (two bins per SIMD lane pair) against InverseCholesky', () => {
+  it.each([1, 2, 7, 32])('M = %i: L and 1/L_ii identical to the float64 JavaScript factor, lane by lane', async (m) => {
+    const rng = new TestRandom(40 + m);
+    const chol = await PairedCholesky.create(m + 3); // a larger capacity than used
+    const mats = [sampleCovariance(rng, m, 3 * m + 2), sampleCovariance(rng, m, 3 * m + 5)];
+    const deltas = [0.01, 0.3];
+    chol.load(0, mats[0], m, deltas[0]);
+    chol.load(1, mats[1], m, deltas[1]);
+    chol.run(m);
+    for (const lane of [0, 1]) {
+      expect(chol.ok(lane, m)).toBe(true);
+      const inv = new InverseCholesky(m);
+      inv.factor(mats[lane], 0, deltas[lane], false);
+      const { f64, base, dBase } = chol.view(lane);
+      for (let e = 0; e < (m * (m + 1)) / 2; e++) {
+        expect(f64[base + 4 * e]).toBe(inv.lower[2 * e]);
+        expect(f64[base + 4 * e + 2]).toBe(inv.lower[2 * e + 1]);
+      }
+      for (let i = 0; i < m; i++) expect(f64[dBase + 2 * i]).toBe(inv.invDiag[i]);
+    }
+  });
+
+  it('a lane that fails the pivot rule is reported, the other lane is not affected; in the scanner, paired bins equal per-bin ones and an unloaded rank-deficient bin is flagged singular', async () => {
+    const rng = new TestRandom(3);
+    const m = 6;
+    const chol = await PairedCholesky.create(m);
+    const good = sampleCovariance(rng, m, 20);
+    const rankTwo = sampleCovariance(rng, m, 2); // rank 2 < 6: no factor without loading
+    chol.load(0, rankTwo, m, 0);
+    chol.load(1, good, m, 0.1);
+    chol.run(m);
+    expect(chol.ok(0, m)).toBe(false);
+    expect(() => new InverseCholesky(m).factor(rankTwo, 0, 0)).toThrow(NotPositiveDefiniteError);
+    expect(chol.ok(1, m)).toBe(true);
+    // Through the scanner: 3 bins (an odd count: the last waits alone), the middle one rank-deficient.
+    const positions = positionsOf(rng, m);
+    const table = tableOf(positions, [600, 1800, 3300], 20);
+    const bank = new CovarianceBank(m, 3);
+    bank.data.set(good, bank.matrixOffset(0));
+    bank.data.set(rankTwo, bank.matrixOffset(1));
+    bank.data.set(good, bank.matrixOffset(2));
+    const scanner = await FastMvdrScanner.create(table, 0, 3, { precision: 'f32' });
+    const plainScanner = await FastMvdrScanner.create(table, 0, 3, { precision: 'f32', pairedFactor: false });
+    const loading: LoadingSpec = { mode: 'fixed', delta: 0 };
+    const [out, out2] = [new Float64Array(60), new Float64Array(60)];
+    const [flags, flags2] = [new Uint8Array(3), new Uint8Array(3)];
+    // With δ > 0 all three bins pair (bound ≤ limit). δ = 0 has no bound: they run in float64, and
+    // the rank-deficient one is flagged. (A bin within the bound always has δ ≥ 10⁻⁶·tr R/m, far
+    // above the pivot tolerance: the paired path's pivot fallback guards only the unexpected.)
+    scanner.scan(bank, { mode: 'fixed', delta: 1e-3 }, out, null, null, flags);
+    plainScanner.scan(bank, { mode: 'fixed', delta: 1e-3 }, out2, null, null, flags2);
+    expect(Array.from(out)).toEqual(Array.from(out2));
+    expect(scanner.float32Bins).toBe(3);
+    scanner.scan(bank, loading, out, null, null, flags);
+    expect(Array.from(flags)).toEqual([0, 1, 0]);
+    expect(out.subarray(20, 40).every((x) => x === 0)).toBe(true);
+  });
+
+  it('the paired and the per-bin factor give identical spectra (odd bin count, a mask)', async () => {
+    const rng = new TestRandom(77);
+    const m = 19;
+    const freqs = [400, 900, 1500, 2600, 4700];
+    const table = tableOf(positionsOf(rng, m), freqs, 33);
+    const bank = bankOf(rng, table, freqs.length, 30, 60);
+    bank.setMask(Array.from({ length: m }, (_, c) => c !== 7));
+    const a = await FastMvdrScanner.create(table, 0, freqs.length, { precision: 'f32' });
+    const b = await FastMvdrScanner.create(table, 0, freqs.length, { precision: 'f32', pairedFactor: false });
+    const [x, y] = [new Float64Array(5 * 33), new Float64Array(5 * 33)];
+    a.scan(bank, { mode: 'relative', ratio: 0.01 }, x);
+    b.scan(bank, { mode: 'relative', ratio: 0.01 }, y);
+    expect(Array.from(x)).toEqual(Array.from(y));
   });
 });

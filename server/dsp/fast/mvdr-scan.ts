@@ -22,6 +22,7 @@ import { hermitianTrace, NotPositiveDefiniteError } from '../hermitian.ts';
 import { createLoadingResult, LoadingSolver, type LoadingResult, type LoadingSpec } from '../loading.ts';
 import type { SteeringTable } from '../steering.ts';
 import { InverseCholesky } from './inverse-factor.ts';
+import { PairedCholesky } from './wasm-cholesky.ts';
 import { mvdrBlocksK2, mvdrBlocksK4 } from './mvdr-kernels-js.ts';
 import { fillPlanar, planarLayout, type PlanarLayout } from './planar-steering.ts';
 import { instantiateKernels, WASM_BLOCK_SIZES, type WasmBlockSize, type WasmKernelExports } from './wasm-kernels.ts';
@@ -77,6 +78,11 @@ export interface FastMvdrOptions {
   precision?: 'f64' | 'f32';
   /** Directions per block of the f32x4 kernel: 4, 8 or 12 (default 8). */
   blockSizeF32?: number;
+  /**
+   * With 'f32': factor two bins at once in WebAssembly (wasm-cholesky.ts, the same float64
+   * arithmetic as InverseCholesky) — default true; false factors each bin in JavaScript.
+   */
+  pairedFactor?: boolean;
   /** 'wasm' (default): WebAssembly SIMD; 'js': plain JavaScript over the same layout. */
   backend?: MvdrBackend;
   /** Directions per block K: wasm 2, 4, 6 or 8 (default 4); js 2 or 4 (default 4). */
@@ -246,6 +252,21 @@ class WasmF32Kernel {
     }
   }
 
+  /** As setFactor, from one lane of a PairedCholesky (wasm-cholesky.ts). */
+  setFactorFrom(src: { f64: Float64Array; base: number; dBase: number }, m: number): void {
+    const h = this.#heapF32;
+    const base = this.#lPtr / 4;
+    const f = src.f64;
+    for (let i = 0, e = 0; i < m; i++, e++) {
+      for (let j = 0; j < i; j++, e++) {
+        h[base + 2 * e] = f[src.base + 4 * e];
+        h[base + 2 * e + 1] = f[src.base + 4 * e + 2];
+      }
+      h[base + 2 * e] = f[src.dBase + 2 * i];
+      h[base + 2 * e + 1] = 0;
+    }
+  }
+
   setRows(active: Int32Array): void {
     const base = this.#rowsPtr / 4;
     for (let j = 0; j < active.length; j++) this.#heapI32[base + j] = active[j] * 8 * this.k;
@@ -278,6 +299,8 @@ export class FastMvdrScanner {
   float64Bins = 0;
   readonly #kernel: BatchKernel;
   readonly #kernel32: WasmF32Kernel | null;
+  /** With the f32 kernel: the Cholesky factors of two bins at once (wasm-cholesky.ts). */
+  readonly #chol: PairedCholesky | null;
   #m = -1;
   #activeSeen: Int32Array | null = null;
   #sub = new Float64Array(0);
@@ -286,8 +309,11 @@ export class FastMvdrScanner {
   #loader!: LoadingSolver;
   readonly #loadResult: LoadingResult = createLoadingResult();
 
-  private constructor(table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel, kernel32: WasmF32Kernel | null = null) {
+  private constructor(
+    table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel, kernel32: WasmF32Kernel | null = null, chol: PairedCholesky | null = null,
+  ) {
     this.#kernel32 = kernel32;
+    this.#chol = chol;
     this.precision = kernel32 === null ? 'f64' : 'f32';
     this.table = table;
     this.binsStart = layout.binsStart;
@@ -321,7 +347,9 @@ export class FastMvdrScanner {
     const layout = planarLayout(table, binsStart, binsCount, k);
     const exp = await instantiateKernels(k as WasmBlockSize, WasmKernel.bytesFor(layout).total);
     let kernel32: WasmF32Kernel | null = null;
+    let chol: PairedCholesky | null = null;
     if (precision === 'f32') {
+      if (options.pairedFactor !== false) chol = await PairedCholesky.create(table.channels);
       const k32 = options.blockSizeF32 ?? 8;
       if (!(WASM_F32_BLOCK_SIZES as readonly number[]).includes(k32)) {
         throw new RangeError(`wasm blockSizeF32 must be one of ${WASM_F32_BLOCK_SIZES.join(', ')}, got ${k32}`);
@@ -330,7 +358,7 @@ export class FastMvdrScanner {
       const exp32 = await instantiateKernelsF32(k32 as WasmF32BlockSize, WasmF32Kernel.bytesFor(layout32).total);
       kernel32 = new WasmF32Kernel(table, layout32, exp32);
     }
-    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp), kernel32);
+    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp), kernel32, chol);
   }
 
   /** Synchronous plan of the plain-JavaScript backend (block size 2 or 4). */
@@ -404,6 +432,9 @@ export class FastMvdrScanner {
     const sub = this.#sub;
     const kernel = this.#kernel;
     const kernel32 = this.#kernel32;
+    const chol = this.#chol;
+    let pending = -1;
+    let pendingDelta = 0;
     for (let lb = 0; lb < B; lb++) {
       bank.gather(lb, sub);
       const traceR = hermitianTrace(sub, 0, m);
@@ -433,6 +464,20 @@ export class FastMvdrScanner {
       if (deltaOut !== null) deltaOut[lb] = delta;
       // Single precision needs only L; W = L⁻¹ is formed for the float64 kernel alone.
       const single = kernel32 !== null && float32RelativeBound(m, traceR, delta) <= FLOAT32_RELATIVE_LIMIT;
+      if (single && chol !== null) {
+        // L of two bins at once (one per SIMD lane): this bin waits for a partner.
+        chol.load(pending < 0 ? 0 : 1, sub, m, delta);
+        if (pending < 0) {
+          pending = lb;
+          pendingDelta = delta;
+          continue;
+        }
+        chol.run(m);
+        this.#finishPaired(bank, pending, 0, pendingDelta, out, singular);
+        this.#finishPaired(bank, lb, 1, delta, out, singular);
+        pending = -1;
+        continue;
+      }
       if (singular !== null) {
         singular[lb] = 0;
         if (!this.#tryFactor(sub, delta, !single)) {
@@ -443,9 +488,9 @@ export class FastMvdrScanner {
       } else this.#inv.factor(sub, 0, delta, !single);
       let q: Float64Array;
       if (single) {
-        kernel32.setFactor(this.#inv.lower, this.#inv.invDiag, m);
-        kernel32.run(lb, m);
-        q = kernel32.q;
+        (kernel32 as WasmF32Kernel).setFactor(this.#inv.lower, this.#inv.invDiag, m);
+        (kernel32 as WasmF32Kernel).run(lb, m);
+        q = (kernel32 as WasmF32Kernel).q;
         this.float32Bins++;
       } else {
         kernel.setFactor(this.#inv.inverse, m);
@@ -456,5 +501,42 @@ export class FastMvdrScanner {
       const o = lb * D;
       for (let d = 0; d < D; d++) out[o + d] = 1 / q[d];
     }
+    if (pending >= 0) {
+      // The last bin without a partner: lane 1 still holds an earlier bin, computed and ignored.
+      (chol as PairedCholesky).run(m);
+      this.#finishPaired(bank, pending, 0, pendingDelta, out, singular);
+    }
+  }
+
+  /**
+   * Scans bin lb from lane `lane` of the paired factor; a lane that failed the pivot rule is
+   * factored again by InverseCholesky, which flags the bin singular or throws exactly as the
+   * unpaired path does.
+   */
+  #finishPaired(bank: CovarianceBank, lb: number, lane: number, delta: number, out: Float64Array, singular: Uint8Array | null): void {
+    const chol = this.#chol as PairedCholesky;
+    const kernel32 = this.#kernel32 as WasmF32Kernel;
+    const m = this.#m;
+    const D = this.directions;
+    if (chol.ok(lane, m)) {
+      kernel32.setFactorFrom(chol.view(lane), m);
+    } else {
+      const sub = this.#sub;
+      bank.gather(lb, sub);
+      if (singular !== null) {
+        singular[lb] = 0;
+        if (!this.#tryFactor(sub, delta, false)) {
+          singular[lb] = 1;
+          out.fill(0, lb * D, (lb + 1) * D);
+          return;
+        }
+      } else this.#inv.factor(sub, 0, delta, false);
+      kernel32.setFactor(this.#inv.lower, this.#inv.invDiag, m);
+    }
+    kernel32.run(lb, m);
+    this.float32Bins++;
+    const q = kernel32.q;
+    const o = lb * D;
+    for (let d = 0; d < D; d++) out[o + d] = 1 / q[d];
   }
 }
