@@ -13,6 +13,15 @@
  * the JavaScript planar kernels were slower than the plain loop (323–343 µs); the full 61-bin update
  * 5.7 ms against 17.2 ms for SpectrumScanner (factor + L⁻¹ ≈ 25 µs of each bin's ≈ 93 µs).
  *
+ * Single precision (option precision 'f32', BinProcessor's default on the fast path): a bin whose
+ * derived relative error bound ({@link float32RelativeBound}) is at most
+ * {@link FLOAT32_RELATIVE_LIMIT} skips L⁻¹ altogether: its Cholesky factor (two bins at once, one
+ * per f64x2 lane, wasm-cholesky.ts, float64) is rounded to float32 and the forward substitution
+ * L y = v runs blocked over 8 directions in f32x4 (wasm-kernels-f32.ts `solve`), |y_i|² summed in
+ * float64. Other bins (no loading, or loading so small the bound exceeds the limit) run the
+ * float64 path above. Measured on W64 (31 bins, bench/kernels.ts --workload W64): 12.9 ms float64,
+ * 4.2 ms single precision; largest relative error against float64 about 1e-7 (bound 9e-4).
+ *
  * Masked channels (CovarianceBank.setMask) are supported at no extra cost: the kernel reads its
  * rows through an index list, so the active sub-matrix is scanned against the matching channels
  * of each steering vector, exactly as SpectrumScanner does.
