@@ -6,7 +6,7 @@ import { afterEach, describe, expect, it } from 'vitest';
 import { loadGeometry } from '../../server/config/array-file.ts';
 import { BinProcessor, SCAN_CONVENTIONAL, SCAN_MVDR } from '../../server/dsp/../engine/bin-processor.ts';
 import { trackerF32Bound } from '../../server/dsp/fast/conventional-tracker.ts';
-import { float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
+import { conventionalRowBound, float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
 import { hermitianTrace } from '../../server/dsp/hermitian.ts';
 import { LoadingSolver } from '../../server/dsp/loading.ts';
 import { MultiChannelStft } from '../../server/dsp/stft.ts';
@@ -100,7 +100,9 @@ function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p
           traceSum += tr;
           mvdrRel = Math.max(mvdrRel, float32RelativeBound(ma, tr, solver.level(sub, 0, p.loading)));
         }
-        out.set(last, { conv, mvdr, convAbs: (trackerF32Bound(ma) * traceSum) / ma, mvdrRel });
+        // Conventional: tracked, per row, or tracked from per-row values (BinProcessor 'auto'): at
+        // most the sum of the two bounds.
+        out.set(last, { conv, mvdr, convAbs: ((trackerF32Bound(ma) + conventionalRowBound(ma)) * traceSum) / ma, mvdrRel });
       }
     });
   }
@@ -110,8 +112,8 @@ function reference(g: Awaited<ReturnType<typeof scene>>['g'], blocks: Block[], p
 /**
  * A reference row and the single-precision bounds of the fast path for it: the row is a sum over
  * bins, so MVDR is within the largest per-bin relative bound (mvdr-scan.ts float32RelativeBound)
- * and the conventional spectrum within the sum of the per-bin absolute bounds (trackerF32Bound ·
- * tr R_b / M', conventional-tracker.ts).
+ * and the conventional spectrum within the sum of the per-bin absolute bounds ((trackerF32Bound +
+ * conventionalRowBound) · tr R_b / M', conventional-tracker.ts and mvdr-scan.ts).
  */
 interface Reference {
   conv: Float64Array;

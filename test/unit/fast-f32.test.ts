@@ -9,6 +9,9 @@
  *    snapshots: absolute error ≤ trackerF32Bound(M')·tr(R)/M' per bin (derivation in
  *    conventional-tracker.ts);
  *  - BinProcessor's fast path (single precision by default) against its plain path, with a mask;
+ *  - the conventional spectrum per row from the covariance (FastMvdrScanner.conventional, f32x4)
+ *    against the plain vᴴRv/M'²: |error| ≤ conventionalRowBound(M')·tr(R)/M' per bin; BinProcessor
+ *    switching between per-row and tracked conventional spectra with the hops between rows;
  *  - PairedCholesky (wasm-cholesky.ts, two bins per f64x2 lane pair) bit for bit against
  *    InverseCholesky (the same float64 operations in the same order), its pivot failures, and the
  *    scanner's paired and per-bin factor giving identical spectra.
@@ -19,7 +22,7 @@ import { describe, expect, it } from 'vitest';
 import { CovarianceBank } from '../../server/dsp/covariance.ts';
 import { ConventionalTracker, trackerF32Bound } from '../../server/dsp/fast/conventional-tracker.ts';
 import { InverseCholesky } from '../../server/dsp/fast/inverse-factor.ts';
-import { FastMvdrScanner, FLOAT32_RELATIVE_LIMIT, float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
+import { conventionalRowBound, FastMvdrScanner, FLOAT32_RELATIVE_LIMIT, float32RelativeBound } from '../../server/dsp/fast/mvdr-scan.ts';
 import { PairedCholesky } from '../../server/dsp/fast/wasm-cholesky.ts';
 import { hermitianTrace, NotPositiveDefiniteError } from '../../server/dsp/hermitian.ts';
 import { LoadingSolver, type LoadingSpec } from '../../server/dsp/loading.ts';
@@ -363,5 +366,90 @@ describe('PairedCholesky (two bins per SIMD lane pair) against InverseCholesky',
     a.scan(bank, { mode: 'relative', ratio: 0.01 }, x);
     b.scan(bank, { mode: 'relative', ratio: 0.01 }, y);
     expect(Array.from(x)).toEqual(Array.from(y));
+  });
+});
+
+describe('the conventional spectrum per row from the covariance (f32x4 quad kernel)', () => {
+  it.each([
+    [6, 20, 0],
+    [32, 90, 100],
+    [64, 45, 1000],
+  ])('M = %i, D = %i, source power %i: |error| ≤ conventionalRowBound(M\')·tr(R)/M\' per bin; the same numbers from scan(…, conv); a mask', async (m, directions, sourcePower) => {
+    const rng = new TestRandom(500 + m);
+    const freqs = [450, 2100, 5300];
+    const table = tableOf(positionsOf(rng, m), freqs, directions);
+    const bank = bankOf(rng, table, freqs.length, sourcePower, 2 * m);
+    const scanner = await FastMvdrScanner.create(table, 0, freqs.length, { precision: 'f32' });
+    for (const mask of [null, Array.from({ length: m }, (_, c) => c % 5 !== 2)]) {
+      if (mask) bank.setMask(mask);
+      const ma = bank.activeChannels.length;
+      const conv = new Float64Array(freqs.length * directions);
+      scanner.conventional(bank, conv);
+      const ref = new Float64Array(freqs.length * directions);
+      new SpectrumScanner(table).scan(bank, { loading: { mode: 'fixed', delta: 0 } }, { conventional: ref, mvdr: null });
+      const sub = new Float64Array(2 * ma * ma);
+      let worst = 0;
+      for (let b = 0; b < freqs.length; b++) {
+        bank.gather(b, sub);
+        const allowed = (conventionalRowBound(ma) * hermitianTrace(sub, 0, ma)) / ma;
+        for (let d = 0; d < directions; d++) {
+          const e = Math.abs(conv[b * directions + d] - ref[b * directions + d]);
+          expect(e).toBeLessThanOrEqual(allowed);
+          worst = Math.max(worst, e / allowed);
+        }
+      }
+      const both = new Float64Array(freqs.length * directions);
+      scanner.scan(bank, { mode: 'relative', ratio: 0.01 }, new Float64Array(freqs.length * directions), null, null, null, both);
+      expect(Array.from(both)).toEqual(Array.from(conv));
+      console.info(`per-row conventional M'=${ma} D=${directions}: worst error ${worst.toExponential(1)} of its bound`);
+    }
+    const f64Scanner = await FastMvdrScanner.create(table, 0, freqs.length);
+    expect(() => f64Scanner.conventional(bank, new Float64Array(freqs.length * directions))).toThrow(/precision 'f32'/);
+  });
+
+  it("BinProcessor: 'rows' and 'auto' (switching both ways with the hops between rows) stay within the bounds of the plain spectrum", async () => {
+    const rng = new TestRandom(8);
+    const m = 20;
+    const positions = positionsOf(rng, m);
+    const freqsHz = Float64Array.from([900, 2200, 4100]);
+    const grid = directionGrid({ azimuthDeg: { startDeg: 0, stopDeg: 355, stepDeg: 5 } });
+    const opts = { positions, freqsHz, grid, speedOfSoundMps: C, snapshotScale: 1 };
+    const rows = await BinProcessor.create({ ...opts, fast: true, conventional: 'rows' });
+    const auto = await BinProcessor.create({ ...opts, fast: true });
+    const plain = new BinProcessor(opts);
+    const D = grid.count;
+    const loading: LoadingSpec = { mode: 'relative', ratio: 0.01 };
+    const snap = new Float64Array(2 * m * freqsHz.length);
+    // Hops between rows: 15 > m/2 → per row; 3 < 0.4·m → tracker again; a mask change per row.
+    const schedule = [15, 15, 15, 3, 3, 3, 15, 15];
+    const modes: boolean[] = [];
+    for (let k = 0; k < schedule.length; k++) {
+      for (let h = 0; h < schedule[k]; h++) {
+        rng.complexGaussian(snap, 1);
+        for (const p of [rows, auto, plain]) p.hop(Float64Array.from(snap), 0.95);
+      }
+      if (k === 6) for (const p of [rows, auto, plain]) p.setMask(Array.from({ length: m }, (_, c) => c !== 4));
+      const ma = plain.bank.activeChannels.length;
+      const sub = new Float64Array(2 * ma * ma);
+      let traceSum = 0;
+      for (let b = 0; b < freqsHz.length; b++) {
+        plain.bank.gather(b, sub);
+        traceSum += hermitianTrace(sub, 0, ma);
+      }
+      // A tracker handed per-row values carries both errors: the sum of the two bounds.
+      const allowed = ((trackerF32Bound(ma) + conventionalRowBound(ma)) * traceSum) / ma;
+      const ref = new Float64Array(D);
+      plain.scan(SCAN_CONVENTIONAL, loading, ref, new Float64Array(D));
+      for (const p of [rows, auto]) {
+        const conv = new Float64Array(D);
+        const mvdr = new Float64Array(D);
+        p.scan(SCAN_CONVENTIONAL | SCAN_MVDR, loading, conv, mvdr);
+        for (let d = 0; d < D; d++) expect(Math.abs(conv[d] - ref[d])).toBeLessThanOrEqual(allowed);
+      }
+      modes.push(auto.conventionalPerRow);
+      expect(rows.conventionalPerRow).toBe(true);
+    }
+    // The mode chosen after each row, from the hops before it.
+    expect(modes).toEqual([true, true, true, false, false, false, true, true]);
   });
 });

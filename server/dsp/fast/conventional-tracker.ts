@@ -347,6 +347,28 @@ export class ConventionalTracker {
   }
 
   /**
+   * Takes over a conventional spectrum computed elsewhere from the same bank (FastMvdrScanner.
+   * conventional, vᴴRv/M'² per bin on the bank's mask), with the bank's mask and weight state —
+   * seedFrom without its plain scan, for a processor that computed the spectrum per row for a
+   * while and now tracks it again.
+   * @param power binsCount·D values, bin-major (copied)
+   * @throws RangeError for a bank of other bins/channels or a short `power`
+   */
+  adopt(bank: CovarianceBank, power: Float64Array): void {
+    if (bank.bins !== this.binsCount) throw new RangeError(`covariance has ${bank.bins} bins, tracker ${this.binsCount}`);
+    if (bank.channels !== this.channels) throw new RangeError(`covariance has ${bank.channels} channels, steering table ${this.channels}`);
+    const n = this.binsCount * this.directions;
+    if (power.length < n) throw new RangeError(`power holds ${power.length}, needs ${n}`);
+    this.#active = Int32Array.from(bank.activeChannels);
+    this.#wasmRows();
+    this.power.set(power.subarray(0, n));
+    this.#wasmPush();
+    this.#weightSum = bank.weightSum;
+    this.#updates = bank.updates;
+    this.#consistent = true;
+  }
+
+  /**
    * Re-seeds from a covariance bank holding the same bins (after a mask change, or to start
    * tracking a bank with history): adopts the bank's mask, sets P = vᴴRv/M'² on the active
    * sub-matrix (the plain scan's cost, O(M'²·D) per bin), and takes over the bank's weight state.

@@ -120,6 +120,28 @@ export class F32SolveKernel {
     }
   }
 
+  /**
+   * Loads the lower triangle of R (full row-major, interleaved, 2·m² doubles) rounded to float32,
+   * packed like L, for {@link runQuad}. Replaces the factor (use after the bin's {@link run}).
+   */
+  setMatrix(a: Float64Array, m: number): void {
+    const h = this.#heapF32;
+    const base = this.#lPtr / 4;
+    for (let i = 0, e = 0; i < m; i++) {
+      const row = 2 * i * m;
+      for (let j = 0; j <= i; j++, e++) {
+        h[base + 2 * e] = a[row + 2 * j];
+        h[base + 2 * e + 1] = j < i ? a[row + 2 * j + 1] : 0;
+      }
+    }
+  }
+
+  /** q[d] = v_dᴴ R v_d for every direction of local bin lb, R from {@link setMatrix}. */
+  runQuad(lb: number, m: number): void {
+    const L = this.#layout;
+    this.#exp.quad(this.#lPtr, this.#rowsPtr, m, this.#vPtr + 4 * lb * L.binStride, L.blocks, 4 * L.blockStride, this.#qPtr);
+  }
+
   setRows(active: Int32Array): void {
     const base = this.#rowsPtr / 4;
     for (let j = 0; j < active.length; j++) this.#heapI32[base + j] = active[j] * 8 * this.k;

@@ -40,6 +40,13 @@ import { instantiateKernelsF32, WASM_F32_BLOCK_SIZES, type WasmF32BlockSize } fr
 
 export { FLOAT32_RELATIVE_LIMIT, FLOAT32_UNIT_ROUNDOFF, float32RelativeBound } from './mvdr-f32.ts';
 
+/** The bound of {@link FastMvdrScanner.conventional} in units of tr(R)/M' (unit-modulus steering vectors). */
+export function conventionalRowBound(activeChannels: number): number {
+  const u = 2 ** -24;
+  const gamma = (n: number) => (n * u) / (1 - n * u);
+  return Math.SQRT2 * gamma(activeChannels + 4) + gamma(2);
+}
+
 export type MvdrBackend = 'wasm' | 'js';
 
 export interface FastMvdrOptions {
@@ -301,7 +308,9 @@ export class FastMvdrScanner {
   scan(
     bank: CovarianceBank, loading: LoadingSpec, out: Float64Array,
     deltaOut: Float64Array | null = null, look: Int32Array | null = null, singular: Uint8Array | null = null,
+    conv: Float64Array | null = null,
   ): void {
+    if (conv !== null) this.#requireConv(conv);
     const B = this.binsCount;
     const D = this.directions;
     if (bank.bins !== B) throw new RangeError(`covariance has ${bank.bins} bins, scanner slice ${B}`);
@@ -325,6 +334,7 @@ export class FastMvdrScanner {
     let pendingDelta = 0;
     for (let lb = 0; lb < B; lb++) {
       bank.gather(lb, sub);
+      if (conv !== null) this.#conventionalBin(sub, lb, m, conv);
       const traceR = hermitianTrace(sub, 0, m);
       if (singular !== null) {
         // tr(R)/M = 0 (or not finite): the bin carries no usable signal; nothing to level or factor.
@@ -394,6 +404,46 @@ export class FastMvdrScanner {
       (chol as PairedCholesky).run(m);
       this.#finishPaired(bank, pending, 0, pendingDelta, out, singular);
     }
+  }
+
+  /**
+   * The conventional spectrum P_conv = vᴴRv/M'² of every bin, per row from the covariance (the
+   * f32x4 `quad` kernel over the same float32 steering copy as the MVDR scan; the alternative to
+   * tracking it per snapshot, ConventionalTracker, when rows are rare against hops). Error: each
+   * term of vᴴRv = Σ_ij conj(v_i) R_ij v_j is formed from float32-rounded R and v in float32, so
+   * |error| ≤ ε Σ_ij |R_ij||v_i||v_j| ≤ ε·tr(R)·‖v‖² (|R_ij| ≤ √(R_ii R_jj) for R ⪰ 0, then
+   * Cauchy–Schwarz), ε = √2·γ_{m+4} + γ₂ (Higham, Accuracy and Stability of Numerical Algorithms,
+   * 2nd ed., §3.1, §3.6) — for unit-modulus steering vectors ε·tr(R)/M', the form of the
+   * tracker's bound ({@link conventionalRowBound}). Needs precision 'f32'.
+   * @param out length ≥ binsCount·D, bin-major
+   */
+  conventional(bank: CovarianceBank, out: Float64Array): void {
+    if (bank.bins !== this.binsCount) throw new RangeError(`covariance has ${bank.bins} bins, scanner slice ${this.binsCount}`);
+    if (bank.channels !== this.channels) throw new RangeError(`covariance has ${bank.channels} channels, steering table ${this.channels}`);
+    this.#requireConv(out);
+    const active = bank.activeChannels;
+    this.#plan(active);
+    const m = active.length;
+    for (let lb = 0; lb < this.binsCount; lb++) {
+      bank.gather(lb, this.#sub);
+      this.#conventionalBin(this.#sub, lb, m, out);
+    }
+  }
+
+  #requireConv(conv: Float64Array): void {
+    if (this.#kernel32 === null) throw new Error("the conventional spectrum per row needs precision 'f32'");
+    if (conv.length < this.binsCount * this.directions) throw new RangeError(`conventional output holds ${conv.length}, needs ${this.binsCount * this.directions}`);
+  }
+
+  #conventionalBin(sub: Float64Array, lb: number, m: number, conv: Float64Array): void {
+    const k32 = this.#kernel32 as F32SolveKernel;
+    k32.setMatrix(sub, m);
+    k32.runQuad(lb, m);
+    const q = k32.q;
+    const D = this.directions;
+    const o = lb * D;
+    const scale = 1 / (m * m);
+    for (let d = 0; d < D; d++) conv[o + d] = q[d] * scale;
   }
 
   /**

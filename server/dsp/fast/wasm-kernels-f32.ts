@@ -17,6 +17,9 @@
  *      bytes for the block's y (same slab layout as the table, row i at i·8K)
  *  - conv(w, rows, m, v, blocks, blockBytes, p, keep, scale): y_d = Σ_{j<m} w_j v_d[row j],
  *      p[d] (float64) ← keep·p[d] + scale·|y_d|²
+ *  - quad(r, rows, m, v, blocks, blockBytes, out): the conventional form from the covariance itself,
+ *      out[d] (float64) = v_dᴴ R v_d = Σ_i (R_ii |v_i|² + 2 Re(conj(v_i) Σ_{j<i} R_ij v_j)), R's lower
+ *      triangle packed by rows like L (diagonal slots: R_ii, real); each row's term widened to float64
  * rows: m i32 byte offsets inside a block of the channel used as row j (active[j]·8K).
  */
 import { instantiateWat, type WasmMemory } from './wasm-assemble.ts';
@@ -28,6 +31,7 @@ export type WasmF32BlockSize = (typeof WASM_F32_BLOCK_SIZES)[number];
 export interface WasmF32KernelExports {
   memory: WasmMemory;
   solve(l: number, rows: number, m: number, v: number, blocks: number, blockBytes: number, out: number, ys: number): void;
+  quad(r: number, rows: number, m: number, v: number, blocks: number, blockBytes: number, out: number): void;
   conv(
     w: number, rows: number, m: number, v: number, blocks: number, blockBytes: number,
     p: number, keep: number, scale: number,
@@ -141,6 +145,45 @@ export function kernelWatF32(k: WasmF32BlockSize): string {
       (v128.store offset=${32 * u + 16} ${get('pp')}
         (f64x2.add (f64x2.mul ${get('kv')} (v128.load offset=${32 * u + 16} ${get('pp')})) (f64x2.mul ${get('sv')} ${hi64(`t${u}`)})))`)}
       ${set('pp', `(i32.add ${get('pp')} (i32.const ${8 * k}))`)}
+      ${set('vb', `(i32.add ${get('vb')} ${get('bs')})`)}
+      ${set('blk', `(i32.add ${get('blk')} (i32.const 1))`)}
+      (br_if $blocks (i32.lt_u ${get('blk')} ${get('nb')}))))
+  (func (export "quad") (param $r i32) (param $rows i32) (param $m i32) (param $v i32) (param $nb i32) (param $bs i32) (param $out i32)
+    ${common} (local $i i32) (local $ob i32) (local $ie i32) (local $d v128) ${vecLocals(per((u) => `ql${u} qh${u}`).split(/\s+/))}
+    (if (i32.eqz ${get('nb')}) (then (return)))
+    (if (i32.eqz ${get('m')}) (then (return)))
+    ${set('vb', get('v'))}
+    ${set('ob', get('out'))}
+    ${set('blk', '(i32.const 0)')}
+    (loop $blocks
+      ${per((u) => `${set(`ql${u}`, zero64)} ${set(`qh${u}`, zero64)}`)}
+      ${set('wp', get('r'))}
+      ${set('i', '(i32.const 0)')}
+      (loop $rowsI
+        ${clearY}
+        ;; y = Σ_{j<i} R_ij v_j
+        ${set('rp', get('rows'))}
+        ${set('ie', `(i32.add ${get('rows')} (i32.shl ${get('i')} (i32.const 2)))`)}
+        (if (i32.lt_u ${get('rp')} ${get('ie')}) (then
+          (loop $cols
+            ${set('wr', `(v128.load32_splat ${get('wp')})`)} ${set('wi', `(v128.load32_splat offset=4 ${get('wp')})`)}
+            ${set('p', `(i32.add ${get('vb')} (i32.load ${get('rp')}))`)}
+            ${macStep(n, k)}
+            ${set('wp', `(i32.add ${get('wp')} (i32.const 8))`)}
+            ${set('rp', `(i32.add ${get('rp')} (i32.const 4))`)}
+            (br_if $cols (i32.lt_u ${get('rp')} ${get('ie')})))))
+        ;; t = R_ii |v_i|² + 2 Re(conj(v_i) y)
+        ${set('d', `(v128.load32_splat ${get('wp')})`)}
+        ${set('wp', `(i32.add ${get('wp')} (i32.const 8))`)}
+        ${set('p', `(i32.add ${get('vb')} (i32.load ${get('ie')}))`)}
+        ${per((u) => `${set(`a${u}`, `(v128.load offset=${16 * u} ${get('p')})`)} ${set(`b${u}`, `(v128.load offset=${4 * k + 16 * u} ${get('p')})`)}
+        ${set(`t${u}`, add(mul(get('d'), add(mul(get(`a${u}`), get(`a${u}`)), mul(get(`b${u}`), get(`b${u}`)))),
+          mul('(v128.const f32x4 2 2 2 2)', add(mul(get(`a${u}`), get(`yr${u}`)), mul(get(`b${u}`), get(`yi${u}`))))))}`)}
+        ${per((u) => `${set(`ql${u}`, `(f64x2.add ${get(`ql${u}`)} ${lo64(get(`t${u}`))})`)} ${set(`qh${u}`, `(f64x2.add ${get(`qh${u}`)} ${hi64(`t${u}`)})`)}`)}
+        ${set('i', `(i32.add ${get('i')} (i32.const 1))`)}
+        (br_if $rowsI (i32.lt_u ${get('i')} ${get('m')})))
+      ${per((u) => `(v128.store offset=${32 * u} ${get('ob')} ${get(`ql${u}`)}) (v128.store offset=${32 * u + 16} ${get('ob')} ${get(`qh${u}`)})`)}
+      ${set('ob', `(i32.add ${get('ob')} (i32.const ${8 * k}))`)}
       ${set('vb', `(i32.add ${get('vb')} ${get('bs')})`)}
       ${set('blk', `(i32.add ${get('blk')} (i32.const 1))`)}
       (br_if $blocks (i32.lt_u ${get('blk')} ${get('nb')}))))
