@@ -7,8 +7,9 @@
  *     counting 4M² flops per direction (M(M+1)/2 complex multiply–adds ≈ 4M² real flops);
  *  2. one full MVDR spectrum update (61 bins: gather, loading, factor, scan): SpectrumScanner vs
  *     FastMvdrScanner, and the per-second cost at 20 Hz;
- *  3. the conventional spectrum: plain scan per update (×20/s) vs ConventionalTracker per snapshot
- *     (×187.5/s), so the engine can pick the cheaper per second of signal.
+ *  3. the conventional spectrum: plain scan per update (×20/s), per row from the covariance in
+ *     single precision, vs ConventionalTracker per snapshot (×187.5/s), so the engine can pick the
+ *     cheaper per second of signal.
  * The single-precision paths (f32x4: forward substitution blocked over 8 directions for MVDR, the
  * tracker's inner products) are timed beside the float64 ones, with their largest relative error
  * against float64 on this covariance.
@@ -209,6 +210,11 @@ console.log(`   (all ${B} bins' factors: Cholesky in JavaScript ${fmt(tFactorOnl
 console.log(`\n3. conventional spectrum, all ${B} bins                               ms each       ms per s of signal`);
 const tConv = time(() => plainScanner.scan(bank, { loading }, { conventional: out, mvdr: null }), RUNS);
 console.log(`   ${`plain scan (quadForm) per update, ×${SPECTRUM_HZ}/s`.padEnd(58)} ${fmt(tConv, 1e3, 2).padEnd(14)} ${perS(tConv, SPECTRUM_HZ)}`);
+{
+  const s32 = await FastMvdrScanner.create(table, 0, B, { precision: 'f32' });
+  const tRow = time(() => s32.conventional(bank, out), RUNS);
+  console.log(`   ${`per row from the covariance, f32x4 quad (FastMvdrScanner.conventional), ×${SPECTRUM_HZ}/s`.padEnd(58)} ${fmt(tRow, 1e3, 2).padEnd(14)} ${perS(tRow, SPECTRUM_HZ)}`);
+}
 const hops = 40;
 const snaps = Array.from({ length: 4 }, () => Float64Array.from({ length: 2 * M * B }, rnd));
 const trackers = [
