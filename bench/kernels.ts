@@ -7,40 +7,50 @@
  *     counting 4M² flops per direction (M(M+1)/2 complex multiply–adds ≈ 4M² real flops);
  *  2. one full MVDR spectrum update (61 bins: gather, loading, factor, scan): SpectrumScanner vs
  *     FastMvdrScanner, and the per-second cost at 20 Hz;
- *  3. the conventional spectrum: plain scan per update (×20/s) vs ConventionalTracker per snapshot
- *     (×187.5/s), so the engine can pick the cheaper per second of signal.
+ *  3. the conventional spectrum: plain scan per update (×20/s), per row from the covariance in
+ *     single precision, vs ConventionalTracker per snapshot (×187.5/s), so the engine can pick the
+ *     cheaper per second of signal.
+ * The single-precision paths (f32x4: forward substitution blocked over 8 directions for MVDR, the
+ * tracker's inner products) are timed beside the float64 ones, with their largest relative error
+ * against float64 on this covariance.
  * Run: `npx tsx bench/kernels.ts` (add `--numpy` for a numpy reference of the same per-bin form;
- * needs python3 with numpy). Prints medians (min in parentheses) of repeated runs.
+ * needs python3 with numpy; `--workload W64` or `W32-2D` for that workload's array and grid).
+ * Prints medians (min in parentheses) of repeated runs.
  */
 import { spawnSync } from 'node:child_process';
 import { loadGeometry } from '../server/config/array-file.ts';
 import { PROJECT_CONFIG_DIR } from '../server/config/load.ts';
 import { CovarianceBank } from '../server/dsp/covariance.ts';
-import { ConventionalTracker } from '../server/dsp/fast/conventional-tracker.ts';
+import { ConventionalTracker, trackerF32Bound } from '../server/dsp/fast/conventional-tracker.ts';
 import { InverseCholesky } from '../server/dsp/fast/inverse-factor.ts';
 import { mvdrBlocksK2, mvdrBlocksK4 } from '../server/dsp/fast/mvdr-kernels-js.ts';
 import { FastMvdrScanner } from '../server/dsp/fast/mvdr-scan.ts';
+import { PairedCholesky } from '../server/dsp/fast/wasm-cholesky.ts';
 import { fillPlanar, planarLayout } from '../server/dsp/fast/planar-steering.ts';
 import { instantiateKernels, WASM_BLOCK_SIZES } from '../server/dsp/fast/wasm-kernels.ts';
 import { HermitianSolver } from '../server/dsp/hermitian.ts';
 import { SpectrumScanner } from '../server/dsp/spectrum.ts';
 import { directionGrid, SteeringTable } from '../server/dsp/steering.ts';
+import { WORKLOADS } from './engine.ts';
 import { time, type Timing } from './util.ts';
 
 const FS_HZ = 48000;
 const N = 512;
 const HOP = N / 2;
 const SNAPSHOTS_PER_S = FS_HZ / HOP;
-const SPECTRUM_HZ = 20;
 const RUNS = 15;
 
-const geometry = await loadGeometry(`${PROJECT_CONFIG_DIR}/arrays/ring-32.json`);
+const wIdx = process.argv.indexOf('--workload');
+const workload = WORKLOADS.find((w) => w.name === (wIdx > 0 ? process.argv[wIdx + 1] : 'W32'));
+if (!workload) throw new Error(`unknown workload; known: ${WORKLOADS.map((w) => w.name).join(', ')}`);
+const SPECTRUM_HZ = workload.spectrumRateHz;
+const geometry = await loadGeometry(`${PROJECT_CONFIG_DIR}/arrays/${workload.array}`);
 const M = geometry.positions.length;
 const startBin = Math.ceil((300 * N) / FS_HZ);
 const stopBin = Math.floor((6000 * N) / FS_HZ);
 const B = stopBin - startBin + 1;
 const freqs = Float64Array.from({ length: B }, (_, i) => ((startBin + i) * FS_HZ) / N);
-const grid = directionGrid({ azimuthDeg: { startDeg: 0, stopDeg: 359, stepDeg: 1 } });
+const grid = directionGrid(workload.grid);
 const D = grid.count;
 const table = new SteeringTable({ positions: geometry.positions, grid, freqsHz: freqs, speedOfSoundMps: 343.2 });
 
@@ -59,7 +69,7 @@ const fmt = (t: Timing, scale: number, digits = 1) => `${(t.medianS * scale).toF
 const flopsPerBin = 4 * M * M * D;
 const gflops = (perBinS: number) => (flopsPerBin / perBinS / 1e9).toFixed(2);
 
-console.log(`W32: M = ${M}, ${B} bins, D = ${D}, ${SNAPSHOTS_PER_S} snapshots/s, MVDR spectrum at ${SPECTRUM_HZ} Hz`);
+console.log(`${workload.name}: M = ${M}, ${B} bins, D = ${D}, ${SNAPSHOTS_PER_S} snapshots/s, MVDR spectrum at ${SPECTRUM_HZ} Hz`);
 console.log(`medians of ${RUNS} runs (min in parentheses)\n`);
 
 // ---- 1. per-bin inner loop --------------------------------------------------------------------
@@ -82,7 +92,7 @@ for (let b = 0; b < B; b++) {
 }
 const q = new Float64Array(D + 8);
 const rows = new Int32Array(M);
-console.log('1. MVDR inner loop, per bin (360 directions, M = 32)      µs/bin          GFLOP/s  vs plain');
+console.log(`1. MVDR inner loop, per bin (${D} directions, M = ${M})      µs/bin          GFLOP/s  vs plain`);
 const perBin: [string, number][] = [];
 const report = (name: string, t: Timing) => {
   const us = (t.medianS / B) * 1e6;
@@ -153,7 +163,7 @@ for name, f in (('einsum dm,mn,dn->d with inv(R)', f1), ('inv + matmul + row dot
 }
 
 // ---- 2. full MVDR update ----------------------------------------------------------------------
-console.log('\n2. full W32 MVDR update (61 bins: gather, loading, factor, scan)   ms/update     ms per s at 20 Hz');
+console.log(`\n2. full ${workload.name} MVDR update (${B} bins: gather, loading, factor, scan)   ms/update     ms per s at ${SPECTRUM_HZ} Hz`);
 const loading = { mode: 'relative', ratio: loadingRatio } as const;
 const plainScanner = new SpectrumScanner(table);
 const out = new Float64Array(B * D);
@@ -165,26 +175,74 @@ const fastVariants: [string, FastMvdrScanner][] = [
   ['FastMvdrScanner wasm K = 2', await FastMvdrScanner.create(table, 0, B, { blockSize: 2 })],
   ['FastMvdrScanner js K = 2', FastMvdrScanner.createJs(table, 0, B, 2)],
 ];
+for (const k of [4, 8, 12]) {
+  fastVariants.push([`FastMvdrScanner wasm f32 forward subst., K = ${k}${k === 8 ? ' (default)' : ''}`, await FastMvdrScanner.create(table, 0, B, { precision: 'f32', blockSizeF32: k })]);
+}
+const ref64 = new Float64Array(B * D);
+fastVariants[0][1].scan(bank, loading, ref64);
 for (const [name, s] of fastVariants) {
   const t = time(() => s.scan(bank, loading, out), RUNS);
-  console.log(`   ${name.padEnd(58)} ${fmt(t, 1e3, 2).padEnd(14)} ${perS(t, SPECTRUM_HZ)}   (${(tPlain.medianS / t.medianS).toFixed(2)}× plain)`);
+  let err = 0;
+  for (let i = 0; i < out.length; i++) err = Math.max(err, Math.abs(out[i] - ref64[i]) / ref64[i]);
+  const errNote = s.precision === 'f32' ? `, max rel. error vs float64 ${err.toExponential(1)}` : '';
+  console.log(`   ${name.padEnd(58)} ${fmt(t, 1e3, 2).padEnd(14)} ${perS(t, SPECTRUM_HZ)}   (${(tPlain.medianS / t.medianS).toFixed(2)}× plain${errNote})`);
 }
+const tFactorOnly = time(() => {
+  const inv = new InverseCholesky(M);
+  for (let b = 0; b < B; b++) inv.factor(bank.data, bank.matrixOffset(b), 1, false);
+}, RUNS);
+const paired = await PairedCholesky.create(M);
+const subA = new Float64Array(2 * M * M);
+const subB = new Float64Array(2 * M * M);
+const tPaired = time(() => {
+  for (let b = 0; b + 1 < B; b += 2) {
+    bank.gather(b, subA);
+    bank.gather(b + 1, subB);
+    paired.load(0, subA, M, 1);
+    paired.load(1, subB, M, 1);
+    paired.run(M);
+  }
+}, RUNS);
+console.log(`   (all ${B} bins' factors: Cholesky in JavaScript ${fmt(tFactorOnly, 1e3, 2)} ms, two bins per SIMD lane pair as the f32 path runs it ` +
+  `${fmt(tPaired, 1e3, 2)} ms (${B - (B % 2)} bins, gathers included); with L⁻¹ as the float64 path ${fmt(tInv, 1e3, 2)} ms)`);
 
 // ---- 3. conventional --------------------------------------------------------------------------
-console.log('\n3. conventional spectrum, all 61 bins                               ms each       ms per s of signal');
+console.log(`\n3. conventional spectrum, all ${B} bins                               ms each       ms per s of signal`);
 const tConv = time(() => plainScanner.scan(bank, { loading }, { conventional: out, mvdr: null }), RUNS);
-console.log(`   ${'plain scan (quadForm) per update, ×20/s'.padEnd(58)} ${fmt(tConv, 1e3, 2).padEnd(14)} ${perS(tConv, SPECTRUM_HZ)}`);
+console.log(`   ${`plain scan (quadForm) per update, ×${SPECTRUM_HZ}/s`.padEnd(58)} ${fmt(tConv, 1e3, 2).padEnd(14)} ${perS(tConv, SPECTRUM_HZ)}`);
+{
+  const s32 = await FastMvdrScanner.create(table, 0, B, { precision: 'f32' });
+  const tRow = time(() => s32.conventional(bank, out), RUNS);
+  console.log(`   ${`per row from the covariance, f32x4 quad (FastMvdrScanner.conventional), ×${SPECTRUM_HZ}/s`.padEnd(58)} ${fmt(tRow, 1e3, 2).padEnd(14)} ${perS(tRow, SPECTRUM_HZ)}`);
+}
 const hops = 40;
 const snaps = Array.from({ length: 4 }, () => Float64Array.from({ length: 2 * M * B }, rnd));
-for (const [name, tr] of [
+const trackers = [
   ['ConventionalTracker js, per snapshot, ×187.5/s', new ConventionalTracker(table)],
   ['ConventionalTracker wasm, per snapshot, ×187.5/s', await ConventionalTracker.create(table)],
-] as const) {
+  ['ConventionalTracker wasm f32, per snapshot, ×187.5/s', await ConventionalTracker.create(table, 0, B, 'f32')],
+] as const;
+for (const [name, tr] of trackers) {
   const t = time(() => {
     for (let k = 0; k < hops; k++) tr.update(snaps[k & 3], 0.99);
   }, RUNS);
   const each: Timing = { medianS: t.medianS / hops, minS: t.minS / hops, runs: t.runs };
   console.log(`   ${name.padEnd(58)} ${fmt(each, 1e3, 3).padEnd(14)} ${perS(each, SNAPSHOTS_PER_S)}`);
+}
+{
+  // Same snapshots into the float64 and float32 trackers: the largest error in units of the mean
+  // sensor power tr(R)/M (the unit of conventional-tracker.ts's bound).
+  const [a, b] = [await ConventionalTracker.create(table), await ConventionalTracker.create(table, 0, B, 'f32')];
+  let power = 0;
+  for (let k = 0; k < 50; k++) {
+    a.update(snaps[k & 3], 0.99);
+    b.update(snaps[k & 3], 0.99);
+  }
+  for (const s of snaps) for (const x of s) power += x * x;
+  power /= snaps.length * M * B;
+  let err = 0;
+  for (let i = 0; i < a.power.length; i++) err = Math.max(err, Math.abs(a.power[i] - b.power[i]));
+  console.log(`   (f32 tracker after 50 snapshots: max |error| ${(err / power).toExponential(1)} of the mean sensor power; bound ${trackerF32Bound(M).toExponential(1)})`);
 }
 const seeder = new ConventionalTracker(table);
 const tSeed = time(() => seeder.seedFrom(bank, 0.5), 5);

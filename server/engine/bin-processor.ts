@@ -25,6 +25,21 @@ export interface BinProcessorOptions {
    * runs the plain float64 kernels, which are the reference the fast paths are tested against.
    */
   fast?: boolean;
+  /**
+   * With `fast`: 'f32' (default) runs the MVDR scan's bins that are within the stated error bound
+   * (mvdr-scan.ts float32RelativeBound ≤ FLOAT32_RELATIVE_LIMIT) and the conventional tracker's
+   * inner products in single precision (f32x4, twice the directions per instruction; errors
+   * derived in mvdr-scan.ts and conventional-tracker.ts); 'f64' keeps the fast kernels in float64.
+   */
+  precision?: 'f64' | 'f32';
+  /**
+   * How the fast path forms the conventional spectrum. 'tracker': per snapshot (O(M·D) per bin and
+   * hop, conventional-tracker.ts); 'rows': per row from the covariance (O(M²·D/2) per bin and row,
+   * FastMvdrScanner.conventional; needs precision 'f32'); 'auto' (default): rows while more than
+   * M'/2 hops pass between rows, the tracker again below 0.4·M' — the break-even measured with
+   * bench/kernels.ts (W32-2D: rows 3.3 ms against 4.9 ms of tracking per row of 31 bins).
+   */
+  conventional?: 'auto' | 'tracker' | 'rows';
 }
 
 export const SCAN_CONVENTIONAL = 1;
@@ -44,7 +59,11 @@ export class BinProcessor {
 
   async #buildFast(): Promise<void> {
     const table = this.#table;
-    const [tracker, mvdr] = await Promise.all([ConventionalTracker.create(table), FastMvdrScanner.create(table)]);
+    const precision = this.#opts.precision ?? 'f32';
+    const [tracker, mvdr] = await Promise.all([
+      ConventionalTracker.create(table, 0, table.bins, precision),
+      FastMvdrScanner.create(table, 0, table.bins, { precision }),
+    ]);
     if (table !== this.#table) return; // a newer grid won the race; it builds its own
     // Synchronous from here: no hop runs between seeding and installing.
     tracker.setMask(this.#active);
@@ -111,7 +130,44 @@ export class BinProcessor {
     const s = this.#opts.snapshotScale;
     for (let i = 0; i < snap.length; i++) snap[i] *= s;
     this.bank.update(snap, lambda);
-    this.#tracker?.update(snap, lambda);
+    if (!this.#rows) this.#tracker?.update(snap, lambda);
+    this.#hopsSinceScan++;
+  }
+
+  /** True while the conventional spectrum is formed per row (the tracker is not fed meanwhile). */
+  #rows = false;
+  #hopsSinceScan = 0;
+
+  /** Whether the conventional spectrum is formed per row now (see BinProcessorOptions.conventional). */
+  get conventionalPerRow(): boolean {
+    return this.#rows;
+  }
+
+  /** Whether per-row conventional spectra are possible: the single-precision fast scanner and a tracker. */
+  #rowsPossible(): boolean {
+    return this.#fastMvdr !== null && this.#fastMvdr.precision === 'f32' && this.#tracker !== null;
+  }
+
+  /**
+   * After a scan: picks per-row or tracked conventional spectra for the next interval from the hops
+   * that passed since the last scan. Going back to the tracker hands it this scan's per-row values.
+   */
+  #chooseConventional(convFresh: boolean): void {
+    const hops = this.#hopsSinceScan;
+    this.#hopsSinceScan = 0;
+    const mode = this.#opts.conventional ?? 'auto';
+    const possible = this.#rowsPossible();
+    const m = this.bank.activeChannels.length;
+    let rows = this.#rows;
+    if (!possible || mode === 'tracker') rows = false;
+    else if (mode === 'rows') rows = true;
+    else if (!rows && hops > 0.5 * m) rows = true;
+    else if (rows && hops < 0.4 * m) rows = false;
+    if (this.#rows && !rows && this.#tracker !== null) {
+      if (!convFresh) (this.#fastMvdr as FastMvdrScanner).conventional(this.bank, this.#conv);
+      this.#tracker.adopt(this.bank, this.#conv);
+    }
+    this.#rows = rows;
   }
 
   /**
@@ -125,10 +181,11 @@ export class BinProcessor {
     const B = this.bins;
     const wantConv = (flags & SCAN_CONVENTIONAL) !== 0;
     const wantMvdr = (flags & SCAN_MVDR) !== 0;
-    const tracker = this.#tracker !== null && this.#tracker.consistent ? this.#tracker : null;
+    const rows = this.#rows && this.#rowsPossible();
+    const tracker = !rows && this.#tracker !== null && this.#tracker.consistent ? this.#tracker : null;
     // The fast MVDR scan needs a look direction for a WNG floor; the plain scan finds it itself.
     const fastMvdr = loading.mode === 'wng' ? null : this.#fastMvdr;
-    const plainConv = wantConv && tracker === null;
+    const plainConv = wantConv && !rows && tracker === null;
     const plainMvdr = wantMvdr && fastMvdr === null;
     // Bins whose R + δI does not factor (no signal at all, or too few snapshots unloaded) get MVDR
     // power 0 and are counted, instead of ending the worker.
@@ -138,7 +195,10 @@ export class BinProcessor {
       this.#scanner.scan(this.bank, { loading }, { conventional: plainConv ? this.#conv : null, mvdr: plainMvdr ? this.#mvdr : null, loadingDelta: deltaOut, singular });
     }
     if (wantConv && tracker !== null) this.#conv.set(tracker.power);
-    if (wantMvdr && fastMvdr !== null) fastMvdr.scan(this.bank, loading, this.#mvdr, deltaOut, null, singular);
+    // Per row: the conventional form in the same pass as the MVDR scan (one gather per bin).
+    const convWithMvdr = wantConv && rows && wantMvdr && fastMvdr !== null;
+    if (wantConv && rows && !convWithMvdr) (this.#fastMvdr as FastMvdrScanner).conventional(this.bank, this.#conv);
+    if (wantMvdr && fastMvdr !== null) fastMvdr.scan(this.bank, loading, this.#mvdr, deltaOut, null, singular, convWithMvdr ? this.#conv : null);
     if (wantMvdr) for (let b = 0; b < B; b++) this.singularBins += singular[b];
     const normalise = (flags & SCAN_NORMALISE) !== 0;
     if (wantConv) sumBins(conv, this.#conv, B, D, normalise);
@@ -158,7 +218,15 @@ export class BinProcessor {
       if (wantMvdr) sumBins(mvdr, this.#mvdr, B, D, normalise);
       this.reset();
       this.covarianceResets++;
+      this.#hopsSinceScan = 0;
+      return;
     }
+    this.#chooseConventional(wantConv && rows);
+  }
+
+  /** MVDR bins scanned in single precision (within the error bound) so far, by this grid's scanner. */
+  get float32Bins(): number {
+    return this.#fastMvdr?.float32Bins ?? 0;
   }
 
   /** Bins left MVDR power 0 because R + δI did not factor, over every scan so far. */
@@ -216,7 +284,8 @@ export class BinProcessor {
     this.#active = Array.from(active, Boolean);
     if (this.#tracker) {
       this.#tracker.setMask(active);
-      if (this.bank.updates > 0) this.#tracker.seedFrom(this.bank, this.bank.weightSum);
+      // Per row, the tracker is not fed: it is handed the spectrum when tracking resumes.
+      if (this.bank.updates > 0 && !this.#rows) this.#tracker.seedFrom(this.bank, this.bank.weightSum);
     }
   }
 

@@ -22,14 +22,42 @@ import { quadForm } from '../hermitian.ts';
 import type { SteeringTable } from '../steering.ts';
 import { fillPlanar, planarLayout, type PlanarLayout } from './planar-steering.ts';
 import { instantiateKernels, type WasmKernelExports } from './wasm-kernels.ts';
+import { instantiateKernelsF32 } from './wasm-kernels-f32.ts';
 
 /** Directions per block of the WebAssembly backend (measured best for M = 32, bench/kernels.ts). */
 const WASM_TRACKER_BLOCK = 4;
+/** Directions per block of the single-precision backend (f32x4, two vectors per part). */
+const WASM_F32_TRACKER_BLOCK = 8;
+
+/**
+ * Precision of the WebAssembly tracker. 'f32': x and the steering copy rounded to float32 and
+ * y = vᴴx formed in float32 (f32x4, twice the directions per instruction); |y|², the recursion
+ * and the powers stay float64. Error (Higham, Accuracy and Stability of Numerical Algorithms, 2nd
+ * ed., §3.1, §3.6): |ŷ − y| ≤ ε Σ_j |v_j||x_j| ≤ ε‖v‖‖x‖ with ε = √2·γ_{M+4}, γ_n = nu/(1 − nu),
+ * u = 2⁻²⁴, so each term |y|²/M'² is off by at most (2ε + ε²)(1 + γ₂)‖v‖²‖x‖²/M'² plus γ₂ of itself; the
+ * recursion is a convex combination of those terms, so for unit-modulus steering vectors
+ *   |P̂(d) − P(d)| ≤ ((2ε + ε²)(1 + γ₂) + γ₂) · tr(R)/M'   (tr R/M' = the mean active sensor power),
+ * an absolute bound: 6.2·10⁻⁶ of the mean sensor power for M' = 32, 1.2·10⁻⁵ for M' = 64 (about
+ * −50 dB). Near a deep null of the conventional pattern the relative error can be larger than
+ * that; test/unit/fast-f32.test.ts checks the bound (measured: under a tenth of it).
+ */
+export type TrackerPrecision = 'f64' | 'f32';
+
+/** The absolute error bound of the 'f32' tracker in units of tr(R)/M' (see {@link TrackerPrecision}). */
+export function trackerF32Bound(activeChannels: number): number {
+  const u = 2 ** -24;
+  const gamma = (n: number) => (n * u) / (1 - n * u);
+  const eps = Math.SQRT2 * gamma(activeChannels + 4);
+  return (2 * eps + eps * eps) * (1 + gamma(2)) + gamma(2);
+}
 
 /** The WebAssembly state of a tracker: kernels, its memory map, and views on that memory. */
 interface WasmTrackerState {
-  exp: WasmKernelExports;
+  exp: Pick<WasmKernelExports, 'conv' | 'memory'>;
   layout: PlanarLayout;
+  /** The f32x4 kernels read conj(x) and the steering copy as float32. */
+  single: boolean;
+  f32: Float32Array;
   f64: Float64Array;
   i32: Int32Array;
   /** Byte offsets: conj(x) (2·M doubles), row list (M i32), padded powers (B·blocks·K), planar table. */
@@ -101,20 +129,28 @@ export class ConventionalTracker {
    * A tracker running on the WebAssembly SIMD kernel (same results to rounding; see the class
    * comment). Rejects like the constructor throws, or when WebAssembly SIMD is unavailable.
    */
-  static async create(table: SteeringTable, binsStart = 0, binsCount = table.bins - binsStart): Promise<ConventionalTracker> {
+  static async create(
+    table: SteeringTable, binsStart = 0, binsCount = table.bins - binsStart, precision: TrackerPrecision = 'f64',
+  ): Promise<ConventionalTracker> {
+    if (precision !== 'f64' && precision !== 'f32') throw new TypeError(`precision must be 'f64' or 'f32', got ${JSON.stringify(precision)}`);
     const tracker = new ConventionalTracker(table, binsStart, binsCount);
-    const layout = planarLayout(table, binsStart, binsCount, WASM_TRACKER_BLOCK);
+    const single = precision === 'f32';
+    const layout = planarLayout(table, binsStart, binsCount, single ? WASM_F32_TRACKER_BLOCK : WASM_TRACKER_BLOCK);
     const M = table.channels;
+    const bytes = single ? 4 : 8;
     const align = (x: number) => Math.ceil(x / 16) * 16;
     const wPtr = 0;
-    const rowsPtr = align(16 * M);
+    const rowsPtr = align(2 * bytes * M);
     const pPtr = align(rowsPtr + 4 * M);
     const vPtr = align(pPtr + 8 * binsCount * layout.blocks * layout.k);
-    const exp = await instantiateKernels(WASM_TRACKER_BLOCK, vPtr + 8 * binsCount * layout.binStride);
+    const total = vPtr + bytes * binsCount * layout.binStride;
+    const exp = single ? await instantiateKernelsF32(WASM_F32_TRACKER_BLOCK, total) : await instantiateKernels(WASM_TRACKER_BLOCK, total);
     const f64 = new Float64Array(exp.memory.buffer); // memory is never grown again: views stay valid
+    const f32 = new Float32Array(exp.memory.buffer);
     const i32 = new Int32Array(exp.memory.buffer);
-    fillPlanar(f64, vPtr / 8, table, layout);
-    tracker.#wasm = { exp, layout, f64, i32, wPtr, rowsPtr, pPtr, vPtr };
+    if (single) fillPlanar(f32, vPtr / 4, table, layout);
+    else fillPlanar(f64, vPtr / 8, table, layout);
+    tracker.#wasm = { exp, layout, single, f32, f64, i32, wPtr, rowsPtr, pPtr, vPtr };
     tracker.#wasmRows();
     return tracker;
   }
@@ -124,11 +160,17 @@ export class ConventionalTracker {
     return this.#wasm === null ? 'js' : 'wasm';
   }
 
+  /** 'f32' for the single-precision WebAssembly kernel, else 'f64'. */
+  get precision(): TrackerPrecision {
+    return this.#wasm?.single ? 'f32' : 'f64';
+  }
+
   #wasmRows(): void {
     const w = this.#wasm;
     if (w === null) return;
     const a = this.#active;
-    for (let j = 0; j < a.length; j++) w.i32[w.rowsPtr / 4 + j] = a[j] * 16 * w.layout.k;
+    const slab = (w.single ? 8 : 16) * w.layout.k; // bytes of one channel's K re + K im parts
+    for (let j = 0; j < a.length; j++) w.i32[w.rowsPtr / 4 + j] = a[j] * slab;
   }
 
   /** Copies `power` into the wasm-side padded powers (after reset / seed). */
@@ -287,19 +329,43 @@ export class ConventionalTracker {
     const { blocks, k, binStride, blockStride } = w.layout;
     const padded = blocks * k;
     const f64 = w.f64;
-    const wo = w.wPtr / 8;
+    const xs = w.single ? w.f32 : f64;
+    const bytes = w.single ? 4 : 8;
+    const wo = w.wPtr / bytes;
     for (let lb = 0; lb < this.binsCount; lb++) {
       const src = lb * 2 * M;
       // conj(x): the kernel forms Σ conj(x_j) v_j = conj(vᴴx), whose modulus is |vᴴx|.
       for (let i = 0; i < m; i++) {
-        f64[wo + 2 * i] = snapshot[src + 2 * active[i]];
-        f64[wo + 2 * i + 1] = -snapshot[src + 2 * active[i] + 1];
+        xs[wo + 2 * i] = snapshot[src + 2 * active[i]];
+        xs[wo + 2 * i + 1] = -snapshot[src + 2 * active[i] + 1];
       }
       const pp = w.pPtr + 8 * lb * padded;
-      w.exp.conv(w.wPtr, w.rowsPtr, m, w.vPtr + 8 * lb * binStride, blocks, 8 * blockStride, pp, keep, scale);
+      w.exp.conv(w.wPtr, w.rowsPtr, m, w.vPtr + bytes * lb * binStride, blocks, bytes * blockStride, pp, keep, scale);
       const power = this.power;
       for (let d = 0, s = pp / 8, o = lb * D; d < D; d++) power[o + d] = f64[s + d];
     }
+  }
+
+  /**
+   * Takes over a conventional spectrum computed elsewhere from the same bank (FastMvdrScanner.
+   * conventional, vᴴRv/M'² per bin on the bank's mask), with the bank's mask and weight state —
+   * seedFrom without its plain scan, for a processor that computed the spectrum per row for a
+   * while and now tracks it again.
+   * @param power binsCount·D values, bin-major (copied)
+   * @throws RangeError for a bank of other bins/channels or a short `power`
+   */
+  adopt(bank: CovarianceBank, power: Float64Array): void {
+    if (bank.bins !== this.binsCount) throw new RangeError(`covariance has ${bank.bins} bins, tracker ${this.binsCount}`);
+    if (bank.channels !== this.channels) throw new RangeError(`covariance has ${bank.channels} channels, steering table ${this.channels}`);
+    const n = this.binsCount * this.directions;
+    if (power.length < n) throw new RangeError(`power holds ${power.length}, needs ${n}`);
+    this.#active = Int32Array.from(bank.activeChannels);
+    this.#wasmRows();
+    this.power.set(power.subarray(0, n));
+    this.#wasmPush();
+    this.#weightSum = bank.weightSum;
+    this.#updates = bank.updates;
+    this.#consistent = true;
   }
 
   /**

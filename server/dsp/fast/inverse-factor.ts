@@ -43,9 +43,11 @@ export class InverseCholesky {
    * Factors A + loading·I = L Lᴴ and writes W = L⁻¹ into {@link inverse}. Reads only the lower
    * triangle and the real diagonal of A (2·M² doubles from aOffset, full row-major).
    * @param loading δ ≥ 0, finite
+   * @param invert false: only the factor L ({@link lower}, {@link invDiag}); call {@link invert}
+   *   later when W is wanted after all
    * @throws NotPositiveDefiniteError exactly when HermitianSolver.factor would (same pivot rule)
    */
-  factor(a: Float64Array, aOffset = 0, loading = 0): void {
+  factor(a: Float64Array, aOffset = 0, loading = 0, invert = true): void {
     const m = this.m;
     if (!Number.isInteger(aOffset) || aOffset < 0 || aOffset + 2 * m * m > a.length) {
       throw new RangeError(`a needs ${2 * m * m} entries from offset ${aOffset}, but has length ${a.length}`);
@@ -92,6 +94,24 @@ export class InverseCholesky {
         }
       }
     }
+    if (invert) this.invert();
+  }
+
+  /** L of the last successful {@link factor}, packed by rows (as {@link inverse}). Treat as read-only. */
+  get lower(): Float64Array {
+    return this.#l;
+  }
+
+  /** 1 / L_ii of the last successful {@link factor}. Treat as read-only. */
+  get invDiag(): Float64Array {
+    return this.#invDiag;
+  }
+
+  /** W = L⁻¹ of the last successful {@link factor} into {@link inverse} (done by factor unless told not to). */
+  invert(): void {
+    const m = this.m;
+    const l = this.#l;
+    const invDiag = this.#invDiag;
     // W = L⁻¹, row by row: W_ii = 1/L_ii and, for j < i, W_ij = −(Σ_{k=j}^{i−1} L_ik W_kj) / L_ii,
     // accumulated as row axpys (row i += L_ik · row k of W, j ≤ k) so both rows are walked in order.
     const w = this.inverse;

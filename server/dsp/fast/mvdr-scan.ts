@@ -13,6 +13,15 @@
  * the JavaScript planar kernels were slower than the plain loop (323–343 µs); the full 61-bin update
  * 5.7 ms against 17.2 ms for SpectrumScanner (factor + L⁻¹ ≈ 25 µs of each bin's ≈ 93 µs).
  *
+ * Single precision (option precision 'f32', BinProcessor's default on the fast path): a bin whose
+ * derived relative error bound ({@link float32RelativeBound}) is at most
+ * {@link FLOAT32_RELATIVE_LIMIT} skips L⁻¹ altogether: its Cholesky factor (two bins at once, one
+ * per f64x2 lane, wasm-cholesky.ts, float64) is rounded to float32 and the forward substitution
+ * L y = v runs blocked over 8 directions in f32x4 (wasm-kernels-f32.ts `solve`), |y_i|² summed in
+ * float64. Other bins (no loading, or loading so small the bound exceeds the limit) run the
+ * float64 path above. Measured on W64 (31 bins, bench/kernels.ts --workload W64): 12.9 ms float64,
+ * 4.2 ms single precision; largest relative error against float64 about 1e-7 (bound 9e-4).
+ *
  * Masked channels (CovarianceBank.setMask) are supported at no extra cost: the kernel reads its
  * rows through an index list, so the active sub-matrix is scanned against the matching channels
  * of each steering vector, exactly as SpectrumScanner does.
@@ -22,13 +31,39 @@ import { hermitianTrace, NotPositiveDefiniteError } from '../hermitian.ts';
 import { createLoadingResult, LoadingSolver, type LoadingResult, type LoadingSpec } from '../loading.ts';
 import type { SteeringTable } from '../steering.ts';
 import { InverseCholesky } from './inverse-factor.ts';
+import { PairedCholesky } from './wasm-cholesky.ts';
 import { mvdrBlocksK2, mvdrBlocksK4 } from './mvdr-kernels-js.ts';
 import { fillPlanar, planarLayout, type PlanarLayout } from './planar-steering.ts';
 import { instantiateKernels, WASM_BLOCK_SIZES, type WasmBlockSize, type WasmKernelExports } from './wasm-kernels.ts';
+import { F32SolveKernel, FLOAT32_RELATIVE_LIMIT, float32RelativeBound } from './mvdr-f32.ts';
+import { instantiateKernelsF32, WASM_F32_BLOCK_SIZES, type WasmF32BlockSize } from './wasm-kernels-f32.ts';
+
+export { FLOAT32_RELATIVE_LIMIT, FLOAT32_UNIT_ROUNDOFF, float32RelativeBound } from './mvdr-f32.ts';
+
+/** The bound of {@link FastMvdrScanner.conventional} in units of tr(R)/M' (unit-modulus steering vectors). */
+export function conventionalRowBound(activeChannels: number): number {
+  const u = 2 ** -24;
+  const gamma = (n: number) => (n * u) / (1 - n * u);
+  return Math.SQRT2 * gamma(activeChannels + 4) + gamma(2);
+}
 
 export type MvdrBackend = 'wasm' | 'js';
 
 export interface FastMvdrOptions {
+  /**
+   * 'f64' (default): float64 throughout. 'f32' (wasm only): bins whose error bound
+   * ({@link float32RelativeBound}) is at most {@link FLOAT32_RELATIVE_LIMIT} run the f32x4
+   * forward-substitution kernel (twice the directions per instruction, and no L⁻¹ to form), the
+   * others the float64 kernel.
+   */
+  precision?: 'f64' | 'f32';
+  /** Directions per block of the f32x4 kernel: 4, 8 or 12 (default 8). */
+  blockSizeF32?: number;
+  /**
+   * With 'f32': factor two bins at once in WebAssembly (wasm-cholesky.ts, the same float64
+   * arithmetic as InverseCholesky) — default true; false factors each bin in JavaScript.
+   */
+  pairedFactor?: boolean;
   /** 'wasm' (default): WebAssembly SIMD; 'js': plain JavaScript over the same layout. */
   backend?: MvdrBackend;
   /** Directions per block K: wasm 2, 4, 6 or 8 (default 4); js 2 or 4 (default 4). */
@@ -152,7 +187,15 @@ export class FastMvdrScanner {
   /** Which kernel runs, and its block size K. */
   readonly backend: MvdrBackend;
   readonly blockSize: number;
+  /** 'f32' when the single-precision kernel may run (bins within the bound), else 'f64'. */
+  readonly precision: 'f64' | 'f32';
+  /** Bins scanned by the float32 kernel and by a float64 one, over every scan so far. */
+  float32Bins = 0;
+  float64Bins = 0;
   readonly #kernel: BatchKernel;
+  readonly #kernel32: F32SolveKernel | null;
+  /** With the f32 kernel: the Cholesky factors of two bins at once (wasm-cholesky.ts). */
+  readonly #chol: PairedCholesky | null;
   #m = -1;
   #activeSeen: Int32Array | null = null;
   #sub = new Float64Array(0);
@@ -161,7 +204,12 @@ export class FastMvdrScanner {
   #loader!: LoadingSolver;
   readonly #loadResult: LoadingResult = createLoadingResult();
 
-  private constructor(table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel) {
+  private constructor(
+    table: SteeringTable, layout: PlanarLayout, kernel: BatchKernel, kernel32: F32SolveKernel | null = null, chol: PairedCholesky | null = null,
+  ) {
+    this.#kernel32 = kernel32;
+    this.#chol = chol;
+    this.precision = kernel32 === null ? 'f64' : 'f32';
     this.table = table;
     this.binsStart = layout.binsStart;
     this.binsCount = layout.binsCount;
@@ -189,9 +237,23 @@ export class FastMvdrScanner {
     if (!(WASM_BLOCK_SIZES as readonly number[]).includes(k)) {
       throw new RangeError(`wasm blockSize must be one of ${WASM_BLOCK_SIZES.join(', ')}, got ${k}`);
     }
+    const precision = options.precision ?? 'f64';
+    if (precision !== 'f64' && precision !== 'f32') throw new TypeError(`precision must be 'f64' or 'f32', got ${JSON.stringify(precision)}`);
     const layout = planarLayout(table, binsStart, binsCount, k);
     const exp = await instantiateKernels(k as WasmBlockSize, WasmKernel.bytesFor(layout).total);
-    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp));
+    let kernel32: F32SolveKernel | null = null;
+    let chol: PairedCholesky | null = null;
+    if (precision === 'f32') {
+      if (options.pairedFactor !== false) chol = await PairedCholesky.create(table.channels);
+      const k32 = options.blockSizeF32 ?? 8;
+      if (!(WASM_F32_BLOCK_SIZES as readonly number[]).includes(k32)) {
+        throw new RangeError(`wasm blockSizeF32 must be one of ${WASM_F32_BLOCK_SIZES.join(', ')}, got ${k32}`);
+      }
+      const layout32 = planarLayout(table, binsStart, binsCount, k32);
+      const exp32 = await instantiateKernelsF32(k32 as WasmF32BlockSize, F32SolveKernel.bytesFor(layout32).total);
+      kernel32 = new F32SolveKernel(table, layout32, exp32);
+    }
+    return new FastMvdrScanner(table, layout, new WasmKernel(table, layout, exp), kernel32, chol);
   }
 
   /** Synchronous plan of the plain-JavaScript backend (block size 2 or 4). */
@@ -212,14 +274,15 @@ export class FastMvdrScanner {
     }
     if (active !== this.#activeSeen) {
       this.#kernel.setRows(active);
+      this.#kernel32?.setRows(active);
       this.#activeSeen = active;
     }
   }
 
-  /** Factor R + δI; false when it does not factor. */
-  #tryFactor(sub: Float64Array, delta: number): boolean {
+  /** Factor R + δI (and invert it unless told not to); false when it does not factor. */
+  #tryFactor(sub: Float64Array, delta: number, invert: boolean): boolean {
     try {
-      this.#inv.factor(sub, 0, delta);
+      this.#inv.factor(sub, 0, delta, invert);
       return true;
     } catch (e) {
       if (e instanceof NotPositiveDefiniteError) return false;
@@ -245,7 +308,9 @@ export class FastMvdrScanner {
   scan(
     bank: CovarianceBank, loading: LoadingSpec, out: Float64Array,
     deltaOut: Float64Array | null = null, look: Int32Array | null = null, singular: Uint8Array | null = null,
+    conv: Float64Array | null = null,
   ): void {
+    if (conv !== null) this.#requireConv(conv);
     const B = this.binsCount;
     const D = this.directions;
     if (bank.bins !== B) throw new RangeError(`covariance has ${bank.bins} bins, scanner slice ${B}`);
@@ -263,12 +328,17 @@ export class FastMvdrScanner {
     const m = active.length;
     const sub = this.#sub;
     const kernel = this.#kernel;
-    const q = kernel.q;
+    const kernel32 = this.#kernel32;
+    const chol = this.#chol;
+    let pending = -1;
+    let pendingDelta = 0;
     for (let lb = 0; lb < B; lb++) {
       bank.gather(lb, sub);
+      if (conv !== null) this.#conventionalBin(sub, lb, m, conv);
+      const traceR = hermitianTrace(sub, 0, m);
       if (singular !== null) {
         // tr(R)/M = 0 (or not finite): the bin carries no usable signal; nothing to level or factor.
-        const mean = hermitianTrace(sub, 0, m) / m;
+        const mean = traceR / m;
         if (!(mean > 0 && mean < Infinity)) {
           singular[lb] = 1;
           out.fill(0, lb * D, (lb + 1) * D);
@@ -290,18 +360,121 @@ export class FastMvdrScanner {
         delta = this.#loader.level(sub, 0, loading);
       }
       if (deltaOut !== null) deltaOut[lb] = delta;
+      // Single precision needs only L; W = L⁻¹ is formed for the float64 kernel alone.
+      const single = kernel32 !== null && float32RelativeBound(m, traceR, delta) <= FLOAT32_RELATIVE_LIMIT;
+      if (single && chol !== null) {
+        // L of two bins at once (one per SIMD lane): this bin waits for a partner.
+        chol.load(pending < 0 ? 0 : 1, sub, m, delta);
+        if (pending < 0) {
+          pending = lb;
+          pendingDelta = delta;
+          continue;
+        }
+        chol.run(m);
+        this.#finishPaired(bank, pending, 0, pendingDelta, out, singular);
+        this.#finishPaired(bank, lb, 1, delta, out, singular);
+        pending = -1;
+        continue;
+      }
       if (singular !== null) {
         singular[lb] = 0;
-        if (!this.#tryFactor(sub, delta)) {
+        if (!this.#tryFactor(sub, delta, !single)) {
           singular[lb] = 1;
           out.fill(0, lb * D, (lb + 1) * D);
           continue;
         }
-      } else this.#inv.factor(sub, 0, delta);
-      kernel.setFactor(this.#inv.inverse, m);
-      kernel.run(lb, m);
+      } else this.#inv.factor(sub, 0, delta, !single);
+      let q: Float64Array;
+      if (single) {
+        (kernel32 as F32SolveKernel).setFactor(this.#inv.lower, this.#inv.invDiag, m);
+        (kernel32 as F32SolveKernel).run(lb, m);
+        q = (kernel32 as F32SolveKernel).q;
+        this.float32Bins++;
+      } else {
+        kernel.setFactor(this.#inv.inverse, m);
+        kernel.run(lb, m);
+        q = kernel.q;
+        this.float64Bins++;
+      }
       const o = lb * D;
       for (let d = 0; d < D; d++) out[o + d] = 1 / q[d];
     }
+    if (pending >= 0) {
+      // The last bin without a partner: lane 1 still holds an earlier bin, computed and ignored.
+      (chol as PairedCholesky).run(m);
+      this.#finishPaired(bank, pending, 0, pendingDelta, out, singular);
+    }
+  }
+
+  /**
+   * The conventional spectrum P_conv = vᴴRv/M'² of every bin, per row from the covariance (the
+   * f32x4 `quad` kernel over the same float32 steering copy as the MVDR scan; the alternative to
+   * tracking it per snapshot, ConventionalTracker, when rows are rare against hops). Error: each
+   * term of vᴴRv = Σ_ij conj(v_i) R_ij v_j is formed from float32-rounded R and v in float32, so
+   * |error| ≤ ε Σ_ij |R_ij||v_i||v_j| ≤ ε·tr(R)·‖v‖² (|R_ij| ≤ √(R_ii R_jj) for R ⪰ 0, then
+   * Cauchy–Schwarz), ε = √2·γ_{m+4} + γ₂ (Higham, Accuracy and Stability of Numerical Algorithms,
+   * 2nd ed., §3.1, §3.6) — for unit-modulus steering vectors ε·tr(R)/M', the form of the
+   * tracker's bound ({@link conventionalRowBound}). Needs precision 'f32'.
+   * @param out length ≥ binsCount·D, bin-major
+   */
+  conventional(bank: CovarianceBank, out: Float64Array): void {
+    if (bank.bins !== this.binsCount) throw new RangeError(`covariance has ${bank.bins} bins, scanner slice ${this.binsCount}`);
+    if (bank.channels !== this.channels) throw new RangeError(`covariance has ${bank.channels} channels, steering table ${this.channels}`);
+    this.#requireConv(out);
+    const active = bank.activeChannels;
+    this.#plan(active);
+    const m = active.length;
+    for (let lb = 0; lb < this.binsCount; lb++) {
+      bank.gather(lb, this.#sub);
+      this.#conventionalBin(this.#sub, lb, m, out);
+    }
+  }
+
+  #requireConv(conv: Float64Array): void {
+    if (this.#kernel32 === null) throw new Error("the conventional spectrum per row needs precision 'f32'");
+    if (conv.length < this.binsCount * this.directions) throw new RangeError(`conventional output holds ${conv.length}, needs ${this.binsCount * this.directions}`);
+  }
+
+  #conventionalBin(sub: Float64Array, lb: number, m: number, conv: Float64Array): void {
+    const k32 = this.#kernel32 as F32SolveKernel;
+    k32.setMatrix(sub, m);
+    k32.runQuad(lb, m);
+    const q = k32.q;
+    const D = this.directions;
+    const o = lb * D;
+    const scale = 1 / (m * m);
+    for (let d = 0; d < D; d++) conv[o + d] = q[d] * scale;
+  }
+
+  /**
+   * Scans bin lb from lane `lane` of the paired factor; a lane that failed the pivot rule is
+   * factored again by InverseCholesky, which flags the bin singular or throws exactly as the
+   * unpaired path does.
+   */
+  #finishPaired(bank: CovarianceBank, lb: number, lane: number, delta: number, out: Float64Array, singular: Uint8Array | null): void {
+    const chol = this.#chol as PairedCholesky;
+    const kernel32 = this.#kernel32 as F32SolveKernel;
+    const m = this.#m;
+    const D = this.directions;
+    if (chol.ok(lane, m)) {
+      kernel32.setFactorFrom(chol.view(lane), m);
+    } else {
+      const sub = this.#sub;
+      bank.gather(lb, sub);
+      if (singular !== null) {
+        singular[lb] = 0;
+        if (!this.#tryFactor(sub, delta, false)) {
+          singular[lb] = 1;
+          out.fill(0, lb * D, (lb + 1) * D);
+          return;
+        }
+      } else this.#inv.factor(sub, 0, delta, false);
+      kernel32.setFactor(this.#inv.lower, this.#inv.invDiag, m);
+    }
+    kernel32.run(lb, m);
+    this.float32Bins++;
+    const q = kernel32.q;
+    const o = lb * D;
+    for (let d = 0; d < D; d++) out[o + d] = 1 / q[d];
   }
 }
