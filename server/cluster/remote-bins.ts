@@ -21,6 +21,7 @@ import { publicText } from '../public-text.ts';
 import {
   AlignedScratch,
   assertLittleEndian,
+  brokerOptions,
   encodeJson,
   HELLO_SUBJECT,
   HOP_BATCH_MAX,
@@ -135,17 +136,7 @@ export class RemoteBins {
 
   async #connect(): Promise<void> {
     const o = this.opts;
-    const nc = await connect({
-      servers: o.natsUrl,
-      ...(o.token ? { token: o.token } : {}),
-      name: `nullsteer engine ${this.engineId}`,
-      maxReconnectAttempts: -1,
-      reconnectTimeWait: 250,
-      waitOnFirstConnect: true,
-      pingInterval: 2000,
-      maxPingOut: 2,
-      ignoreClusterUpdates: true,
-    });
+    const nc = await connect(brokerOptions(o.natsUrl, o.token, `nullsteer engine ${this.engineId}`));
     if (this.#closed) {
       await nc.close();
       return;

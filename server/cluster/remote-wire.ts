@@ -504,3 +504,21 @@ export function parseCtrl(bytes: Uint8Array): Parsed<CtrlMessage> {
 }
 
 export const encodeJson = (m: object): Uint8Array => new TextEncoder().encode(JSON.stringify(m));
+
+/**
+ * Connection options both ends use: reconnect forever, quickly (250 ms), and notice a dead broker
+ * within two missed pings of 2 s.
+ */
+export function brokerOptions(natsUrl: string, token: string | null | undefined, name: string) {
+  return {
+    servers: natsUrl,
+    ...(token ? { token } : {}),
+    name,
+    maxReconnectAttempts: -1,
+    reconnectTimeWait: 250,
+    waitOnFirstConnect: true,
+    pingInterval: 2000,
+    maxPingOut: 2,
+    ignoreClusterUpdates: true,
+  };
+}

@@ -18,6 +18,7 @@ import { publicText } from '../public-text.ts';
 import {
   AlignedScratch,
   assertLittleEndian,
+  brokerOptions,
   encodeJson,
   HELLO_SUBJECT,
   HOP_META_DOUBLES,
@@ -136,17 +137,7 @@ export class RemoteWorker {
   }
 
   async #connect(): Promise<void> {
-    const nc = await connect({
-      servers: this.#o.natsUrl,
-      ...(this.#o.token ? { token: this.#o.token } : {}),
-      name: `nullsteer worker ${this.name}`,
-      maxReconnectAttempts: -1,
-      reconnectTimeWait: 250,
-      waitOnFirstConnect: true,
-      pingInterval: 2000,
-      maxPingOut: 2,
-      ignoreClusterUpdates: true,
-    });
+    const nc = await connect(brokerOptions(this.#o.natsUrl, this.#o.token, `nullsteer worker ${this.name}`));
     this.#nc = nc;
     const sub = (subject: string, f: (m: Msg) => void | Promise<void>) => {
       this.#subs.push(
