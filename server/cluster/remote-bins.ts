@@ -76,11 +76,9 @@ export interface RemotePartState {
   writer: HopBatchWriter;
   bytesSent: number;
   bytesReceived: number;
-  batches: number;
   lastAnswerMs: number | null;
   /** Since when the part has missed a deadline without answering since (null: answering). */
   missedSinceMs: number | null;
-  committedMs: number;
 }
 
 export interface RemoteEvents {
@@ -270,12 +268,11 @@ export class RemoteBins {
     const before = new Set(this.#parts.map((p) => p.memberId));
     // Workers this plan weighed and left out (no bins left for them) do not ask for a re-plan again
     // (a worker lost meanwhile is weighed again when its cool-down ends).
-    const now0 = performance.now();
-    this.#considered = new Set(considered.filter((id) => !((this.#members.get(id)?.lostUntilMs ?? 0) > now0)));
+    const now = performance.now();
+    this.#considered = new Set(considered.filter((id) => !((this.#members.get(id)?.lostUntilMs ?? 0) > now)));
     this.#epoch = epoch;
     this.#limits = limits;
-    const now = performance.now();
-    this.#parts = parts.map((p) => ({ ...p, writer: new HopBatchWriter(channels, p.bins, HOP_BATCH_MAX), bytesSent: 0, bytesReceived: 0, batches: 0, lastAnswerMs: null, missedSinceMs: null, committedMs: now }));
+    this.#parts = parts.map((p) => ({ ...p, writer: new HopBatchWriter(channels, p.bins, HOP_BATCH_MAX), bytesSent: 0, bytesReceived: 0, lastAnswerMs: null, missedSinceMs: null }));
     for (const id of before) if (!parts.some((p) => p.memberId === id)) this.#ctrlTo(id, { v: 1, type: 'release', engine: this.engineId, epoch });
   }
 
@@ -313,7 +310,6 @@ export class RemoteBins {
       this.#nc.publish(hopsSubject(p.memberId, this.engineId), bytes.slice());
       p.bytesSent += bytes.byteLength;
       this.bytesPublished += bytes.byteLength;
-      p.batches++;
       this.#bytesWindow.bytes.set(p.memberId, (this.#bytesWindow.bytes.get(p.memberId) ?? 0) + bytes.byteLength);
     } catch {
       this.#drop('publish');

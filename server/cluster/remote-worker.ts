@@ -13,7 +13,7 @@
 import { connect, type NatsConnection, type Msg, type Subscription } from '@nats-io/transport-node';
 import { randomBytes } from 'node:crypto';
 import { BinProcessor } from '../engine/bin-processor.ts';
-import { FLAG_BEAMS, FLAG_RESET, LOAD_FIXED, LOAD_RELATIVE, LOAD_WNG, loadingAt, MAX_BEAMS } from '../engine/protocol.ts';
+import { FLAG_BEAMS, FLAG_RESET, gridFromMessage, LOAD_FIXED, LOAD_RELATIVE, LOAD_WNG, loadingAt, MAX_BEAMS } from '../engine/protocol.ts';
 import { publicText } from '../public-text.ts';
 import {
   AlignedScratch,
@@ -35,7 +35,6 @@ import {
   type PlanReply,
   type RemoteBeam,
   type RemotePlan,
-  type GridSpec,
 } from './remote-wire.ts';
 
 /** Engines whose plans one worker holds at once; a further plan is refused. */
@@ -75,10 +74,6 @@ interface Assignment {
   scans: number;
   gaps: number;
   lastHopMs: number;
-}
-
-function gridOf(g: GridSpec) {
-  return { count: g.nAz * g.nEl, nAz: g.nAz, nEl: g.nEl, azimuthDeg: Float64Array.from(g.azimuthDeg), elevationDeg: Float64Array.from(g.elevationDeg) };
 }
 
 function sizeBuffers(a: Assignment): void {
@@ -228,7 +223,7 @@ export class RemoteWorker {
     const M = p.positions.length;
     const B = p.freqsHz.length;
     if (p.grid.nAz * p.grid.nEl > PLAN_LIMITS.maxDirections) throw new RangeError('grid too large');
-    const proc = await BinProcessor.create({ positions: p.positions, freqsHz: Float64Array.from(p.freqsHz), grid: gridOf(p.grid), speedOfSoundMps: p.speedOfSoundMps, snapshotScale: p.snapshotScale, fast: p.fast });
+    const proc = await BinProcessor.create({ positions: p.positions, freqsHz: Float64Array.from(p.freqsHz), grid: gridFromMessage(p.grid), speedOfSoundMps: p.speedOfSoundMps, snapshotScale: p.snapshotScale, fast: p.fast });
     proc.setMask(p.active);
     const a = { engine: p.engine, epoch: p.epoch, part: p.part, proc, channels: M, bins: B, beams: p.beams, nextSeq: p.firstSeq, snap: new Float64Array(2 * M * B), busyMs: 0, hops: 0, scans: 0, gaps: 0, lastHopMs: performance.now() } as Assignment;
     sizeBuffers(a);
@@ -277,7 +272,7 @@ export class RemoteWorker {
         a.beams = c.beams;
         return;
       case 'grid':
-        await a.proc.setGrid(gridOf(c.grid));
+        await a.proc.setGrid(gridFromMessage(c.grid));
         sizeBuffers(a);
         return;
     }

@@ -14,6 +14,7 @@ import {
   MAX_BEAMS,
   resultStride,
   type BeamSpec,
+  gridFromMessage,
   loadingAt,
   META_FLAGS,
   META_LAMBDA,
@@ -63,10 +64,6 @@ function post(m: FromWorker): void {
   port.postMessage(m);
 }
 
-function gridOf(g: PlanMessage['grid']) {
-  return { count: g.nAz * g.nEl, nAz: g.nAz, nEl: g.nEl, azimuthDeg: Float64Array.from(g.azimuthDeg), elevationDeg: Float64Array.from(g.elevationDeg) };
-}
-
 async function build(plan: PlanMessage): Promise<State> {
   const M = plan.positions.length;
   const B = plan.freqsHz.length;
@@ -89,7 +86,7 @@ async function build(plan: PlanMessage): Promise<State> {
     beamOut.push(results.subarray(base + 2 * R, base + 2 * R + beamShares));
     weightOut.push(results.subarray(base + 2 * R + beamShares, base + stride));
   }
-  const proc = await BinProcessor.create({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridOf(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale, fast: plan.fast });
+  const proc = await BinProcessor.create({ positions: plan.positions, freqsHz: Float64Array.from(plan.freqsHz), grid: gridFromMessage(plan.grid), speedOfSoundMps: plan.speedOfSoundMps, snapshotScale: plan.snapshotScale, fast: plan.fast });
   proc.setMask(plan.active);
   const ctrl = new Int32Array(plan.ctrl);
   return { plan, ctrl, meta: new Float64Array(plan.meta), stats: new Float64Array(plan.stats), views, conv, mvdr, beamOut, weightOut, beams: plan.beams, proc, processed: Atomics.load(ctrl, CTRL_DONE + plan.workerIndex), pendingFault: null };
@@ -201,7 +198,7 @@ port.on('message', async (m: ToWorker) => {
         if (state && state.plan.epoch === m.epoch) state.proc.setMask(m.active);
         return;
       case 'grid':
-        if (state && state.plan.epoch === m.epoch) await state.proc.setGrid(gridOf(m.grid));
+        if (state && state.plan.epoch === m.epoch) await state.proc.setGrid(gridFromMessage(m.grid));
         return;
       case 'beams':
         if (state && state.plan.epoch === m.epoch) state.beams = m.beams;

@@ -59,6 +59,11 @@ export const LOAD_RELATIVE = 0;
 export const LOAD_FIXED = 1;
 export const LOAD_WNG = 2;
 
+/** A grid as plan messages carry it (plain arrays) → the DirectionGrid the kernels take. */
+export function gridFromMessage(g: { azimuthDeg: number[]; elevationDeg: number[]; nAz: number; nEl: number }) {
+  return { count: g.nAz * g.nEl, nAz: g.nAz, nEl: g.nEl, azimuthDeg: Float64Array.from(g.azimuthDeg), elevationDeg: Float64Array.from(g.elevationDeg) };
+}
+
 /** Write a loading spec into the hop meta at `o` (the engine's side of loadingAt). */
 export function writeLoadingMeta(meta: Float64Array, o: number, l: LoadingSpec): void {
   switch (l.mode) {

@@ -254,12 +254,7 @@ describeNats('remote bin workers on a real broker', () => {
   });
 
   it('a remote worker killed mid-run: rows go on (partial, flagged), its bins are re-planned within 2 s of signal, the restart listed', async () => {
-    const { g, x } = await scene(65536);
-    const M = g.positions.length;
-    const rows: EngineRow[] = [];
-    const remote = await remoteWith(broker.url, 2, { deadlineMs: 250, dropMs: 750 });
-    const e = await Engine.create({ geometry: g, sampleRateHz: FS, params: params(), workers: 1, speedOfSoundMps: 343.2, shedding: false, onRow: (r) => rows.push(r), remote });
-    const feed = paceLive(e, x, M);
+    const { rows, e, feed } = await liveWithTwoWorkers();
     try {
       const st = () => e.status() as unknown as RemoteStatus;
       await waitFor(() => rows.filter((r) => !r.partial).length >= 10, 30_000, 'whole rows from three parts');
@@ -272,8 +267,7 @@ describeNats('remote bin workers on a real broker', () => {
       await waitFor(() => rows.some((r) => r.sampleIndex > restart.sampleIndex + FS / 2 && !r.partial), 30_000, 'whole rows after the re-plan');
       const s = st();
       const after = rows.filter((r) => r.sampleIndex > killedAt);
-      let gap = 0;
-      for (let i = 1; i < after.length; i++) gap = Math.max(gap, after[i].sampleIndex - after[i - 1].sampleIndex);
+      const gap = largestGap(after);
       const partial = after.filter((r) => r.partial);
       console.log(`killed at sample ${killedAt}; re-planned at ${restart.sampleIndex} (${((restart.sampleIndex - killedAt) / FS).toFixed(2)} s of signal later); ${partial.length} partial rows, largest gap between rows ${(gap / FS).toFixed(3)} s; ${restart.reason}`);
       expect((restart.sampleIndex - killedAt) / FS).toBeLessThanOrEqual(2);
@@ -294,12 +288,7 @@ describeNats('remote bin workers on a real broker', () => {
   });
 
   it('a broker restart: the engine falls back to its local threads (said in status), then takes the workers back', async () => {
-    const { g, x } = await scene(65536);
-    const M = g.positions.length;
-    const rows: EngineRow[] = [];
-    const remote = await remoteWith(broker.url, 2, { deadlineMs: 250, dropMs: 750 });
-    const e = await Engine.create({ geometry: g, sampleRateHz: FS, params: params(), workers: 1, speedOfSoundMps: 343.2, shedding: false, onRow: (r) => rows.push(r), remote });
-    const feed = paceLive(e, x, M);
+    const { rows, e, feed } = await liveWithTwoWorkers();
     try {
       const st = () => (e.status() as unknown as RemoteStatus).remote;
       await waitFor(() => rows.length >= 10 && st().mode === 'remote', 30_000, 'rows from three parts');
@@ -317,8 +306,7 @@ describeNats('remote bin workers on a real broker', () => {
       expect((e.status() as unknown as RemoteStatus).perWorker).toHaveLength(3);
       expect(st().broker).toBe('connected');
       const after = rows.filter((r) => r.sampleIndex > downAt);
-      let gap = 0;
-      for (let i = 1; i < after.length; i++) gap = Math.max(gap, after[i].sampleIndex - after[i - 1].sampleIndex);
+      const gap = largestGap(after);
       console.log(`broker restart: ${st().replans} plans, ${st().partialRows} partial rows, largest gap between rows ${(gap / FS).toFixed(3)} s`);
       expect(gap / FS).toBeLessThanOrEqual(2);
     } finally {
@@ -380,6 +368,22 @@ interface RemoteStatus {
   perWorker: unknown[];
   covarianceRestarts: { recent: { worker: number; bins: number; sampleIndex: number; reason?: string }[] };
   remote: { mode: string; broker: string; partialRows: number; replans: number; workers: { name: string; state: string; bins: number }[] };
+}
+
+/** One local thread and two remote workers (deadline 250 ms, drop 750 ms), fed live on the wall clock. */
+async function liveWithTwoWorkers() {
+  const { g, x } = await scene(65536);
+  const rows: EngineRow[] = [];
+  const remote = await remoteWith(broker.url, 2, { deadlineMs: 250, dropMs: 750 });
+  const e = await Engine.create({ geometry: g, sampleRateHz: FS, params: params(), workers: 1, speedOfSoundMps: 343.2, shedding: false, onRow: (r) => rows.push(r), remote });
+  return { rows, e, feed: paceLive(e, x, g.positions.length) };
+}
+
+/** The largest step in sample index between consecutive rows. */
+function largestGap(rows: readonly EngineRow[]): number {
+  let gap = 0;
+  for (let i = 1; i < rows.length; i++) gap = Math.max(gap, rows[i].sampleIndex - rows[i - 1].sampleIndex);
+  return gap;
 }
 
 /** Feed the engine on the wall clock (live, `push`, never waiting), looping the interleaved signal. */
